@@ -1,0 +1,91 @@
+//! The command line (DESIGN.md "CLI").
+
+use std::path::PathBuf;
+
+use clap::{Args, Parser, Subcommand, ValueEnum};
+
+#[derive(Debug, Parser)]
+#[command(name = "wallflux", version, about = "Live through-wall heat flux of kiln, furnace and oven walls, from embedded thermocouples to MQTT.")]
+pub struct Cli {
+    /// Log line format on stderr.
+    #[arg(long, value_enum, default_value_t = LogFormat::Text, global = true)]
+    pub log_format: LogFormat,
+    /// Log filter, e.g. `info`, `debug`, `wallflux=debug` (overrides RUST_LOG).
+    #[arg(long, global = true)]
+    pub log_level: Option<String>,
+    #[command(subcommand)]
+    pub command: Command,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq, ValueEnum)]
+pub enum LogFormat {
+    /// One readable line per event.
+    Text,
+    /// One JSON object per line.
+    Json,
+}
+
+#[derive(Debug, Subcommand)]
+pub enum Command {
+    /// Run the monitoring daemon.
+    Run {
+        #[arg(long, value_name = "FILE")]
+        config: PathBuf,
+    },
+    /// A simulated kiln firing end to end: pseudo-terminal serial line,
+    /// embedded MQTT broker, live summary on the terminal.
+    Demo(DemoArgs),
+    /// Validate a configuration and print a summary.
+    Check {
+        #[arg(long, value_name = "FILE")]
+        config: PathBuf,
+    },
+    /// Run the engine over recorded samples; one zone-state JSON line per
+    /// zone per interval on stdout.
+    Analyze {
+        #[arg(long, value_name = "FILE")]
+        config: PathBuf,
+        /// CSV with header `time,channel,value`.
+        #[arg(long, value_name = "FILE.csv")]
+        samples: PathBuf,
+    },
+    /// ITS-90 thermocouple conversion, for field checks with a calibrator.
+    Tc(TcArgs),
+}
+
+#[derive(Debug, Args)]
+pub struct DemoArgs {
+    /// Port of the embedded MQTT broker on 127.0.0.1.
+    #[arg(long, default_value_t = 1883)]
+    pub broker_port: u16,
+    /// Use the `[mqtt]` broker of the configuration instead of the embedded one.
+    #[arg(long)]
+    pub no_broker: bool,
+    /// Simulated seconds per real second.
+    #[arg(long, default_value_t = 240.0)]
+    pub speed: f64,
+    /// A configuration to demo instead of the built-in one (its sources are
+    /// replaced by simulated pseudo-terminals).
+    #[arg(long, value_name = "FILE")]
+    pub config: Option<PathBuf>,
+}
+
+#[derive(Debug, Args)]
+#[command(group = clap::ArgGroup::new("input").required(true).args(["celsius", "mv"]))]
+pub struct TcArgs {
+    /// Thermocouple type: B E J K N R S T.
+    #[arg(long = "type", value_name = "TYPE")]
+    pub tc_type: String,
+    /// Temperature, °C → EMF (0 °C reference junction).
+    #[arg(long, allow_hyphen_values = true)]
+    pub celsius: Option<f64>,
+    /// Measured EMF, mV → temperature.
+    #[arg(long, allow_hyphen_values = true)]
+    pub mv: Option<f64>,
+    /// Cold-junction (terminal) temperature for `--mv`, °C (default 0).
+    #[arg(long, requires = "mv", allow_hyphen_values = true)]
+    pub cj_c: Option<f64>,
+    /// Print JSON instead of text.
+    #[arg(long)]
+    pub json: bool,
+}

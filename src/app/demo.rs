@@ -1,0 +1,289 @@
+//! `wallflux demo`: an invented shuttle-kiln firing, end to end. A
+//! finite-difference model of each wall (so the fit is checked against
+//! physics, not against its own formula) drives line-protocol frames through
+//! a real pseudo-terminal that the daemon opens as its serial port; the
+//! daemon publishes to an embedded MQTT broker; the terminal shows one line
+//! per zone as the firing goes.
+
+use std::io::Write;
+use std::sync::atomic::{AtomicBool, Ordering};
+use std::sync::Arc;
+use std::time::Duration;
+
+use anyhow::anyhow;
+use tokio::sync::Notify;
+
+use super::cli::DemoArgs;
+use super::clock::Clock;
+use super::Failure;
+use crate::acquire::line::{encode_frame, Value, Unit, MAX_LINE_BYTES};
+use crate::config::{self, Settings, Signal};
+use crate::monitor::zone::{ZoneReport, ZoneStatus};
+use crate::physics::surface::SurfaceParams;
+use crate::physics::thermocouple;
+use crate::sim::firing::FiringSchedule;
+use crate::sim::pty::Pty;
+use crate::sim::wall::{Layer, WallSim};
+use crate::time::Timestamp;
+
+/// The built-in demo configuration.
+pub const DEMO_CONFIG: &str = include_str!("../../config/demo.toml");
+
+/// Simulated seconds between two scans of the thermocouple box.
+const SCAN_S: f64 = 10.0;
+/// Hot-face offset of each demo zone from the kiln set-point, °C (demo
+/// data: the door runs cooler, the roof hotter).
+fn zone_offset_c(zone: &str) -> f64 {
+    match zone {
+        "door" => -30.0,
+        "roof" => 12.0,
+        _ => 0.0,
+    }
+}
+/// Simulated minutes between two terminal summaries.
+const PRINT_EVERY_S: f64 = 30.0 * 60.0;
+
+pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
+    if !(args.speed.is_finite() && args.speed > 0.0 && args.speed <= 100_000.0) {
+        return Err(Failure::usage(anyhow!("--speed must be between 0 and 100000, got {}", args.speed)));
+    }
+    let mut settings = match &args.config {
+        Some(path) => super::load(path)?,
+        None => config::parse(DEMO_CONFIG, "built-in demo configuration", None).map_err(Failure::usage)?,
+    };
+    settings.state_dir = std::env::temp_dir().join("wallflux-demo");
+    if !args.no_broker {
+        settings.mqtt.host = "127.0.0.1".into();
+        settings.mqtt.port = args.broker_port;
+    }
+    // One pseudo-terminal per source.
+    let mut ptys = Vec::new();
+    for s in settings.sources.iter_mut() {
+        let pty = Pty::open().map_err(|e| Failure::runtime(anyhow!("cannot open a pseudo-terminal: {e}")))?;
+        s.port = pty.path.clone();
+        ptys.push(pty);
+    }
+    let settings = Arc::new(settings);
+    let schedule = FiringSchedule::demo();
+    let rt = super::runtime()?;
+    rt.block_on(async move {
+        if !args.no_broker {
+            super::broker::start(args.broker_port).await.map_err(Failure::runtime)?;
+        }
+        let clock = Clock::accelerated(args.speed);
+        let start = clock.now();
+        let root = settings.topic_root();
+        println!(
+            "wallflux demo: simulated shuttle kiln {}/{}, firing of {:.1} h at {}x ({:.1} min)",
+            settings.site.plant,
+            settings.site.kiln,
+            schedule.duration_s() / 3600.0,
+            args.speed,
+            schedule.duration_s() / args.speed / 60.0
+        );
+        println!(
+            "  serial line: {}   MQTT: {}:{}   watch with: mosquitto_sub -h {} -p {} -t '{root}/#' -v",
+            ptys.iter().map(|p| p.path.as_str()).collect::<Vec<_>>().join(", "),
+            settings.mqtt.host,
+            settings.mqtt.port,
+            settings.mqtt.host,
+            settings.mqtt.port
+        );
+        println!("  Ctrl-C to stop. Simulated data only: this is not a real kiln.");
+
+        let done = Arc::new(Notify::new());
+        let stop = Arc::new(AtomicBool::new(false));
+        let sim = {
+            let settings = settings.clone();
+            let stop = stop.clone();
+            let done = done.clone();
+            let schedule = schedule.clone();
+            std::thread::Builder::new()
+                .name("wallflux-sim".into())
+                .spawn(move || simulate(&settings, &schedule, ptys, clock, start, &stop, &done))
+                .map_err(|e| Failure::runtime(anyhow!("cannot start the simulator: {e}")))?
+        };
+        let observer = terminal_view(start, schedule.clone(), settings.zones.len());
+        let shutdown = async {
+            tokio::select! {
+                _ = super::shutdown_signal() => println!("stopping (signal)"),
+                _ = done.notified() => println!("firing complete"),
+            }
+        };
+        let result = super::run::run(settings, clock, shutdown, Some(observer)).await;
+        stop.store(true, Ordering::Relaxed);
+        let _ = sim.join();
+        result.map_err(Failure::runtime)
+    })
+}
+
+/// The simulator thread: steps every zone's wall model in simulated time,
+/// following the daemon's clock, and writes one frame per scan per source.
+fn simulate(
+    settings: &Settings,
+    schedule: &FiringSchedule,
+    mut ptys: Vec<Pty>,
+    clock: Clock,
+    start: Timestamp,
+    stop: &AtomicBool,
+    done: &Notify,
+) {
+    let mut walls: Vec<WallSim> = Vec::new();
+    for z in &settings.zones {
+        let layers = z
+            .layers
+            .iter()
+            .map(|l| Layer {
+                material: settings.materials[l.material].material.clone(),
+                thickness_m: l.thickness_m,
+            })
+            .collect();
+        let surface = SurfaceParams {
+            orientation: z.orientation,
+            length_m: z.height_m,
+            emissivity: z.emissivity,
+            ambient_c: z.ambient_c,
+            surroundings_c: z.ambient_c,
+            wind_m_s: None,
+        };
+        match WallSim::new(layers, 24, schedule.setpoint_c(0.0), surface) {
+            Ok(mut w) => {
+                w.settle(schedule.setpoint_c(0.0) + zone_offset_c(&z.name));
+                walls.push(w);
+            }
+            Err(e) => {
+                eprintln!("wallflux demo: cannot simulate zone {}: {e}", z.name);
+                done.notify_one();
+                return;
+            }
+        }
+    }
+    // Where each channel sits: (zone, depth).
+    let place: Vec<Option<(usize, f64)>> = (0..settings.channels.len())
+        .map(|c| {
+            settings.zones.iter().enumerate().find_map(|(zi, z)| {
+                z.probes.iter().find(|p| p.channel == c).map(|p| (zi, p.depth_m))
+            })
+        })
+        .collect();
+    let mut rng = SplitMix64(0x5eed_0f_d3e0);
+    let mut seq: u32 = 0;
+    let mut t_sim = 0.0;
+    let mut line = heapless::String::<{ MAX_LINE_BYTES + 2 }>::new();
+    let mut values: heapless::Vec<(u8, Value), 64> = heapless::Vec::new();
+    while !stop.load(Ordering::Relaxed) {
+        let now_s = clock.now().since(start);
+        if t_sim + SCAN_S > now_s {
+            std::thread::sleep(clock.real_duration(t_sim + SCAN_S - now_s).min(Duration::from_millis(200)));
+            continue;
+        }
+        t_sim += SCAN_S;
+        let setpoint = schedule.setpoint_c(t_sim);
+        for (zi, w) in walls.iter_mut().enumerate() {
+            w.step(SCAN_S, setpoint + zone_offset_c(&settings.zones[zi].name));
+        }
+        // The box's terminals warm a little with the kiln (demo data).
+        let cj_c = 24.0 + 6.0 * ((setpoint - 20.0) / 1250.0).clamp(0.0, 1.0) + 0.05 * rng.gauss();
+        for (si, pty) in ptys.iter_mut().enumerate() {
+            values.clear();
+            for (ci, c) in settings.channels.iter().enumerate() {
+                let (Some((zi, depth)), true) = (place[ci], c.source == si) else {
+                    continue;
+                };
+                let t = walls[zi].temperature_at(depth) + 0.15 * rng.gauss();
+                let v = match c.signal {
+                    Signal::Celsius => Value::Reading { value: round(t, 1), unit: Unit::Celsius },
+                    Signal::Millivolts => {
+                        let (Ok(e), Ok(e_cj)) = (thermocouple::emf_mv(c.tc_type, t), thermocouple::emf_mv(c.tc_type, cj_c))
+                        else {
+                            continue;
+                        };
+                        Value::Reading { value: round(e - e_cj, 3), unit: Unit::Millivolts }
+                    }
+                };
+                let _ = values.push((c.input, v));
+            }
+            line.clear();
+            if encode_frame(seq, &values, Some(round(cj_c, 1)), &mut line).is_ok() {
+                // A full pty buffer (daemon not reading) drops this scan,
+                // as a real box would overrun: never block the simulation.
+                let _ = pty.master.write_all(line.as_bytes());
+            }
+        }
+        seq = seq.wrapping_add(1);
+        if t_sim >= schedule.duration_s() {
+            // Let the daemon publish the last interval, then end.
+            std::thread::sleep(clock.real_duration(120.0).min(Duration::from_secs(2)));
+            done.notify_one();
+            return;
+        }
+    }
+}
+
+fn round(v: f64, decimals: i32) -> f64 {
+    let p = 10f64.powi(decimals);
+    (v * p).round() / p
+}
+
+/// Prints one line per zone every `PRINT_EVERY_S` of simulated time.
+fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> super::run::Observer {
+    let mut latest: Vec<Option<ZoneReport>> = vec![None; zones];
+    let mut next_print = start.plus_s(PRINT_EVERY_S);
+    Box::new(move |r: &ZoneReport| {
+        let slot = latest.iter().position(|l| l.as_ref().is_some_and(|l| l.zone == r.zone));
+        match slot {
+            Some(i) => latest[i] = Some(r.clone()),
+            None => {
+                if let Some(free) = latest.iter_mut().find(|l| l.is_none()) {
+                    *free = Some(r.clone());
+                }
+            }
+        }
+        if r.time < next_print {
+            return;
+        }
+        next_print = next_print.plus_s(PRINT_EVERY_S);
+        let t = r.time.since(start);
+        println!(
+            "t={:>5.1} h  kiln set-point {:>6.1} °C",
+            t / 3600.0,
+            schedule.setpoint_c(t)
+        );
+        for l in latest.iter().flatten() {
+            let f = |v: Option<f64>, d: usize| v.map_or("     -".to_string(), |x| format!("{x:>6.d$}"));
+            let status = match l.status {
+                ZoneStatus::Ok => "ok",
+                ZoneStatus::Degraded => "DEGRADED",
+                ZoneStatus::InsufficientData => "NO DATA",
+            };
+            println!(
+                "  {:<10} hot face {} °C  shell {} °C  q_shell {} W/m²  loss {} kW  source {} W/m³  fit rms {} °C  {status}",
+                l.zone,
+                f(l.hot_face_c, 1),
+                f(l.shell_c, 1),
+                f(l.flux_shell_w_m2, 0),
+                f(l.heat_loss_w.map(|w| w / 1000.0), 2),
+                f(l.source_w_m3, 0),
+                f(l.fit_rms_c, 2),
+            );
+        }
+    })
+}
+
+/// SplitMix64 with a Box–Muller normal: small, deterministic demo noise.
+struct SplitMix64(u64);
+
+impl SplitMix64 {
+    fn next_f64(&mut self) -> f64 {
+        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = self.0;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        z ^= z >> 31;
+        ((z >> 11) as f64 + 0.5) / (1u64 << 53) as f64
+    }
+    fn gauss(&mut self) -> f64 {
+        let (u1, u2) = (self.next_f64(), self.next_f64());
+        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
+    }
+}

@@ -1,0 +1,120 @@
+//! The application: command line, configuration loading, task start-up,
+//! signals and exit codes. `main.rs` only calls [`main`].
+
+pub mod analyze;
+#[cfg(feature = "demo")]
+pub mod broker;
+pub mod check;
+pub mod cli;
+pub mod clock;
+#[cfg(feature = "demo")]
+pub mod demo;
+pub mod logging;
+pub mod run;
+pub mod tc;
+
+use std::path::Path;
+use std::process::ExitCode;
+use std::sync::Arc;
+
+use clap::Parser;
+
+use crate::config::{self, Settings};
+use cli::{Cli, Command};
+
+/// Exit code for a usage or configuration error.
+pub const EXIT_USAGE: u8 = 2;
+/// Exit code for a runtime failure.
+pub const EXIT_RUNTIME: u8 = 1;
+
+/// An error that ends the program with a given exit code.
+#[derive(Debug)]
+pub struct Failure {
+    pub code: u8,
+    pub error: anyhow::Error,
+}
+
+impl Failure {
+    pub fn usage(error: impl Into<anyhow::Error>) -> Self {
+        Failure { code: EXIT_USAGE, error: error.into() }
+    }
+    pub fn runtime(error: impl Into<anyhow::Error>) -> Self {
+        Failure { code: EXIT_RUNTIME, error: error.into() }
+    }
+}
+
+/// The whole program.
+pub fn main() -> ExitCode {
+    let cli = match Cli::try_parse() {
+        Ok(c) => c,
+        Err(e) => {
+            let _ = e.print();
+            return match e.kind() {
+                clap::error::ErrorKind::DisplayHelp | clap::error::ErrorKind::DisplayVersion => ExitCode::SUCCESS,
+                _ => ExitCode::from(EXIT_USAGE),
+            };
+        }
+    };
+    logging::init(cli.log_format, cli.log_level.as_deref());
+    match dispatch(cli.command) {
+        Ok(()) => ExitCode::SUCCESS,
+        Err(f) => {
+            eprintln!("wallflux: {:#}", f.error);
+            ExitCode::from(f.code)
+        }
+    }
+}
+
+fn dispatch(cmd: Command) -> Result<(), Failure> {
+    match cmd {
+        Command::Check { config } => check::check(&config),
+        Command::Tc(args) => tc::tc(&args),
+        Command::Analyze { config, samples } => analyze::analyze(&config, &samples),
+        Command::Run { config } => {
+            let settings = Arc::new(load(&config)?);
+            runtime()?.block_on(async move {
+                run::run(settings, clock::Clock::real(), shutdown_signal(), None)
+                    .await
+                    .map_err(Failure::runtime)
+            })
+        }
+        #[cfg(feature = "demo")]
+        Command::Demo(args) => demo::demo(&args),
+        #[cfg(not(feature = "demo"))]
+        Command::Demo(_) => Err(Failure::usage(anyhow::anyhow!(
+            "this build has no demo (built without the `demo` feature)"
+        ))),
+    }
+}
+
+/// Reads and validates a configuration file (exit 2 on any problem).
+pub fn load(path: &Path) -> Result<Settings, Failure> {
+    let text = std::fs::read_to_string(path)
+        .map_err(|e| Failure::usage(anyhow::anyhow!("cannot read configuration {}: {e}", path.display())))?;
+    let state_env = std::env::var("STATE_DIRECTORY").ok();
+    config::parse(&text, &path.display().to_string(), state_env.as_deref()).map_err(Failure::usage)
+}
+
+pub fn runtime() -> Result<tokio::runtime::Runtime, Failure> {
+    tokio::runtime::Builder::new_multi_thread()
+        .worker_threads(2)
+        .enable_all()
+        .build()
+        .map_err(|e| Failure::runtime(anyhow::anyhow!("cannot start the runtime: {e}")))
+}
+
+/// Completes on SIGINT (Ctrl-C) or SIGTERM (systemd stop).
+pub async fn shutdown_signal() {
+    use tokio::signal::unix::{signal, SignalKind};
+    let mut term = match signal(SignalKind::terminate()) {
+        Ok(s) => s,
+        Err(_) => {
+            let _ = tokio::signal::ctrl_c().await;
+            return;
+        }
+    };
+    tokio::select! {
+        _ = tokio::signal::ctrl_c() => {}
+        _ = term.recv() => {}
+    }
+}

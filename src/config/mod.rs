@@ -1,0 +1,186 @@
+//! Configuration: the TOML file (`raw`) and the validated settings built from
+//! it (`Settings`), two stages as in ripgrep. Validation collects every
+//! problem in one pass, each with its key path and line, so an engineer fixes
+//! a file in one round trip instead of one error at a time.
+
+mod raw;
+mod validate;
+
+use std::path::PathBuf;
+
+use crate::physics::material::Material;
+use crate::physics::surface::Orientation;
+use crate::physics::thermocouple::TcType;
+use crate::physics::tolerance::ToleranceClass;
+
+pub use validate::{parse, ConfigError, Problem};
+
+/// Longest name of a zone, channel, source or material (they appear in MQTT
+/// topics and fixed-capacity payloads).
+pub const MAX_NAME: usize = 48;
+/// Most probes in one zone (fixed capacity of the zone cycle).
+pub const MAX_PROBES: usize = 16;
+/// Most layers in one wall.
+pub const MAX_LAYERS: usize = 8;
+/// Most channels in one configuration.
+pub const MAX_CHANNELS: usize = 256;
+
+/// A validated name: 1..=48 characters of `A-Z a-z 0-9 _ -` (safe in an
+/// MQTT topic level and a file name).
+pub type Name = heapless::String<MAX_NAME>;
+
+/// The whole validated configuration. Cross-references are indices into the
+/// vectors here (a channel's `source`, a probe's `channel`, a layer's
+/// `material`); validation guarantees they resolve.
+#[derive(Debug, Clone)]
+pub struct Settings {
+    pub site: Site,
+    /// Where persistent state lives (`state_dir`, else `$STATE_DIRECTORY`,
+    /// else `/var/lib/wallflux`).
+    pub state_dir: PathBuf,
+    pub mqtt: MqttSettings,
+    pub log: LogSettings,
+    pub sources: Vec<Source>,
+    pub channels: Vec<Channel>,
+    pub materials: Vec<NamedMaterial>,
+    pub zones: Vec<Zone>,
+}
+
+#[derive(Debug, Clone)]
+pub struct Site {
+    pub plant: Name,
+    pub kiln: Name,
+}
+
+#[derive(Debug, Clone)]
+pub struct MqttSettings {
+    pub host: String,
+    pub port: u16,
+    /// Fixed, so that the broker keeps our persistent session.
+    pub client_id: String,
+    pub topic_root: String,
+    pub keep_alive_s: u64,
+    /// Bound of the queue between the engine and the MQTT task.
+    pub queue_capacity: usize,
+}
+
+#[derive(Debug, Clone)]
+pub struct LogSettings {
+    /// One info line per zone every this many intervals.
+    pub summary_every: u32,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum SourceKind {
+    /// Line protocol v1 over a serial port.
+    Line,
+}
+
+#[derive(Debug, Clone)]
+pub struct Source {
+    pub name: Name,
+    pub kind: SourceKind,
+    /// Serial device path, e.g. `/dev/serial/by-id/...`.
+    pub port: String,
+    pub baud: u32,
+    /// Fixed cold-junction temperature for millivolt channels when a frame
+    /// carries no `cj=`.
+    pub cj_c: Option<f64>,
+    /// No valid frame for this long: the source is reported silent.
+    pub silence_s: f64,
+}
+
+/// What a channel's values are.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Signal {
+    /// Linearised °C from the source.
+    Celsius,
+    /// Raw thermocouple EMF in mV; needs a cold-junction temperature.
+    Millivolts,
+}
+
+#[derive(Debug, Clone)]
+pub struct Channel {
+    pub name: Name,
+    /// Index into `Settings::sources`.
+    pub source: usize,
+    /// Input number on the source, 1..=64.
+    pub input: u8,
+    pub tc_type: TcType,
+    pub signal: Signal,
+    pub tolerance: ToleranceClass,
+    /// A measured standard uncertainty, °C, used instead of the class.
+    pub uncertainty_c: Option<f64>,
+}
+
+#[derive(Debug, Clone)]
+pub struct NamedMaterial {
+    pub name: Name,
+    pub material: Material,
+}
+
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Model {
+    /// One homogeneous layer; weighted quadratic fit of T(x).
+    Quadratic,
+}
+
+impl Model {
+    pub fn name(self) -> &'static str {
+        match self {
+            Model::Quadratic => "quadratic",
+        }
+    }
+}
+
+#[derive(Debug, Clone, Copy)]
+pub struct ZoneLayer {
+    /// Index into `Settings::materials`.
+    pub material: usize,
+    pub thickness_m: f64,
+}
+
+#[derive(Debug, Clone, Copy)]
+pub struct Probe {
+    /// Index into `Settings::channels`.
+    pub channel: usize,
+    /// Depth from the hot face, m.
+    pub depth_m: f64,
+}
+
+#[derive(Debug, Clone)]
+pub struct Zone {
+    pub name: Name,
+    pub area_m2: f64,
+    pub model: Model,
+    pub interval_s: f64,
+    pub orientation: Orientation,
+    pub height_m: f64,
+    pub emissivity: f64,
+    pub ambient_c: f64,
+    /// Window of the measured-rate regression, s.
+    pub rate_window_s: f64,
+    pub layers: Vec<ZoneLayer>,
+    pub probes: Vec<Probe>,
+}
+
+impl Zone {
+    /// Total wall thickness L, m.
+    pub fn thickness_m(&self) -> f64 {
+        self.layers.iter().map(|l| l.thickness_m).sum()
+    }
+}
+
+impl Settings {
+    /// MQTT topic root: `{topic_root}/{plant}/{kiln}`.
+    pub fn topic_root(&self) -> String {
+        format!("{}/{}/{}", self.mqtt.topic_root, self.site.plant, self.site.kiln)
+    }
+
+    /// The channel index fed by `input` of `source`, if any.
+    pub fn channel_for(&self, source: usize, input: u8) -> Option<usize> {
+        self.channels
+            .iter()
+            .position(|c| c.source == source && c.input == input)
+    }
+}

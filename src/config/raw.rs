@@ -1,0 +1,123 @@
+//! The configuration file as written: serde structs that mirror the TOML
+//! one to one, unknown keys rejected. Values that validation checks carry
+//! their position in the file (`Spanned`) so every problem can name its line.
+//! Nothing here is checked beyond its TOML type; see `super::validate`.
+
+use serde::Deserialize;
+use toml::Spanned;
+
+type S<T> = Spanned<T>;
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawConfig {
+    pub state_dir: Option<S<String>>,
+    pub site: S<RawSite>,
+    pub mqtt: S<RawMqtt>,
+    #[serde(default)]
+    pub log: Option<RawLog>,
+    #[serde(default)]
+    pub source: Vec<S<RawSource>>,
+    #[serde(default)]
+    pub channel: Vec<S<RawChannel>>,
+    #[serde(default)]
+    pub material: Vec<S<RawMaterial>>,
+    #[serde(default)]
+    pub zone: Vec<S<RawZone>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawSite {
+    pub plant: S<String>,
+    pub kiln: S<String>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawMqtt {
+    pub host: S<String>,
+    pub port: Option<S<i64>>,
+    pub client_id: Option<S<String>>,
+    pub topic_root: Option<S<String>>,
+    pub keep_alive_s: Option<S<f64>>,
+    pub queue_capacity: Option<S<i64>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawLog {
+    pub summary_every: Option<S<i64>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawSource {
+    pub name: S<String>,
+    pub kind: S<String>,
+    pub port: S<String>,
+    pub baud: Option<S<i64>>,
+    pub cj_c: Option<S<f64>>,
+    pub silence_s: Option<S<f64>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawChannel {
+    pub name: S<String>,
+    pub source: S<String>,
+    pub input: S<i64>,
+    #[serde(rename = "type")]
+    pub tc_type: S<String>,
+    pub signal: Option<S<String>>,
+    pub tolerance: Option<S<String>>,
+    pub uncertainty_c: Option<S<f64>>,
+}
+
+/// A number, or a table of `[t_c, value]` points.
+#[derive(Debug, Deserialize)]
+#[serde(untagged)]
+pub enum RawProperty {
+    Constant(f64),
+    Table(Vec<[f64; 2]>),
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawMaterial {
+    pub name: S<String>,
+    pub conductivity_w_mk: S<RawProperty>,
+    pub density_kg_m3: S<f64>,
+    pub specific_heat_j_kgk: S<RawProperty>,
+    pub max_service_c: Option<S<f64>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawLayer {
+    pub material: S<String>,
+    pub thickness_mm: S<f64>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawProbe {
+    pub channel: S<String>,
+    pub depth_mm: S<f64>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawZone {
+    pub name: S<String>,
+    pub area_m2: S<f64>,
+    pub model: S<String>,
+    pub interval_s: S<f64>,
+    pub orientation: Option<S<String>>,
+    pub height_m: Option<S<f64>>,
+    pub emissivity: Option<S<f64>>,
+    pub ambient_c: Option<S<f64>>,
+    pub rate_window_s: Option<S<f64>>,
+    pub layers: S<Vec<S<RawLayer>>>,
+    pub probes: S<Vec<S<RawProbe>>>,
+}

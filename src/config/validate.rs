@@ -1,0 +1,688 @@
+//! Stage two: from the raw file to `Settings`, checking everything and
+//! collecting every problem with its key path and line.
+
+use std::fmt;
+use std::ops::Range;
+use std::path::PathBuf;
+
+use toml::Spanned;
+
+use super::raw::*;
+use super::*;
+use crate::physics::material::{Material, Property};
+
+/// One problem in a configuration file.
+#[derive(Debug, Clone, PartialEq)]
+pub struct Problem {
+    /// 1-based line, when known.
+    pub line: Option<usize>,
+    /// Key path, e.g. `zone[1].probes[0].depth_mm`.
+    pub path: String,
+    pub message: String,
+}
+
+/// A configuration that cannot be used, with every problem found.
+#[derive(Debug, Clone, PartialEq)]
+pub struct ConfigError {
+    pub file: String,
+    pub problems: Vec<Problem>,
+}
+
+impl fmt::Display for ConfigError {
+    fn fmt(&self, f: &mut fmt::Formatter<'_>) -> fmt::Result {
+        let n = self.problems.len();
+        write!(
+            f,
+            "{}: {n} problem{} in the configuration",
+            self.file,
+            if n == 1 { "" } else { "s" }
+        )?;
+        for p in &self.problems {
+            write!(f, "\n  {}", self.file)?;
+            if let Some(line) = p.line {
+                write!(f, ":{line}")?;
+            }
+            if p.path.is_empty() {
+                write!(f, ": {}", p.message)?;
+            } else {
+                write!(f, ": {}: {}", p.path, p.message)?;
+            }
+        }
+        Ok(())
+    }
+}
+
+impl std::error::Error for ConfigError {}
+
+/// Parses and validates a configuration. `file` labels messages;
+/// `state_directory_env` is `$STATE_DIRECTORY` (systemd), passed in so this
+/// stays free of environment reads.
+pub fn parse(
+    text: &str,
+    file: &str,
+    state_directory_env: Option<&str>,
+) -> Result<Settings, ConfigError> {
+    let raw: RawConfig = match toml::from_str(text) {
+        Ok(r) => r,
+        Err(e) => {
+            let line = e.span().map(|s| line_of(text, s.start));
+            let message = e.message().trim().to_string();
+            return Err(ConfigError {
+                file: file.to_string(),
+                problems: vec![Problem {
+                    line,
+                    path: String::new(),
+                    message,
+                }],
+            });
+        }
+    };
+    let mut v = Validator {
+        text,
+        problems: Vec::new(),
+    };
+    let settings = v.settings(raw, state_directory_env);
+    if v.problems.is_empty() {
+        if let Some(s) = settings {
+            return Ok(s);
+        }
+    }
+    Err(ConfigError {
+        file: file.to_string(),
+        problems: v.problems,
+    })
+}
+
+fn line_of(text: &str, byte: usize) -> usize {
+    let end = byte.min(text.len());
+    text.as_bytes()[..end].iter().filter(|&&b| b == b'\n').count() + 1
+}
+
+struct Validator<'t> {
+    text: &'t str,
+    problems: Vec<Problem>,
+}
+
+impl Validator<'_> {
+    fn problem(&mut self, span: Range<usize>, path: impl Into<String>, message: impl Into<String>) {
+        self.problems.push(Problem {
+            line: Some(line_of(self.text, span.start)),
+            path: path.into(),
+            message: message.into(),
+        });
+    }
+
+    fn name(&mut self, s: &Spanned<String>, path: &str) -> Name {
+        let v = s.get_ref();
+        let ok_chars = v
+            .chars()
+            .all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-');
+        if v.is_empty() || v.len() > MAX_NAME || !ok_chars {
+            self.problem(
+                s.span(),
+                path,
+                format!(
+                    "{v:?} is not a valid name: use 1 to {MAX_NAME} characters of A-Z a-z 0-9 _ - (names appear in MQTT topics)"
+                ),
+            );
+            return Name::new();
+        }
+        let mut n = Name::new();
+        let _ = n.push_str(v);
+        n
+    }
+
+    fn positive(&mut self, s: &Spanned<f64>, path: &str, unit: &str) -> f64 {
+        let v = *s.get_ref();
+        if !(v.is_finite() && v > 0.0) {
+            self.problem(s.span(), path, format!("must be a positive number of {unit}, got {v}"));
+        }
+        v
+    }
+
+    fn finite(&mut self, s: &Spanned<f64>, path: &str) -> f64 {
+        let v = *s.get_ref();
+        if !v.is_finite() {
+            self.problem(s.span(), path, format!("must be a finite number, got {v}"));
+        }
+        v
+    }
+
+    fn unique(&mut self, names: &[(Name, Range<usize>)], table: &str) {
+        for (i, (n, span)) in names.iter().enumerate() {
+            if n.is_empty() {
+                continue;
+            }
+            if let Some(first) = names[..i].iter().position(|(m, _)| m == n) {
+                self.problem(
+                    span.clone(),
+                    format!("{table}[{i}].name"),
+                    format!("{n:?} is already the name of {table}[{first}]"),
+                );
+            }
+        }
+    }
+
+    fn settings(&mut self, raw: RawConfig, state_env: Option<&str>) -> Option<Settings> {
+        let site = {
+            let s = raw.site.get_ref();
+            Site {
+                plant: self.name(&s.plant, "site.plant"),
+                kiln: self.name(&s.kiln, "site.kiln"),
+            }
+        };
+        let state_dir = match &raw.state_dir {
+            Some(d) if d.get_ref().is_empty() => {
+                self.problem(d.span(), "state_dir", "must not be empty");
+                PathBuf::new()
+            }
+            Some(d) => PathBuf::from(d.get_ref()),
+            None => match state_env.and_then(|e| e.split(':').find(|p| !p.is_empty())) {
+                Some(p) => PathBuf::from(p),
+                None => PathBuf::from("/var/lib/wallflux"),
+            },
+        };
+        let mqtt = self.mqtt(raw.mqtt.get_ref(), &site);
+        let log = LogSettings {
+            summary_every: match raw.log.as_ref().and_then(|l| l.summary_every.as_ref()) {
+                Some(s) if (1..=1_000_000).contains(s.get_ref()) => *s.get_ref() as u32,
+                Some(s) => {
+                    self.problem(s.span(), "log.summary_every", "must be 1 to 1000000 intervals");
+                    1
+                }
+                None => 6,
+            },
+        };
+
+        let sources: Vec<Source> = raw
+            .source
+            .iter()
+            .enumerate()
+            .map(|(i, s)| self.source(i, s.get_ref()))
+            .collect();
+        let names: Vec<_> = sources
+            .iter()
+            .zip(&raw.source)
+            .map(|(s, r)| (s.name.clone(), r.get_ref().name.span()))
+            .collect();
+        self.unique(&names, "source");
+        if sources.is_empty() {
+            self.problems.push(Problem {
+                line: None,
+                path: "source".into(),
+                message: "at least one [[source]] is needed".into(),
+            });
+        }
+
+        if raw.channel.len() > MAX_CHANNELS {
+            self.problem(
+                raw.channel[MAX_CHANNELS].span(),
+                "channel",
+                format!("at most {MAX_CHANNELS} channels are supported"),
+            );
+        }
+        let channels: Vec<Channel> = raw
+            .channel
+            .iter()
+            .enumerate()
+            .map(|(i, c)| self.channel(i, c.get_ref(), &sources))
+            .collect();
+        let names: Vec<_> = channels
+            .iter()
+            .zip(&raw.channel)
+            .map(|(c, r)| (c.name.clone(), r.get_ref().name.span()))
+            .collect();
+        self.unique(&names, "channel");
+        for (i, c) in channels.iter().enumerate() {
+            if let Some(first) = channels[..i]
+                .iter()
+                .position(|d| d.source == c.source && d.input == c.input && c.source != usize::MAX)
+            {
+                let r = raw.channel[i].get_ref();
+                self.problem(
+                    r.input.span(),
+                    format!("channel[{i}].input"),
+                    format!(
+                        "input {} of source {:?} is already read by channel[{first}] ({:?})",
+                        c.input,
+                        r.source.get_ref(),
+                        channels[first].name
+                    ),
+                );
+            }
+        }
+
+        let materials: Vec<NamedMaterial> = raw
+            .material
+            .iter()
+            .enumerate()
+            .map(|(i, m)| self.material(i, m.get_ref()))
+            .collect();
+        let names: Vec<_> = materials
+            .iter()
+            .zip(&raw.material)
+            .map(|(m, r)| (m.name.clone(), r.get_ref().name.span()))
+            .collect();
+        self.unique(&names, "material");
+
+        let zones: Vec<Zone> = raw
+            .zone
+            .iter()
+            .enumerate()
+            .map(|(i, z)| self.zone(i, z, &channels, &materials))
+            .collect();
+        let names: Vec<_> = zones
+            .iter()
+            .zip(&raw.zone)
+            .map(|(z, r)| (z.name.clone(), r.get_ref().name.span()))
+            .collect();
+        self.unique(&names, "zone");
+        if zones.is_empty() {
+            self.problems.push(Problem {
+                line: None,
+                path: "zone".into(),
+                message: "at least one [[zone]] is needed".into(),
+            });
+        }
+
+        Some(Settings {
+            site,
+            state_dir,
+            mqtt,
+            log,
+            sources,
+            channels,
+            materials,
+            zones,
+        })
+    }
+
+    fn mqtt(&mut self, m: &RawMqtt, site: &Site) -> MqttSettings {
+        let host = m.host.get_ref().trim().to_string();
+        if host.is_empty() {
+            self.problem(m.host.span(), "mqtt.host", "must not be empty");
+        }
+        let port = match &m.port {
+            Some(p) if (1..=65535).contains(p.get_ref()) => *p.get_ref() as u16,
+            Some(p) => {
+                self.problem(p.span(), "mqtt.port", format!("must be 1 to 65535, got {}", p.get_ref()));
+                1883
+            }
+            None => 1883,
+        };
+        let client_id = match &m.client_id {
+            Some(c) => {
+                let v = c.get_ref();
+                if v.is_empty() || v.len() > 64 || !v.chars().all(|ch| ch.is_ascii_graphic()) {
+                    self.problem(
+                        c.span(),
+                        "mqtt.client_id",
+                        "must be 1 to 64 printable characters without spaces (a fixed id keeps the persistent session)",
+                    );
+                }
+                v.clone()
+            }
+            None => format!("wallflux-{}-{}", site.plant, site.kiln),
+        };
+        let topic_root = match &m.topic_root {
+            Some(t) => {
+                let v = t.get_ref();
+                if v.is_empty()
+                    || v.starts_with('/')
+                    || v.ends_with('/')
+                    || v.contains(['+', '#', '\0'])
+                    || v.contains("//")
+                {
+                    self.problem(
+                        t.span(),
+                        "mqtt.topic_root",
+                        format!("{v:?} is not a valid topic prefix (no wildcards, no leading, trailing or double '/')"),
+                    );
+                }
+                v.clone()
+            }
+            None => "wallflux".to_string(),
+        };
+        let keep_alive_s = match &m.keep_alive_s {
+            Some(k) if (1.0..=65535.0).contains(k.get_ref()) => *k.get_ref() as u64,
+            Some(k) => {
+                self.problem(k.span(), "mqtt.keep_alive_s", "must be 1 to 65535 s");
+                30
+            }
+            None => 30,
+        };
+        let queue_capacity = match &m.queue_capacity {
+            Some(q) if (8..=100_000).contains(q.get_ref()) => *q.get_ref() as usize,
+            Some(q) => {
+                self.problem(q.span(), "mqtt.queue_capacity", "must be 8 to 100000 messages");
+                256
+            }
+            None => 256,
+        };
+        MqttSettings {
+            host,
+            port,
+            client_id,
+            topic_root,
+            keep_alive_s,
+            queue_capacity,
+        }
+    }
+
+    fn source(&mut self, i: usize, s: &RawSource) -> Source {
+        let p = |k: &str| format!("source[{i}].{k}");
+        let name = self.name(&s.name, &p("name"));
+        let kind = match s.kind.get_ref().as_str() {
+            "line" => SourceKind::Line,
+            "modbus-rtu" => {
+                self.problem(
+                    s.kind.span(),
+                    p("kind"),
+                    "\"modbus-rtu\" is not supported by this version yet; use \"line\"",
+                );
+                SourceKind::Line
+            }
+            other => {
+                self.problem(s.kind.span(), p("kind"), format!("{other:?} is not a source kind; use \"line\""));
+                SourceKind::Line
+            }
+        };
+        if s.port.get_ref().is_empty() {
+            self.problem(s.port.span(), p("port"), "must name a serial device, e.g. /dev/ttyUSB0");
+        }
+        let baud = match &s.baud {
+            Some(b) if (300..=4_000_000).contains(b.get_ref()) => *b.get_ref() as u32,
+            Some(b) => {
+                self.problem(b.span(), p("baud"), format!("{} is not a usable baud rate (300 to 4000000)", b.get_ref()));
+                9600
+            }
+            None => 9600,
+        };
+        let cj_c = s.cj_c.as_ref().map(|c| {
+            let v = self.finite(c, &p("cj_c"));
+            if !(-50.0..=150.0).contains(&v) {
+                self.problem(c.span(), p("cj_c"), format!("{v} °C is not a plausible terminal temperature (-50 to 150 °C)"));
+            }
+            v
+        });
+        let silence_s = s
+            .silence_s
+            .as_ref()
+            .map_or(10.0, |v| self.positive(v, &p("silence_s"), "seconds"));
+        Source {
+            name,
+            kind,
+            port: s.port.get_ref().clone(),
+            baud,
+            cj_c,
+            silence_s,
+        }
+    }
+
+    fn channel(&mut self, i: usize, c: &RawChannel, sources: &[Source]) -> Channel {
+        let p = |k: &str| format!("channel[{i}].{k}");
+        let name = self.name(&c.name, &p("name"));
+        let source = match sources.iter().position(|s| s.name.as_str() == c.source.get_ref()) {
+            Some(s) => s,
+            None => {
+                self.problem(
+                    c.source.span(),
+                    p("source"),
+                    format!("no [[source]] is named {:?}", c.source.get_ref()),
+                );
+                usize::MAX
+            }
+        };
+        let input = match *c.input.get_ref() {
+            n @ 1..=64 => n as u8,
+            n => {
+                self.problem(c.input.span(), p("input"), format!("must be 1 to 64, got {n}"));
+                0
+            }
+        };
+        let tc_type = match TcType::from_letter(c.tc_type.get_ref()) {
+            Some(t) if c.tc_type.get_ref().len() == 1 => t,
+            _ => {
+                self.problem(
+                    c.tc_type.span(),
+                    p("type"),
+                    format!("{:?} is not a thermocouple type; use one of B E J K N R S T", c.tc_type.get_ref()),
+                );
+                TcType::K
+            }
+        };
+        let signal = match c.signal.as_ref().map(|s| s.get_ref().as_str()) {
+            None | Some("celsius") => Signal::Celsius,
+            Some("millivolts") => Signal::Millivolts,
+            Some(other) => {
+                let span = c.signal.as_ref().map(|s| s.span()).unwrap_or_default();
+                self.problem(span, p("signal"), format!("{other:?} is not a signal; use \"celsius\" or \"millivolts\""));
+                Signal::Celsius
+            }
+        };
+        let tolerance = match &c.tolerance {
+            None => ToleranceClass::Iec2,
+            Some(t) => match ToleranceClass::from_name(t.get_ref()) {
+                Some(class) => class,
+                None => {
+                    self.problem(
+                        t.span(),
+                        p("tolerance"),
+                        format!(
+                            "{:?} is not a tolerance class; use iec-class-1, iec-class-2, iec-class-3, astm-standard or astm-special",
+                            t.get_ref()
+                        ),
+                    );
+                    ToleranceClass::Iec2
+                }
+            },
+        };
+        let uncertainty_c = c
+            .uncertainty_c
+            .as_ref()
+            .map(|u| self.positive(u, &p("uncertainty_c"), "°C"));
+        Channel {
+            name,
+            source,
+            input,
+            tc_type,
+            signal,
+            tolerance,
+            uncertainty_c,
+        }
+    }
+
+    fn property(&mut self, s: &Spanned<RawProperty>, path: &str, what: &'static str) -> Property {
+        let result = match s.get_ref() {
+            RawProperty::Constant(v) => Property::constant(what, *v),
+            RawProperty::Table(points) => {
+                let pts: Vec<(f64, f64)> = points.iter().map(|p| (p[0], p[1])).collect();
+                Property::table(what, &pts)
+            }
+        };
+        match result {
+            Ok(p) => p,
+            Err(e) => {
+                self.problem(s.span(), path, e.to_string());
+                Property::Constant(1.0)
+            }
+        }
+    }
+
+    fn material(&mut self, i: usize, m: &RawMaterial) -> NamedMaterial {
+        let p = |k: &str| format!("material[{i}].{k}");
+        let name = self.name(&m.name, &p("name"));
+        let conductivity_w_mk = self.property(&m.conductivity_w_mk, &p("conductivity_w_mk"), "conductivity (W/m·K)");
+        let specific_heat_j_kgk = self.property(&m.specific_heat_j_kgk, &p("specific_heat_j_kgk"), "specific heat (J/kg·K)");
+        let density_kg_m3 = self.positive(&m.density_kg_m3, &p("density_kg_m3"), "kg/m³");
+        let max_service_c = m.max_service_c.as_ref().map(|v| self.finite(v, &p("max_service_c")));
+        NamedMaterial {
+            name,
+            material: Material {
+                conductivity_w_mk,
+                density_kg_m3,
+                specific_heat_j_kgk,
+                max_service_c,
+            },
+        }
+    }
+
+    fn zone(
+        &mut self,
+        i: usize,
+        sz: &Spanned<RawZone>,
+        channels: &[Channel],
+        materials: &[NamedMaterial],
+    ) -> Zone {
+        let z = sz.get_ref();
+        let p = |k: &str| format!("zone[{i}].{k}");
+        let name = self.name(&z.name, &p("name"));
+        let area_m2 = self.positive(&z.area_m2, &p("area_m2"), "m²");
+        let interval_s = self.positive(&z.interval_s, &p("interval_s"), "seconds");
+        let model = match z.model.get_ref().as_str() {
+            "quadratic" => Model::Quadratic,
+            m @ ("layered" | "transient") => {
+                self.problem(
+                    z.model.span(),
+                    p("model"),
+                    format!("model {m:?} is not available in this version yet; use \"quadratic\" (one layer)"),
+                );
+                Model::Quadratic
+            }
+            other => {
+                self.problem(z.model.span(), p("model"), format!("{other:?} is not a model; use \"quadratic\""));
+                Model::Quadratic
+            }
+        };
+        let orientation = match z.orientation.as_ref().map(|o| o.get_ref().as_str()) {
+            None | Some("vertical") => Orientation::Vertical,
+            Some("roof") => Orientation::Roof,
+            Some("floor") => Orientation::Floor,
+            Some(other) => {
+                let span = z.orientation.as_ref().map(|o| o.span()).unwrap_or_default();
+                self.problem(span, p("orientation"), format!("{other:?} is not an orientation; use vertical, roof or floor"));
+                Orientation::Vertical
+            }
+        };
+        let height_m = z
+            .height_m
+            .as_ref()
+            .map_or(2.0, |h| self.positive(h, &p("height_m"), "m"));
+        let emissivity = match &z.emissivity {
+            Some(e) => {
+                let v = *e.get_ref();
+                if !(0.0..=1.0).contains(&v) {
+                    self.problem(e.span(), p("emissivity"), format!("must be between 0 and 1, got {v}"));
+                }
+                v
+            }
+            None => 0.8,
+        };
+        let ambient_c = z.ambient_c.as_ref().map_or(25.0, |a| self.finite(a, &p("ambient_c")));
+        let rate_window_s = z
+            .rate_window_s
+            .as_ref()
+            .map_or(600.0_f64.max(3.0 * interval_s), |w| self.positive(w, &p("rate_window_s"), "seconds"));
+
+        let mut layers = Vec::new();
+        if z.layers.get_ref().is_empty() {
+            self.problem(z.layers.span(), p("layers"), "a wall needs at least one layer");
+        }
+        if z.layers.get_ref().len() > MAX_LAYERS {
+            self.problem(z.layers.span(), p("layers"), format!("at most {MAX_LAYERS} layers"));
+        }
+        for (j, l) in z.layers.get_ref().iter().enumerate() {
+            let l = l.get_ref();
+            let lp = format!("zone[{i}].layers[{j}]");
+            let material = match materials.iter().position(|m| m.name.as_str() == l.material.get_ref()) {
+                Some(m) => m,
+                None => {
+                    self.problem(
+                        l.material.span(),
+                        format!("{lp}.material"),
+                        format!("no [[material]] is named {:?}", l.material.get_ref()),
+                    );
+                    usize::MAX
+                }
+            };
+            let thickness_mm = self.positive(&l.thickness_mm, &format!("{lp}.thickness_mm"), "mm");
+            layers.push(ZoneLayer {
+                material,
+                thickness_m: thickness_mm / 1000.0,
+            });
+        }
+        if model == Model::Quadratic && layers.len() > 1 {
+            self.problem(
+                z.model.span(),
+                p("model"),
+                format!(
+                    "\"quadratic\" describes one homogeneous layer, but this wall has {} layers: a single polynomial across layers of different conductivity gives wrong fluxes",
+                    layers.len()
+                ),
+            );
+        }
+        let thickness_m: f64 = layers.iter().map(|l| l.thickness_m).sum();
+
+        let mut probes = Vec::new();
+        if z.probes.get_ref().len() > MAX_PROBES {
+            self.problem(z.probes.span(), p("probes"), format!("at most {MAX_PROBES} probes per zone"));
+        }
+        if z.probes.get_ref().len() < 2 {
+            self.problem(
+                z.probes.span(),
+                p("probes"),
+                "a zone needs at least two probes at different depths to fit a profile",
+            );
+        }
+        for (j, pr) in z.probes.get_ref().iter().enumerate() {
+            let pr = pr.get_ref();
+            let pp = format!("zone[{i}].probes[{j}]");
+            let channel = match channels.iter().position(|c| c.name.as_str() == pr.channel.get_ref()) {
+                Some(c) => c,
+                None => {
+                    self.problem(
+                        pr.channel.span(),
+                        format!("{pp}.channel"),
+                        format!("no [[channel]] is named {:?}", pr.channel.get_ref()),
+                    );
+                    usize::MAX
+                }
+            };
+            if let Some(first) = probes.iter().position(|q: &Probe| q.channel == channel && channel != usize::MAX) {
+                self.problem(
+                    pr.channel.span(),
+                    format!("{pp}.channel"),
+                    format!("channel {:?} is already probes[{first}] of this zone", pr.channel.get_ref()),
+                );
+            }
+            let depth_mm = *pr.depth_mm.get_ref();
+            if !depth_mm.is_finite() || depth_mm < 0.0 || (thickness_m > 0.0 && depth_mm > thickness_m * 1000.0 + 1e-9) {
+                self.problem(
+                    pr.depth_mm.span(),
+                    format!("{pp}.depth_mm"),
+                    format!(
+                        "{depth_mm} mm is outside the wall (0 mm at the hot face to {:.1} mm at the shell)",
+                        thickness_m * 1000.0
+                    ),
+                );
+            }
+            probes.push(Probe {
+                channel,
+                depth_m: depth_mm / 1000.0,
+            });
+        }
+        Zone {
+            name,
+            area_m2,
+            model,
+            interval_s,
+            orientation,
+            height_m,
+            emissivity,
+            ambient_c,
+            rate_window_s,
+            layers,
+            probes,
+        }
+    }
+}

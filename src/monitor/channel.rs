@@ -1,0 +1,171 @@
+//! One thermocouple channel: from a source value to a temperature with a
+//! standard uncertainty, and the channel's health.
+
+use serde::Serialize;
+
+use crate::acquire::line::{Unit, Value};
+use crate::config::{Channel, Name, Signal};
+use crate::physics::thermocouple::{self, TcError};
+use crate::physics::tolerance;
+use crate::time::Timestamp;
+
+/// Health of a channel, as published on its topic.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Health {
+    /// A valid, fresh reading.
+    Ok,
+    /// The source reports an open thermocouple.
+    Open,
+    /// A value outside the thermocouple type's range (reversed polarity,
+    /// a short, a wrong type configured).
+    OutOfRange,
+    /// A value the channel cannot use (millivolts with no cold junction,
+    /// a unit that does not match the configured signal).
+    Invalid,
+    /// No reading for longer than the staleness limit.
+    Stale,
+    /// Nothing received yet since start.
+    NoData,
+}
+
+impl Health {
+    pub fn name(self) -> &'static str {
+        match self {
+            Health::Ok => "ok",
+            Health::Open => "open",
+            Health::OutOfRange => "out_of_range",
+            Health::Invalid => "invalid",
+            Health::Stale => "stale",
+            Health::NoData => "no_data",
+        }
+    }
+}
+
+/// A converted reading.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Reading {
+    pub time: Timestamp,
+    pub celsius: f64,
+    /// Standard uncertainty, °C (the tolerance class / √3, or the measured one).
+    pub sigma_c: f64,
+}
+
+/// What a channel knows now.
+#[derive(Debug, Clone)]
+pub struct ChannelState {
+    /// The latest valid reading (kept when later values are faults, so that
+    /// the age tells how stale it is).
+    pub latest: Option<Reading>,
+    /// Health from the latest value (before staleness is applied).
+    pub value_health: Health,
+    pub reason: &'static str,
+    /// Time of the latest value of any kind.
+    pub last_seen: Option<Timestamp>,
+    /// Health as last announced (for change detection).
+    pub announced: Health,
+}
+
+impl Default for ChannelState {
+    fn default() -> Self {
+        ChannelState {
+            latest: None,
+            value_health: Health::NoData,
+            reason: "nothing received yet",
+            last_seen: None,
+            announced: Health::NoData,
+        }
+    }
+}
+
+impl ChannelState {
+    /// Health at `now` given the staleness limit.
+    pub fn health_at(&self, now: Timestamp, stale_after_s: f64) -> (Health, &'static str) {
+        match self.last_seen {
+            None => (Health::NoData, "nothing received yet"),
+            Some(t) if now.since(t) > stale_after_s => (Health::Stale, "no reading within the staleness limit"),
+            Some(_) => (self.value_health, self.reason),
+        }
+    }
+
+    /// The latest reading if valid and no older than `max_age_s` at `now`.
+    pub fn fresh(&self, now: Timestamp, max_age_s: f64) -> Option<Reading> {
+        if self.value_health != Health::Ok {
+            return None;
+        }
+        self.latest.filter(|r| now.since(r.time) <= max_age_s)
+    }
+}
+
+/// Converts one source value for `channel`: °C passes through (range
+/// checked); mV is cold-junction compensated the ITS-90 way (EMF of the
+/// junction added before inversion). `cj_c` is the frame's cold junction,
+/// else the source's fixed one.
+pub fn convert(channel: &Channel, value: Value, cj_c: Option<f64>) -> Result<f64, (Health, &'static str)> {
+    let (v, unit) = match value {
+        Value::Open => return Err((Health::Open, "the source reports an open thermocouple")),
+        Value::Reading { value, unit } => (value, unit),
+    };
+    match (channel.signal, unit) {
+        (Signal::Celsius, Unit::Celsius) => {
+            // A linearised value is still checked against the type's range:
+            // beyond it the source extrapolated or the wire is faulty.
+            match thermocouple::emf_mv(channel.tc_type, v) {
+                Ok(_) => Ok(v),
+                Err(_) => Err((Health::OutOfRange, "temperature outside the thermocouple type's range")),
+            }
+        }
+        (Signal::Millivolts, Unit::Millivolts) => {
+            let Some(cj) = cj_c else {
+                return Err((Health::Invalid, "millivolts without a cold-junction temperature"));
+            };
+            match thermocouple::compensated_c(channel.tc_type, v, cj) {
+                Ok(t) => Ok(t),
+                Err(TcError::TemperatureOutOfRange { .. }) => {
+                    Err((Health::OutOfRange, "cold junction outside the thermocouple type's range"))
+                }
+                Err(_) => Err((
+                    Health::OutOfRange,
+                    "EMF outside the thermocouple type's range (reversed polarity, short or wrong type?)",
+                )),
+            }
+        }
+        (Signal::Celsius, Unit::Millivolts) => {
+            Err((Health::Invalid, "millivolts received on a channel configured for celsius"))
+        }
+        (Signal::Millivolts, Unit::Celsius) => {
+            Err((Health::Invalid, "celsius received on a channel configured for millivolts"))
+        }
+    }
+}
+
+/// Standard uncertainty of a reading at `t_c`: the measured one if
+/// configured, else the tolerance class as a rectangular bound / √3
+/// (GUM 4.3.7), else (outside the class's stated range) the nearest band.
+pub fn sigma_c(channel: &Channel, t_c: f64) -> f64 {
+    if let Some(u) = channel.uncertainty_c {
+        return u;
+    }
+    tolerance::standard_uncertainty_c(channel.tolerance, channel.tc_type, t_c)
+        // Outside the class's range: a conservative 1 % of |t|, at least 2.5 °C
+        // (common practice: wider than every class's band), as a bound.
+        .unwrap_or_else(|| (0.01 * t_c.abs()).max(2.5) / 3f64.sqrt())
+}
+
+/// A channel's state as published on `{root}/channel/{channel}`.
+#[derive(Debug, Clone, Serialize)]
+pub struct ChannelReport {
+    pub schema: &'static str,
+    pub channel: Name,
+    pub time: Timestamp,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub celsius: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub sigma_c: Option<f64>,
+    pub status: Health,
+    pub reason: &'static str,
+    pub source: Name,
+    pub input: u8,
+    #[serde(rename = "type")]
+    pub tc_type: char,
+}

@@ -1,0 +1,232 @@
+//! The monitor: per-channel and per-zone state, driven by readings and time.
+//!
+//! Sans-IO like the physics: readings go in through `handle_*`, results
+//! come out of `poll_*`, and every call takes `now`. The live daemon and
+//! `analyze` drive the same engine, so a replay reproduces the live numbers.
+
+pub mod channel;
+pub mod zone;
+
+use std::sync::Arc;
+
+use heapless::Deque;
+
+use crate::acquire::line::{Frame, Value};
+use crate::config::Settings;
+use crate::time::Timestamp;
+use channel::{ChannelReport, ChannelState, Health};
+use zone::{ZoneEngine, ZoneReport, STALE_INTERVALS};
+
+/// Something notable that the edges log and publish.
+#[derive(Debug, Clone, PartialEq)]
+pub enum Event {
+    /// A channel's health changed (logged once per change).
+    ChannelHealth {
+        channel: usize,
+        time: Timestamp,
+        from: Health,
+        to: Health,
+        reason: &'static str,
+    },
+    /// A frame's input has no configured channel (counted; logged once).
+    UnknownInput { source: usize, input: u8 },
+}
+
+/// Most events queued between two polls; beyond it the oldest are dropped
+/// and counted (they are log lines; channel state is still published).
+const EVENT_QUEUE: usize = 64;
+
+pub struct Monitor {
+    settings: Arc<Settings>,
+    channels: Vec<ChannelState>,
+    /// Staleness limit per channel: three intervals of the fastest zone
+    /// using it, else the source's silence limit.
+    stale_after_s: Vec<f64>,
+    /// Next time each channel's state is due for publication.
+    channel_due: Vec<Timestamp>,
+    channel_period_s: f64,
+    zones: Vec<ZoneEngine>,
+    events: Deque<Event, EVENT_QUEUE>,
+    unknown_inputs_seen: Vec<[bool; 65]>,
+    pub events_dropped: u64,
+    pub unknown_inputs: u64,
+}
+
+impl Monitor {
+    pub fn new(settings: Arc<Settings>, start: Timestamp) -> Self {
+        let n = settings.channels.len();
+        let mut stale_after_s: Vec<f64> = settings
+            .channels
+            .iter()
+            .map(|c| settings.sources[c.source].silence_s)
+            .collect();
+        for z in &settings.zones {
+            for p in &z.probes {
+                let limit = STALE_INTERVALS * z.interval_s;
+                if stale_after_s[p.channel] > limit {
+                    stale_after_s[p.channel] = limit;
+                }
+            }
+        }
+        let channel_period_s = settings
+            .zones
+            .iter()
+            .map(|z| z.interval_s)
+            .fold(f64::INFINITY, f64::min)
+            .min(60.0);
+        let zones = settings
+            .zones
+            .iter()
+            .enumerate()
+            .map(|(i, z)| ZoneEngine::new(i, z, start))
+            .collect();
+        Monitor {
+            channels: vec![ChannelState::default(); n],
+            stale_after_s,
+            channel_due: vec![start; n],
+            channel_period_s,
+            zones,
+            events: Deque::new(),
+            unknown_inputs_seen: vec![[false; 65]; settings.sources.len()],
+            events_dropped: 0,
+            unknown_inputs: 0,
+            settings,
+        }
+    }
+
+    pub fn settings(&self) -> &Settings {
+        &self.settings
+    }
+
+    fn push_event(&mut self, e: Event) {
+        if let Err(e) = self.events.push_back(e) {
+            self.events.pop_front();
+            self.events_dropped += 1;
+            let _ = self.events.push_back(e);
+        }
+    }
+
+    /// A line-protocol frame from source `source`, received at `now`.
+    pub fn handle_frame(&mut self, source: usize, frame: &Frame, now: Timestamp) {
+        let cj = frame.cj_c.or(self.settings.sources[source].cj_c);
+        for &(input, value) in &frame.values {
+            match self.settings.channel_for(source, input) {
+                Some(ch) => self.handle_value(ch, value, cj, now),
+                None => {
+                    self.unknown_inputs += 1;
+                    let seen = &mut self.unknown_inputs_seen[source][usize::from(input.min(64))];
+                    if !*seen {
+                        *seen = true;
+                        self.push_event(Event::UnknownInput { source, input });
+                    }
+                }
+            }
+        }
+    }
+
+    /// One value for channel `ch` (from a frame, or a samples file), with
+    /// the cold-junction temperature that applies to it.
+    pub fn handle_value(&mut self, ch: usize, value: Value, cj_c: Option<f64>, now: Timestamp) {
+        let Some(cfg) = self.settings.channels.get(ch) else {
+            return;
+        };
+        let result = channel::convert(cfg, value, cj_c);
+        let state = &mut self.channels[ch];
+        state.last_seen = Some(now);
+        match result {
+            Ok(t) => {
+                state.latest = Some(channel::Reading {
+                    time: now,
+                    celsius: t,
+                    sigma_c: channel::sigma_c(cfg, t),
+                });
+                state.value_health = Health::Ok;
+                state.reason = "";
+            }
+            Err((health, reason)) => {
+                state.value_health = health;
+                state.reason = reason;
+            }
+        }
+        self.check_health(ch, now);
+    }
+
+    fn check_health(&mut self, ch: usize, now: Timestamp) {
+        let (health, reason) = self.channels[ch].health_at(now, self.stale_after_s[ch]);
+        let from = self.channels[ch].announced;
+        if health != from {
+            self.channels[ch].announced = health;
+            // A change is published at once, not at the next period.
+            self.channel_due[ch] = now;
+            self.push_event(Event::ChannelHealth {
+                channel: ch,
+                time: now,
+                from,
+                to: health,
+                reason,
+            });
+        }
+    }
+
+    /// The next due zone cycle at `now`, if any (call until `None`). The
+    /// report is stamped with its due time, so a replay and the live run
+    /// give the same times.
+    pub fn poll_zone(&mut self, now: Timestamp) -> Option<ZoneReport> {
+        let (i, due) = self
+            .zones
+            .iter()
+            .enumerate()
+            .filter(|(_, z)| z.next_due <= now)
+            .map(|(i, z)| (i, z.next_due))
+            .min_by(|a, b| a.1.epoch_s().total_cmp(&b.1.epoch_s()))?;
+        for ch in 0..self.channels.len() {
+            self.check_health(ch, due);
+        }
+        let interval = self.settings.zones[i].interval_s;
+        let report = self.zones[i].cycle(&self.settings, &self.channels, due);
+        self.zones[i].next_due = due.plus_s(interval);
+        Some(report)
+    }
+
+    /// Number of cycles zone `i` has run.
+    pub fn zone_cycles(&self, i: usize) -> u64 {
+        self.zones.get(i).map_or(0, |z| z.cycles)
+    }
+
+    /// The next channel state due for publication at `now` (its period, or
+    /// at once after a health change).
+    pub fn poll_channel(&mut self, now: Timestamp) -> Option<ChannelReport> {
+        let ch = (0..self.channels.len()).find(|&c| self.channel_due[c] <= now)?;
+        self.check_health(ch, now);
+        self.channel_due[ch] = now.plus_s(self.channel_period_s);
+        let cfg = &self.settings.channels[ch];
+        let state = &self.channels[ch];
+        let (health, reason) = state.health_at(now, self.stale_after_s[ch]);
+        let valid = health == Health::Ok;
+        Some(ChannelReport {
+            schema: "wallflux.channel/1",
+            channel: cfg.name.clone(),
+            time: state.last_seen.unwrap_or(now),
+            celsius: state.latest.filter(|_| valid).map(|r| r.celsius),
+            sigma_c: state.latest.filter(|_| valid).map(|r| r.sigma_c),
+            status: health,
+            reason,
+            source: self.settings.sources[cfg.source].name.clone(),
+            input: cfg.input,
+            tc_type: cfg.tc_type.letter(),
+        })
+    }
+
+    /// The next queued event.
+    pub fn poll_event(&mut self) -> Option<Event> {
+        self.events.pop_front()
+    }
+
+    /// The earliest time a zone cycle is due (for the driver's timer).
+    pub fn next_zone_due(&self) -> Option<Timestamp> {
+        self.zones
+            .iter()
+            .map(|z| z.next_due)
+            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
+    }
+}

@@ -1,0 +1,8 @@
+//! The physics: pure functions over values, no IO, no clock.
+
+pub mod fit;
+pub mod material;
+pub mod profile;
+pub mod surface;
+pub mod thermocouple;
+pub mod tolerance;

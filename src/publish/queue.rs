@@ -1,0 +1,160 @@
+//! The bounded hand-over between the engine and the MQTT task.
+//!
+//! The engine must never wait on the broker, so `push` never blocks. Retained
+//! state (zone, channel) is coalesced per topic, since only the latest value
+//! of a retained topic matters; when the queue is still full, the oldest
+//! droppable message goes and is counted. Status messages are never dropped.
+
+use std::collections::VecDeque;
+use std::sync::atomic::{AtomicU64, Ordering};
+use std::sync::Mutex;
+
+use tokio::sync::Notify;
+
+/// What a message is, for the drop policy.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Kind {
+    /// Retained zone state: latest wins; droppable.
+    ZoneState,
+    /// Retained channel reading: latest wins; droppable.
+    Channel,
+    /// Retained service status: never dropped.
+    Status,
+}
+
+#[derive(Debug, Clone, PartialEq)]
+pub struct Message {
+    pub topic: String,
+    pub payload: Vec<u8>,
+    pub kind: Kind,
+}
+
+/// Counters of the queue, shared with the status report.
+#[derive(Debug, Default)]
+pub struct QueueCounters {
+    /// Messages replaced by a newer one for the same topic before sending.
+    pub coalesced: AtomicU64,
+    /// Zone states dropped because the queue was full.
+    pub dropped_zone_states: AtomicU64,
+    /// Channel readings dropped because the queue was full.
+    pub dropped_channels: AtomicU64,
+}
+
+pub struct Queue {
+    // A std Mutex, not a tokio one: nothing awaits while it is held.
+    inner: Mutex<VecDeque<Message>>,
+    capacity: usize,
+    notify: Notify,
+    pub counters: QueueCounters,
+}
+
+impl Queue {
+    pub fn new(capacity: usize) -> Self {
+        Queue {
+            inner: Mutex::new(VecDeque::with_capacity(capacity)),
+            capacity: capacity.max(1),
+            notify: Notify::new(),
+            counters: QueueCounters::default(),
+        }
+    }
+
+    /// Queues a message without blocking (see the module doc for the policy).
+    pub fn push(&self, msg: Message) {
+        {
+            let mut q = self.inner.lock().unwrap_or_else(|e| e.into_inner());
+            if msg.kind != Kind::Status {
+                if let Some(old) = q.iter_mut().find(|m| m.topic == msg.topic) {
+                    *old = msg;
+                    self.counters.coalesced.fetch_add(1, Ordering::Relaxed);
+                    drop(q);
+                    self.notify.notify_one();
+                    return;
+                }
+            }
+            if q.len() >= self.capacity {
+                match q.iter().position(|m| m.kind != Kind::Status) {
+                    Some(i) => {
+                        if let Some(old) = q.remove(i) {
+                            self.count_drop(old.kind);
+                        }
+                    }
+                    None if msg.kind != Kind::Status => {
+                        self.count_drop(msg.kind);
+                        return;
+                    }
+                    None => {}
+                }
+            }
+            q.push_back(msg);
+        }
+        self.notify.notify_one();
+    }
+
+    fn count_drop(&self, kind: Kind) {
+        let c = match kind {
+            Kind::ZoneState => &self.counters.dropped_zone_states,
+            Kind::Channel => &self.counters.dropped_channels,
+            Kind::Status => return,
+        };
+        c.fetch_add(1, Ordering::Relaxed);
+    }
+
+    /// Waits for and takes the oldest message.
+    pub async fn pop(&self) -> Message {
+        loop {
+            let notified = self.notify.notified();
+            if let Some(m) = self.try_pop() {
+                return m;
+            }
+            notified.await;
+        }
+    }
+
+    pub fn try_pop(&self) -> Option<Message> {
+        self.inner.lock().unwrap_or_else(|e| e.into_inner()).pop_front()
+    }
+
+    pub fn len(&self) -> usize {
+        self.inner.lock().unwrap_or_else(|e| e.into_inner()).len()
+    }
+
+    pub fn is_empty(&self) -> bool {
+        self.len() == 0
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn msg(topic: &str, kind: Kind, n: u8) -> Message {
+        Message {
+            topic: topic.into(),
+            payload: vec![n],
+            kind,
+        }
+    }
+
+    #[test]
+    fn same_topic_keeps_latest() {
+        let q = Queue::new(4);
+        q.push(msg("z/a", Kind::ZoneState, 1));
+        q.push(msg("z/a", Kind::ZoneState, 2));
+        assert_eq!(q.len(), 1);
+        assert_eq!(q.try_pop().unwrap().payload, vec![2]);
+        assert_eq!(q.counters.coalesced.load(Ordering::Relaxed), 1);
+    }
+
+    #[test]
+    fn full_queue_drops_oldest_state_never_status() {
+        let q = Queue::new(3);
+        q.push(msg("status", Kind::Status, 0));
+        q.push(msg("z/a", Kind::ZoneState, 1));
+        q.push(msg("z/b", Kind::ZoneState, 2));
+        q.push(msg("z/c", Kind::ZoneState, 3));
+        assert_eq!(q.len(), 3);
+        assert_eq!(q.counters.dropped_zone_states.load(Ordering::Relaxed), 1);
+        let topics: Vec<_> = std::iter::from_fn(|| q.try_pop()).map(|m| m.topic).collect();
+        assert_eq!(topics, ["status", "z/b", "z/c"]);
+    }
+}

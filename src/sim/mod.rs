@@ -1,0 +1,2 @@
+//! Simulation for the demo and the tests.
+pub mod pty;
