@@ -184,3 +184,6 @@ impl Settings {
             .position(|c| c.source == source && c.input == input)
     }
 }
+
+#[cfg(test)]
+mod tests;

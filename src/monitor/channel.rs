@@ -121,7 +121,7 @@ pub fn convert(channel: &Channel, value: Value, cj_c: Option<f64>) -> Result<f64
             };
             match thermocouple::compensated_c(channel.tc_type, v, cj) {
                 Ok(t) => Ok(t),
-                Err(TcError::TemperatureOutOfRange { .. }) => {
+                Err(TcError::ColdJunctionOutOfRange { .. }) => {
                     Err((Health::OutOfRange, "cold junction outside the thermocouple type's range"))
                 }
                 Err(_) => Err((
@@ -141,15 +141,19 @@ pub fn convert(channel: &Channel, value: Value, cj_c: Option<f64>) -> Result<f64
 
 /// Standard uncertainty of a reading at `t_c`: the measured one if
 /// configured, else the tolerance class as a rectangular bound / √3
-/// (GUM 4.3.7), else (outside the class's stated range) the nearest band.
+/// (GUM 4.3.7), extended from the nearest end of the class's stated range
+/// when `t_c` lies outside it.
 pub fn sigma_c(channel: &Channel, t_c: f64) -> f64 {
     if let Some(u) = channel.uncertainty_c {
         return u;
     }
-    tolerance::standard_uncertainty_c(channel.tolerance, channel.tc_type, t_c)
-        // Outside the class's range: a conservative 1 % of |t|, at least 2.5 °C
-        // (common practice: wider than every class's band), as a bound.
-        .unwrap_or_else(|| (0.01 * t_c.abs()).max(2.5) / 3f64.sqrt())
+    let bound = tolerance::tolerance_or_nearest_c(channel.tolerance, channel.tc_type, t_c)
+        .map(|n| n.tolerance_c)
+        // The class defines no band for this type at all: a conservative
+        // 1 % of |t|, at least 2.5 °C (wider than every published class; a
+        // choice of ours, documented in the README).
+        .unwrap_or_else(|| (0.01 * t_c.abs()).max(2.5));
+    bound / 3f64.sqrt()
 }
 
 /// A channel's state as published on `{root}/channel/{channel}`.
