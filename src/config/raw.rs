@@ -75,11 +75,36 @@ pub struct RawChannel {
 }
 
 /// A number, or a table of `[t_c, value]` points.
-#[derive(Debug, Deserialize)]
-#[serde(untagged)]
+#[derive(Debug)]
 pub enum RawProperty {
     Constant(f64),
     Table(Vec<[f64; 2]>),
+}
+
+impl<'de> Deserialize<'de> for RawProperty {
+    fn deserialize<D: serde::Deserializer<'de>>(d: D) -> Result<Self, D::Error> {
+        struct V;
+        impl<'de> serde::de::Visitor<'de> for V {
+            type Value = RawProperty;
+            fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
+                f.write_str("a number or a table of [t_c, value] pairs, e.g. [[200.0, 1.1], [1000.0, 1.3]]")
+            }
+            fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<RawProperty, E> {
+                Ok(RawProperty::Constant(v))
+            }
+            fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<RawProperty, E> {
+                Ok(RawProperty::Constant(v as f64))
+            }
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(self, mut seq: A) -> Result<RawProperty, A::Error> {
+                let mut points = Vec::new();
+                while let Some(p) = seq.next_element::<[f64; 2]>()? {
+                    points.push(p);
+                }
+                Ok(RawProperty::Table(points))
+            }
+        }
+        d.deserialize_any(V)
+    }
 }
 
 #[derive(Debug, Deserialize)]

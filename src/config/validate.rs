@@ -66,7 +66,14 @@ pub fn parse(
         Ok(r) => r,
         Err(e) => {
             let line = e.span().map(|s| line_of(text, s.start));
-            let message = e.message().trim().to_string();
+            let mut message = e.message().trim().to_string();
+            // Name the culprit: quote the offending line of the file.
+            if let Some(l) = line.and_then(|l| text.lines().nth(l - 1)) {
+                let l = l.trim();
+                if !l.is_empty() {
+                    message = format!("{message}, in `{}`", truncate(l, 120));
+                }
+            }
             return Err(ConfigError {
                 file: file.to_string(),
                 problems: vec![Problem {
@@ -91,6 +98,13 @@ pub fn parse(
         file: file.to_string(),
         problems: v.problems,
     })
+}
+
+fn truncate(s: &str, max: usize) -> &str {
+    match s.char_indices().nth(max) {
+        Some((i, _)) => &s[..i],
+        None => s,
+    }
 }
 
 fn line_of(text: &str, byte: usize) -> usize {

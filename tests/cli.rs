@@ -1,0 +1,151 @@
+//! The command line through the real binary: exit codes and messages of
+//! `check` and `tc`, and `analyze` against closed-form walls.
+
+mod common;
+use common::*;
+
+fn stderr(o: &std::process::Output) -> String {
+    String::from_utf8_lossy(&o.stderr).into_owned()
+}
+
+#[test]
+fn check_accepts_the_shipped_configs() {
+    for f in ["config/example.toml", "config/demo.toml"] {
+        let path = format!("{}/{f}", env!("CARGO_MANIFEST_DIR"));
+        let o = run(&["check", "--config", &path]);
+        assert_eq!(o.status.code(), Some(0), "{f}: {}", stderr(&o));
+        let out = String::from_utf8_lossy(&o.stdout);
+        assert!(out.contains("configuration ok"), "{out}");
+    }
+    let o = run(&["check", "--config", &format!("{}/config/demo.toml", env!("CARGO_MANIFEST_DIR"))]);
+    let out = String::from_utf8_lossy(&o.stdout);
+    // Three zones, thirteen probes in the demo.
+    assert_eq!(out.matches("  zone ").count(), 3, "{out}");
+    assert_eq!(out.matches("    probe ").count(), 13, "{out}");
+}
+
+#[test]
+fn broken_configs_exit_2_naming_the_culprit() {
+    let dir = temp_dir("cli-broken");
+    let good = one_zone_config("/dev/null", 1883, 1.2, 300.0, &[30.0, 150.0, 300.0], 10.0);
+    let cases = [
+        (good.replace("depth_mm = 150", "depth_mm = 450"), "zone[0].probes[1].depth_mm"),
+        (good.replace("type = \"K\"", "type = \"X\""), "channel[0].type"),
+        (good.replace("[log]", "[log]\ncolour = true"), "colour"),
+        (good.replace("source = \"box\"", "source = \"bx\""), "channel[0].source"),
+        (good.replace("conductivity_w_mk = 1.2", "conductivity_w_mk = \"high\""), "conductivity_w_mk"),
+    ];
+    for (i, (text, culprit)) in cases.iter().enumerate() {
+        let p = write(&dir, &format!("bad{i}.toml"), text);
+        let o = run(&["check", "--config", p.to_str().unwrap()]);
+        assert_eq!(o.status.code(), Some(2), "case {i}");
+        let e = stderr(&o);
+        assert!(e.contains(culprit), "case {i}: {e}");
+        assert!(e.contains(&format!("bad{i}.toml:")), "case {i} names no line: {e}");
+    }
+    let o = run(&["check", "--config", "/nonexistent/wallflux.toml"]);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("/nonexistent/wallflux.toml"));
+    let o = run(&["check"]);
+    assert_eq!(o.status.code(), Some(2), "missing --config is a usage error");
+    let o = run(&["frobnicate"]);
+    assert_eq!(o.status.code(), Some(2));
+}
+
+/// `wallflux tc` against NIST ITS-90 type K table values (NIST SRD 60,
+/// type_K.tab: 500 °C → 20.644 mV) and the cold-junction case of
+/// REFERENCES.md (4.096 mV at 25 °C terminals → 124.31 °C).
+#[test]
+fn tc_converts_both_ways() {
+    let o = run(&["tc", "--type", "K", "--celsius", "500", "--json"]);
+    assert_eq!(o.status.code(), Some(0));
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert_eq!(v["type"], "K");
+    assert_eq!(v["celsius"], 500.0);
+    assert!((v["millivolts"].as_f64().unwrap() - 20.644).abs() < 0.0005);
+
+    let o = run(&["tc", "--type", "K", "--mv", "4.096", "--cj-c", "25", "--json"]);
+    assert_eq!(o.status.code(), Some(0));
+    let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
+    assert!((v["celsius"].as_f64().unwrap() - 124.31).abs() < 0.01, "{v}");
+    assert_eq!(v["cj_c"], 25.0);
+
+    let o = run(&["tc", "--type", "K", "--mv", "-18.644", "--cj-c", "25"]);
+    assert_eq!(o.status.code(), Some(2), "reversed polarity is out of range");
+    assert!(stderr(&o).to_lowercase().contains("range"), "{}", stderr(&o));
+    let o = run(&["tc", "--type", "K", "--celsius", "1500"]);
+    assert_eq!(o.status.code(), Some(2));
+    let o = run(&["tc", "--type", "Z", "--celsius", "100"]);
+    assert_eq!(o.status.code(), Some(2));
+    let o = run(&["tc", "--type", "K"]);
+    assert_eq!(o.status.code(), Some(2), "neither --celsius nor --mv");
+}
+
+/// Steady slab with a uniform volumetric source (Incropera, Fundamentals of
+/// Heat and Mass Transfer, §3.5: k T'' = −q‴ integrated twice):
+/// q(x) = q0 + q‴ x, T(x) = T0 − (q0/k) x − (q‴ / 2k) x².
+/// With q0 = 1500 W/m², q‴ = −1000 W/m³ (a sink), k = 1.2 W/mK, L = 0.3 m,
+/// T0 = 1100 °C: q(L) = 1200 W/m², source = (q(L) − q(0))/L = −1000 W/m³.
+#[test]
+fn analyze_reproduces_a_closed_form_wall() {
+    let (k, l, q0, qs, t0) = (1.2, 0.3, 1500.0, -1000.0, 1100.0);
+    let temp = |x: f64| t0 - q0 / k * x - qs / (2.0 * k) * x * x;
+    let depths = [30.0, 100.0, 200.0, 300.0];
+    let dir = temp_dir("cli-analyze");
+    let cfg = write(&dir, "wall.toml", &one_zone_config("/dev/null", 1883, k, l * 1000.0, &depths, 10.0));
+    let mut csv = String::from("time,channel,value\n");
+    let t_start = 1_800_000_000.0;
+    for s in 0..=60 {
+        let t = t_start + f64::from(s) * 10.0;
+        for (i, d) in depths.iter().enumerate() {
+            // An open probe for the second half of the record: the zone
+            // must degrade to three probes and keep exact numbers.
+            if i == 1 && s > 30 {
+                csv += &format!("{t},p{i},open\n");
+            } else {
+                csv += &format!("{t},p{i},{:.4}\n", temp(d / 1000.0));
+            }
+        }
+    }
+    csv += "garbage line\n";
+    let samples = write(&dir, "samples.csv", &csv);
+    let o = run(&["analyze", "--config", cfg.to_str().unwrap(), "--samples", samples.to_str().unwrap()]);
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    assert!(stderr(&o).contains("samples.csv:"), "the garbage line is reported: {}", stderr(&o));
+    let lines: Vec<serde_json::Value> = String::from_utf8_lossy(&o.stdout)
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    // One state per interval: due at +10 s .. +600 s.
+    assert_eq!(lines.len(), 60);
+    for (n, v) in lines.iter().enumerate() {
+        assert_eq!(v["zone"], "wall");
+        assert_eq!(v["schema"], "wallflux.zone/1");
+        let rel = |key: &str, want: f64| {
+            let got = v[key].as_f64().unwrap_or_else(|| panic!("state {n}: {key} missing: {v}"));
+            assert!(((got - want) / want).abs() < 0.005, "state {n}: {key} = {got}, want {want}");
+        };
+        rel("flux_hot_face_w_m2", q0);
+        rel("flux_shell_w_m2", q0 + qs * l);
+        rel("heat_loss_w", (q0 + qs * l) * 10.0);
+        rel("source_w_m3", qs);
+        rel("hot_face_c", t0);
+        rel("shell_c", temp(l));
+        let status = v["status"].as_str().unwrap();
+        let open = v["probes"][1]["status"].as_str().unwrap();
+        if n >= 31 {
+            assert_eq!(status, "degraded", "state {n}");
+            assert_eq!(open, "open");
+            assert_eq!(v["probes_used"], 3);
+        } else {
+            assert_eq!(status, "ok", "state {n}");
+        }
+    }
+    // A steady wall: measured and model rates are zero (to rounding).
+    let last = &lines[59];
+    for p in last["probes"].as_array().unwrap() {
+        if let Some(r) = p["rate_measured_c_per_h"].as_f64() {
+            assert!(r.abs() < 0.05, "{p}");
+        }
+    }
+}

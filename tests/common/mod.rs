@@ -1,0 +1,76 @@
+//! Shared helpers of the integration tests: the real binary, temp files.
+#![allow(dead_code)]
+
+use std::path::PathBuf;
+use std::process::{Command, Output};
+
+pub fn bin() -> Command {
+    Command::new(env!("CARGO_BIN_EXE_wallflux"))
+}
+
+pub fn run(args: &[&str]) -> Output {
+    bin().args(args).output().expect("run wallflux")
+}
+
+/// A fresh directory under the target dir for one test.
+pub fn temp_dir(name: &str) -> PathBuf {
+    let d = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join(format!("{name}-{}", std::process::id()));
+    let _ = std::fs::remove_dir_all(&d);
+    std::fs::create_dir_all(&d).unwrap();
+    d
+}
+
+pub fn write(dir: &std::path::Path, name: &str, text: &str) -> PathBuf {
+    let p = dir.join(name);
+    std::fs::write(&p, text).unwrap();
+    p
+}
+
+/// A one-zone configuration: a single homogeneous layer of `thickness_mm`
+/// with constant conductivity `k`, probes at `depths_mm` on inputs 1.., type K.
+pub fn one_zone_config(port: &str, mqtt_port: u16, k: f64, thickness_mm: f64, depths_mm: &[f64], interval_s: f64) -> String {
+    let mut s = format!(
+        r#"
+[site]
+plant = "test-plant"
+kiln = "k1"
+
+[mqtt]
+host = "127.0.0.1"
+port = {mqtt_port}
+client_id = "wallflux-test-{mqtt_port}"
+topic_root = "wf"
+
+[log]
+summary_every = 1
+
+[[source]]
+name = "box"
+kind = "line"
+port = "{port}"
+baud = 115200
+silence_s = 5
+
+[[material]]
+name = "slab"
+conductivity_w_mk = {k}
+density_kg_m3 = 2000.0
+specific_heat_j_kgk = 1000.0
+"#
+    );
+    for (i, _) in depths_mm.iter().enumerate() {
+        s += &format!(
+            "\n[[channel]]\nname = \"p{i}\"\nsource = \"box\"\ninput = {}\ntype = \"K\"\ntolerance = \"iec-class-1\"\n",
+            i + 1
+        );
+    }
+    s += &format!(
+        "\n[[zone]]\nname = \"wall\"\narea_m2 = 10.0\nmodel = \"quadratic\"\ninterval_s = {interval_s}\nrate_window_s = {}\nlayers = [{{ material = \"slab\", thickness_mm = {thickness_mm} }}]\nprobes = [\n",
+        interval_s * 10.0
+    );
+    for (i, d) in depths_mm.iter().enumerate() {
+        s += &format!("  {{ channel = \"p{i}\", depth_mm = {d} }},\n");
+    }
+    s += "]\n";
+    s
+}
