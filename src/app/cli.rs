@@ -51,6 +51,12 @@ pub enum Command {
     },
     /// ITS-90 thermocouple conversion, for field checks with a calibrator.
     Tc(TcArgs),
+    /// Run only the embedded MQTT broker on 127.0.0.1 (for trials and tests;
+    /// plants use their own broker).
+    Broker {
+        #[arg(long, default_value_t = 1883)]
+        port: u16,
+    },
 }
 
 #[derive(Debug, Args)]

@@ -80,6 +80,17 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
         }
         #[cfg(feature = "demo")]
         Command::Demo(args) => demo::demo(&args),
+        #[cfg(feature = "demo")]
+        Command::Broker { port } => runtime()?.block_on(async move {
+            broker::start(port).await.map_err(Failure::runtime)?;
+            tracing::info!(port, "embedded MQTT broker listening on 127.0.0.1");
+            shutdown_signal().await;
+            Ok(())
+        }),
+        #[cfg(not(feature = "demo"))]
+        Command::Broker { .. } => Err(Failure::usage(anyhow::anyhow!(
+            "this build has no embedded broker (built without the `demo` feature)"
+        ))),
         #[cfg(not(feature = "demo"))]
         Command::Demo(_) => Err(Failure::usage(anyhow::anyhow!(
             "this build has no demo (built without the `demo` feature)"

@@ -1,0 +1,124 @@
+//! A real broker for the integration tests (the embedded one through
+//! `wallflux broker`, or mosquitto when `WALLFLUX_TEST_BROKER=mosquitto`)
+//! and a subscriber that collects what is published.
+
+use std::net::TcpStream;
+use std::process::{Child, Command, Stdio};
+use std::sync::mpsc;
+use std::time::{Duration, Instant};
+
+use rumqttc::{Client, Event, MqttOptions, Packet, QoS};
+
+pub fn free_port() -> u16 {
+    std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port()
+}
+
+pub struct Broker {
+    pub port: u16,
+    child: Option<Child>,
+    dir: std::path::PathBuf,
+}
+
+impl Broker {
+    pub fn kind() -> String {
+        std::env::var("WALLFLUX_TEST_BROKER").unwrap_or_else(|_| "embedded".into())
+    }
+
+    pub fn start(port: u16, dir: &std::path::Path) -> Broker {
+        let mut b = Broker { port, child: None, dir: dir.to_path_buf() };
+        b.restart();
+        b
+    }
+
+    /// Starts (again) on the same port and waits until it accepts.
+    pub fn restart(&mut self) {
+        let child = if Self::kind() == "mosquitto" {
+            let conf = self.dir.join(format!("mosquitto-{}.conf", self.port));
+            std::fs::write(&conf, format!("listener {} 127.0.0.1\nallow_anonymous true\n", self.port)).unwrap();
+            Command::new("mosquitto")
+                .arg("-c")
+                .arg(&conf)
+                .stdout(Stdio::null())
+                .stderr(Stdio::null())
+                .spawn()
+                .expect("mosquitto is installed (apt-get install mosquitto)")
+        } else {
+            Command::new(env!("CARGO_BIN_EXE_wallflux"))
+                .args(["broker", "--port", &self.port.to_string()])
+                .stdout(Stdio::null())
+                .stderr(Stdio::null())
+                .spawn()
+                .unwrap()
+        };
+        self.child = Some(child);
+        let deadline = Instant::now() + Duration::from_secs(20);
+        while TcpStream::connect(("127.0.0.1", self.port)).is_err() {
+            assert!(Instant::now() < deadline, "broker did not start on port {}", self.port);
+            std::thread::sleep(Duration::from_millis(50));
+        }
+    }
+
+    pub fn stop(&mut self) {
+        if let Some(mut c) = self.child.take() {
+            let _ = c.kill();
+            let _ = c.wait();
+        }
+    }
+}
+
+impl Drop for Broker {
+    fn drop(&mut self) {
+        self.stop();
+    }
+}
+
+/// One received message.
+#[derive(Debug, Clone)]
+pub struct Msg {
+    pub topic: String,
+    pub retained: bool,
+    pub json: serde_json::Value,
+}
+
+/// Subscribes to `filter` and forwards every message; reconnects (and
+/// subscribes again) when the broker goes away.
+pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
+    let (tx, rx) = mpsc::channel();
+    let mut opts = MqttOptions::new(format!("test-sub-{port}-{}", std::process::id()), "127.0.0.1", port);
+    opts.set_keep_alive(Duration::from_secs(5));
+    opts.set_max_packet_size(1 << 20, 1 << 20);
+    let (client, mut conn) = Client::new(opts, 16);
+    let filter = filter.to_string();
+    std::thread::spawn(move || {
+        for ev in conn.iter() {
+            match ev {
+                Ok(Event::Incoming(Packet::ConnAck(_))) => {
+                    let _ = client.try_subscribe(filter.clone(), QoS::AtLeastOnce);
+                }
+                Ok(Event::Incoming(Packet::Publish(p))) => {
+                    let json = serde_json::from_slice(&p.payload).unwrap_or(serde_json::Value::Null);
+                    if tx.send(Msg { topic: p.topic.clone(), retained: p.retain, json }).is_err() {
+                        return;
+                    }
+                }
+                Ok(_) => {}
+                Err(_) => std::thread::sleep(Duration::from_millis(200)),
+            }
+        }
+    });
+    rx
+}
+
+/// Waits (bounded) for a message that satisfies `pred`; the others are
+/// dropped.
+pub fn wait_for(rx: &mpsc::Receiver<Msg>, within: Duration, what: &str, pred: impl Fn(&Msg) -> bool) -> Msg {
+    let deadline = Instant::now() + within;
+    loop {
+        let left = deadline.saturating_duration_since(Instant::now());
+        match rx.recv_timeout(left) {
+            Ok(m) if pred(&m) => return m,
+            Ok(_) => {}
+            Err(_) => panic!("no message within {within:?}: {what}"),
+        }
+    }
+}
