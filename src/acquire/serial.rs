@@ -91,6 +91,8 @@ pub async fn run(
         // A reopened line starts a new sequence: the gap across the outage
         // is not a count of lost scans.
         parser.reset_sequence();
+        // Nor is half a line from before it the start of the next one.
+        parser.discard_partial_line();
         let mut errors = ErrorLog::default();
         let mut silent = false;
         let mut buf = [0u8; 512];

@@ -14,6 +14,7 @@ pub fn init(format: LogFormat, level: Option<&str>) {
     let builder = tracing_subscriber::fmt()
         .with_env_filter(filter)
         .with_writer(std::io::stderr)
+        .with_ansi(std::io::IsTerminal::is_terminal(&std::io::stderr()))
         .with_target(false);
     let _ = match format {
         LogFormat::Text => builder.compact().try_init(),

@@ -173,7 +173,7 @@ fn log_summary(r: &ZoneReport) {
         }
         _ => info!(
             zone = %r.zone,
-            status = ?r.status,
+            status = r.status.name(),
             hot_face_c = %f(r.hot_face_c),
             shell_c = %f(r.shell_c),
             flux_shell_w_m2 = %f(r.flux_shell_w_m2),

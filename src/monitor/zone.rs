@@ -29,6 +29,16 @@ pub enum ZoneStatus {
     InsufficientData,
 }
 
+impl ZoneStatus {
+    pub fn name(self) -> &'static str {
+        match self {
+            ZoneStatus::Ok => "ok",
+            ZoneStatus::Degraded => "degraded",
+            ZoneStatus::InsufficientData => "insufficient_data",
+        }
+    }
+}
+
 /// Standard uncertainties (1 σ) of the headline numbers, from the fit
 /// covariance and the probes' standard uncertainties. The conductivity's own
 /// uncertainty is not included.

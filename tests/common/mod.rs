@@ -1,6 +1,8 @@
 //! Shared helpers of the integration tests: the real binary, temp files.
 #![allow(dead_code)]
 
+pub mod mqtt;
+
 use std::path::PathBuf;
 use std::process::{Command, Output};
 
