@@ -58,7 +58,12 @@ impl Timestamp {
             return parse_rfc3339(b);
         }
         match text.parse::<f64>() {
-            Ok(v) if v.is_finite() && text.bytes().all(|c| c.is_ascii_digit() || c == b'.' || c == b'-') => {
+            Ok(v)
+                if v.is_finite()
+                    && text
+                        .bytes()
+                        .all(|c| c.is_ascii_digit() || c == b'.' || c == b'-') =>
+            {
                 Ok(Timestamp(v))
             }
             _ => Err(TimeError::Syntax),
@@ -223,10 +228,22 @@ mod tests {
     /// e.g. `date -u -d @946684800`).
     #[test]
     fn known_instants() {
-        assert_eq!(Timestamp::parse("2000-01-01T00:00:00Z").unwrap().epoch_s(), 946_684_800.0);
-        assert_eq!(Timestamp::parse("2038-01-19T03:14:07Z").unwrap().epoch_s(), 2_147_483_647.0);
-        assert_eq!(Timestamp::from_epoch_s(946_684_800.0).rfc3339().as_str(), "2000-01-01T00:00:00.000Z");
-        assert_eq!(Timestamp::from_epoch_s(2_147_483_647.5).rfc3339().as_str(), "2038-01-19T03:14:07.500Z");
+        assert_eq!(
+            Timestamp::parse("2000-01-01T00:00:00Z").unwrap().epoch_s(),
+            946_684_800.0
+        );
+        assert_eq!(
+            Timestamp::parse("2038-01-19T03:14:07Z").unwrap().epoch_s(),
+            2_147_483_647.0
+        );
+        assert_eq!(
+            Timestamp::from_epoch_s(946_684_800.0).rfc3339().as_str(),
+            "2000-01-01T00:00:00.000Z"
+        );
+        assert_eq!(
+            Timestamp::from_epoch_s(2_147_483_647.5).rfc3339().as_str(),
+            "2038-01-19T03:14:07.500Z"
+        );
         // Leap day and offsets: 2024-02-29T12:00:00+02:00 is 10:00Z.
         let t = Timestamp::parse("2024-02-29T12:00:00+02:00").unwrap();
         assert_eq!(t.rfc3339().as_str(), "2024-02-29T10:00:00.000Z");

@@ -17,7 +17,11 @@ fn check_accepts_the_shipped_configs() {
         let out = String::from_utf8_lossy(&o.stdout);
         assert!(out.contains("configuration ok"), "{out}");
     }
-    let o = run(&["check", "--config", &format!("{}/config/demo.toml", env!("CARGO_MANIFEST_DIR"))]);
+    let o = run(&[
+        "check",
+        "--config",
+        &format!("{}/config/demo.toml", env!("CARGO_MANIFEST_DIR")),
+    ]);
     let out = String::from_utf8_lossy(&o.stdout);
     // Three zones, thirteen probes in the demo.
     assert_eq!(out.matches("  zone ").count(), 3, "{out}");
@@ -29,11 +33,23 @@ fn broken_configs_exit_2_naming_the_culprit() {
     let dir = temp_dir("cli-broken");
     let good = one_zone_config("/dev/null", 1883, 1.2, 300.0, &[30.0, 150.0, 300.0], 10.0);
     let cases = [
-        (good.replace("depth_mm = 150", "depth_mm = 450"), "zone[0].probes[1].depth_mm"),
-        (good.replace("type = \"K\"", "type = \"X\""), "channel[0].type"),
+        (
+            good.replace("depth_mm = 150", "depth_mm = 450"),
+            "zone[0].probes[1].depth_mm",
+        ),
+        (
+            good.replace("type = \"K\"", "type = \"X\""),
+            "channel[0].type",
+        ),
         (good.replace("[log]", "[log]\ncolour = true"), "colour"),
-        (good.replace("source = \"box\"", "source = \"bx\""), "channel[0].source"),
-        (good.replace("conductivity_w_mk = 1.2", "conductivity_w_mk = \"high\""), "conductivity_w_mk"),
+        (
+            good.replace("source = \"box\"", "source = \"bx\""),
+            "channel[0].source",
+        ),
+        (
+            good.replace("conductivity_w_mk = 1.2", "conductivity_w_mk = \"high\""),
+            "conductivity_w_mk",
+        ),
     ];
     for (i, (text, culprit)) in cases.iter().enumerate() {
         let p = write(&dir, &format!("bad{i}.toml"), text);
@@ -41,13 +57,20 @@ fn broken_configs_exit_2_naming_the_culprit() {
         assert_eq!(o.status.code(), Some(2), "case {i}");
         let e = stderr(&o);
         assert!(e.contains(culprit), "case {i}: {e}");
-        assert!(e.contains(&format!("bad{i}.toml:")), "case {i} names no line: {e}");
+        assert!(
+            e.contains(&format!("bad{i}.toml:")),
+            "case {i} names no line: {e}"
+        );
     }
     let o = run(&["check", "--config", "/nonexistent/wallflux.toml"]);
     assert_eq!(o.status.code(), Some(2));
     assert!(stderr(&o).contains("/nonexistent/wallflux.toml"));
     let o = run(&["check"]);
-    assert_eq!(o.status.code(), Some(2), "missing --config is a usage error");
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "missing --config is a usage error"
+    );
     let o = run(&["frobnicate"]);
     assert_eq!(o.status.code(), Some(2));
 }
@@ -64,15 +87,28 @@ fn tc_converts_both_ways() {
     assert_eq!(v["celsius"], 500.0);
     assert!((v["millivolts"].as_f64().unwrap() - 20.644).abs() < 0.0005);
 
-    let o = run(&["tc", "--type", "K", "--mv", "4.096", "--cj-c", "25", "--json"]);
+    let o = run(&[
+        "tc", "--type", "K", "--mv", "4.096", "--cj-c", "25", "--json",
+    ]);
     assert_eq!(o.status.code(), Some(0));
     let v: serde_json::Value = serde_json::from_slice(&o.stdout).unwrap();
-    assert!((v["celsius"].as_f64().unwrap() - 124.31).abs() < 0.01, "{v}");
+    assert!(
+        (v["celsius"].as_f64().unwrap() - 124.31).abs() < 0.01,
+        "{v}"
+    );
     assert_eq!(v["cj_c"], 25.0);
 
     let o = run(&["tc", "--type", "K", "--mv", "-18.644", "--cj-c", "25"]);
-    assert_eq!(o.status.code(), Some(2), "reversed polarity is out of range");
-    assert!(stderr(&o).to_lowercase().contains("range"), "{}", stderr(&o));
+    assert_eq!(
+        o.status.code(),
+        Some(2),
+        "reversed polarity is out of range"
+    );
+    assert!(
+        stderr(&o).to_lowercase().contains("range"),
+        "{}",
+        stderr(&o)
+    );
     let o = run(&["tc", "--type", "K", "--celsius", "1500"]);
     assert_eq!(o.status.code(), Some(2));
     let o = run(&["tc", "--type", "Z", "--celsius", "100"]);
@@ -92,7 +128,13 @@ fn analyze_reproduces_a_closed_form_wall() {
     let temp = |x: f64| t0 - q0 / k * x - qs / (2.0 * k) * x * x;
     let depths = [30.0, 100.0, 200.0, 300.0];
     let dir = temp_dir("cli-analyze");
-    let cfg = write(&dir, "wall.toml", &one_zone_config("/dev/null", 1883, k, l * 1000.0, &depths, 10.0));
+    // A measured combined surface coefficient of 10 W/m²K to 25 °C air: the
+    // surface estimate is then exactly 10 (T_shell − 25).
+    let cfg_text = one_zone_config("/dev/null", 1883, k, l * 1000.0, &depths, 10.0).replace(
+        "model = \"quadratic\"",
+        "model = \"quadratic\"\nsurface_h_w_m2k = 10.0\nambient_c = 25.0",
+    );
+    let cfg = write(&dir, "wall.toml", &cfg_text);
     let mut csv = String::from("time,channel,value\n");
     let t_start = 1_800_000_000.0;
     for s in 0..=60 {
@@ -109,9 +151,19 @@ fn analyze_reproduces_a_closed_form_wall() {
     }
     csv += "garbage line\n";
     let samples = write(&dir, "samples.csv", &csv);
-    let o = run(&["analyze", "--config", cfg.to_str().unwrap(), "--samples", samples.to_str().unwrap()]);
+    let o = run(&[
+        "analyze",
+        "--config",
+        cfg.to_str().unwrap(),
+        "--samples",
+        samples.to_str().unwrap(),
+    ]);
     assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
-    assert!(stderr(&o).contains("samples.csv:"), "the garbage line is reported: {}", stderr(&o));
+    assert!(
+        stderr(&o).contains("samples.csv:"),
+        "the garbage line is reported: {}",
+        stderr(&o)
+    );
     let lines: Vec<serde_json::Value> = String::from_utf8_lossy(&o.stdout)
         .lines()
         .map(|l| serde_json::from_str(l).unwrap())
@@ -122,8 +174,13 @@ fn analyze_reproduces_a_closed_form_wall() {
         assert_eq!(v["zone"], "wall");
         assert_eq!(v["schema"], "wallflux.zone/1");
         let rel = |key: &str, want: f64| {
-            let got = v[key].as_f64().unwrap_or_else(|| panic!("state {n}: {key} missing: {v}"));
-            assert!(((got - want) / want).abs() < 0.005, "state {n}: {key} = {got}, want {want}");
+            let got = v[key]
+                .as_f64()
+                .unwrap_or_else(|| panic!("state {n}: {key} missing: {v}"));
+            assert!(
+                ((got - want) / want).abs() < 0.005,
+                "state {n}: {key} = {got}, want {want}"
+            );
         };
         rel("flux_hot_face_w_m2", q0);
         rel("flux_shell_w_m2", q0 + qs * l);
@@ -131,6 +188,10 @@ fn analyze_reproduces_a_closed_form_wall() {
         rel("source_w_m3", qs);
         rel("hot_face_c", t0);
         rel("shell_c", temp(l));
+        rel("flux_surface_w_m2", 10.0 * (temp(l) - 25.0));
+        let mismatch =
+            ((q0 + qs * l) - 10.0 * (temp(l) - 25.0)) / (10.0 * (temp(l) - 25.0)) * 100.0;
+        rel("balance_mismatch_pct", mismatch);
         let status = v["status"].as_str().unwrap();
         let open = v["probes"][1]["status"].as_str().unwrap();
         if n >= 31 {

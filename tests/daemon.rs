@@ -44,7 +44,10 @@ fn feeder(mut pty: Pty, stop: Arc<AtomicBool>) -> std::thread::JoinHandle<()> {
                 let v = if i == 1 && MODE.load(Ordering::Relaxed) == OPEN_PROBE {
                     Value::Open
                 } else {
-                    Value::Reading { value: (temp(*d) * 100.0).round() / 100.0, unit: Unit::Celsius }
+                    Value::Reading {
+                        value: (temp(*d) * 100.0).round() / 100.0,
+                        unit: Unit::Celsius,
+                    }
                 };
                 let _ = values.push((i as u8 + 1, v));
             }
@@ -78,8 +81,14 @@ fn start_daemon(config: &std::path::Path, log: &std::path::Path) -> Child {
 }
 
 fn assert_close(v: &serde_json::Value, key: &str, want: f64, rel: f64) {
-    let got = v[key].as_f64().unwrap_or_else(|| panic!("{key} missing in {v}"));
-    assert!(((got - want) / want).abs() <= rel, "{key} = {got}, want {want} ± {}%", rel * 100.0);
+    let got = v[key]
+        .as_f64()
+        .unwrap_or_else(|| panic!("{key} missing in {v}"));
+    assert!(
+        ((got - want) / want).abs() <= rel,
+        "{key} = {got}, want {want} ± {}%",
+        rel * 100.0
+    );
 }
 
 #[test]
@@ -90,7 +99,11 @@ fn daemon_end_to_end() {
     let rx = subscribe(port, "wf/test-plant/k1/#");
 
     let pty = Pty::open().unwrap();
-    let cfg = write(&dir, "wallflux.toml", &one_zone_config(&pty.path, port, K, 250.0, &DEPTHS_MM, 1.0));
+    let cfg = write(
+        &dir,
+        "wallflux.toml",
+        &one_zone_config(&pty.path, port, K, 250.0, &DEPTHS_MM, 1.0),
+    );
     let log = dir.join("daemon.log");
     let mut daemon = start_daemon(&cfg, &log);
     let stop = Arc::new(AtomicBool::new(false));
@@ -107,14 +120,16 @@ fn daemon_end_to_end() {
     let z = wait_for(&rx, Duration::from_secs(20), "an ok zone state", |m| {
         m.topic == "wf/test-plant/k1/zone/wall/state" && m.json["status"] == "ok"
     });
-    assert!(z.retained || !z.retained, "retained flag read");
     let v = &z.json;
     assert_close(v, "flux_shell_w_m2", Q, 0.005);
     assert_close(v, "flux_hot_face_w_m2", Q, 0.005);
     assert_close(v, "heat_loss_w", Q * 10.0, 0.005);
     assert_close(v, "hot_face_c", T0, 0.005);
     assert_close(v, "shell_c", temp(250.0), 0.005);
-    assert!(v["source_w_m3"].as_f64().unwrap().abs() < 0.005 * Q / 0.25, "{v}");
+    assert!(
+        v["source_w_m3"].as_f64().unwrap().abs() < 0.005 * Q / 0.25,
+        "{v}"
+    );
     assert_eq!(v["probes"].as_array().unwrap().len(), 4);
     assert_close(&v["probes"][0], "measured_c", temp(20.0), 0.001);
     assert!(v["uncertainty"]["flux_shell_w_m2"].as_f64().unwrap() > 0.0);
@@ -145,15 +160,35 @@ fn daemon_end_to_end() {
     // reconnects, says online again and resumes publishing.
     broker.stop();
     std::thread::sleep(Duration::from_millis(1500));
-    assert!(daemon.try_wait().unwrap().is_none(), "daemon exited without a broker:\n{}", log_text());
+    assert!(
+        daemon.try_wait().unwrap().is_none(),
+        "daemon exited without a broker:\n{}",
+        log_text()
+    );
     broker.restart();
-    wait_for(&rx, Duration::from_secs(40), "status online after the broker restart", |m| {
-        m.topic == "wf/test-plant/k1/status" && m.json["state"] == "online"
-    });
-    let z = wait_for(&rx, Duration::from_secs(20), "zone state after the restart", |m| {
-        m.topic == "wf/test-plant/k1/zone/wall/state" && m.json["status"] == "ok"
-    });
+    wait_for(
+        &rx,
+        Duration::from_secs(40),
+        "status online after the broker restart",
+        |m| m.topic == "wf/test-plant/k1/status" && m.json["state"] == "online",
+    );
+    let z = wait_for(
+        &rx,
+        Duration::from_secs(20),
+        "zone state after the restart",
+        |m| m.topic == "wf/test-plant/k1/zone/wall/state" && m.json["status"] == "ok",
+    );
     assert_close(&z.json, "flux_shell_w_m2", Q, 0.005);
+
+    // A subscriber that arrives late gets the retained zone state at once.
+    let late = subscribe(port, "wf/test-plant/k1/zone/+/state");
+    let r = wait_for(
+        &late,
+        Duration::from_secs(10),
+        "a retained zone state",
+        |m| m.retained,
+    );
+    assert_close(&r.json, "flux_shell_w_m2", Q, 0.005);
 
     // SIGTERM: `offline` on the status topic and exit 0.
     // SAFETY: kill(2) on our own child's pid.
@@ -172,5 +207,8 @@ fn daemon_end_to_end() {
     // than bad lines.
     assert!(text.contains("bad line"), "{text}");
     assert!(text.matches("bad line").count() < 10, "{text}");
-    assert!(text.contains("broker lost") || text.contains("unreachable"), "{text}");
+    assert!(
+        text.contains("broker lost") || text.contains("unreachable"),
+        "{text}"
+    );
 }

@@ -122,9 +122,15 @@ pub async fn run(
                             Some(Ok(frame)) => {
                                 health.frames.fetch_add(1, Ordering::Relaxed);
                                 if frame.lost_before > 0 {
-                                    health.lost_scans.fetch_add(u64::from(frame.lost_before), Ordering::Relaxed);
+                                    health
+                                        .lost_scans
+                                        .fetch_add(u64::from(frame.lost_before), Ordering::Relaxed);
                                 }
-                                let msg = SourceFrame { source: index, time: clock.now(), frame };
+                                let msg = SourceFrame {
+                                    source: index,
+                                    time: clock.now(),
+                                    frame,
+                                };
                                 if tx.send(msg).await.is_err() {
                                     return; // the engine has stopped
                                 }
@@ -175,7 +181,10 @@ impl ErrorLog {
             self.first_logged = true;
             self.last_summary = Some(now);
             self.since_summary = 0;
-        } else if self.last_summary.is_none_or(|t| now.duration_since(t) >= ERROR_SUMMARY_EVERY) {
+        } else if self
+            .last_summary
+            .is_none_or(|t| now.duration_since(t) >= ERROR_SUMMARY_EVERY)
+        {
             warn!(source, errors = self.since_summary, last_error = %e, counters = ?counters,
                 "bad lines on the serial source since the last report");
             self.last_summary = Some(now);

@@ -28,7 +28,12 @@ pub fn analyze(config: &Path, samples: &Path) -> Result<(), Failure> {
     let file = std::fs::File::open(samples)
         .map_err(|e| Failure::usage(anyhow!("cannot read samples {}: {e}", samples.display())))?;
     let out = std::io::stdout().lock();
-    let stats = replay(settings, BufReader::new(file), BufWriter::new(out), &samples.display().to_string())?;
+    let stats = replay(
+        settings,
+        BufReader::new(file),
+        BufWriter::new(out),
+        &samples.display().to_string(),
+    )?;
     if stats.bad_rows > 0 || stats.unknown_rows > 0 || stats.out_of_order > 0 {
         eprintln!(
             "wallflux: {}: {} rows used, {} malformed, {} for unknown channels, {} out of time order (skipped)",
@@ -81,7 +86,11 @@ pub fn replay(
     let header = match lines.next() {
         Some(Ok(h)) => h,
         Some(Err(e)) => return Err(Failure::usage(anyhow!("{label}: cannot read: {e}"))),
-        None => return Err(Failure::usage(anyhow!("{label}: empty file (expected header time,channel,value)"))),
+        None => {
+            return Err(Failure::usage(anyhow!(
+                "{label}: empty file (expected header time,channel,value)"
+            )))
+        }
     };
     if header.trim().trim_start_matches('\u{feff}') != "time,channel,value" {
         return Err(Failure::usage(anyhow!(
@@ -134,7 +143,9 @@ pub fn replay(
         let Some(&idx) = by_name.get(ch) else {
             stats.unknown_rows += 1;
             if unknown_reported.len() < 20 && !unknown_reported.iter().any(|u| u == ch) {
-                eprintln!("wallflux: {label}:{n}: no [[channel]] is named {ch:?} (its rows are skipped)");
+                eprintln!(
+                    "wallflux: {label}:{n}: no [[channel]] is named {ch:?} (its rows are skipped)"
+                );
                 unknown_reported.push(ch.to_string());
             }
             continue;

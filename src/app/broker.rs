@@ -59,5 +59,7 @@ pub async fn start(port: u16) -> anyhow::Result<()> {
         }
         tokio::time::sleep(Duration::from_millis(20)).await;
     }
-    Err(anyhow!("embedded MQTT broker did not accept connections on {listen}"))
+    Err(anyhow!(
+        "embedded MQTT broker did not accept connections on {listen}"
+    ))
 }

@@ -8,17 +8,35 @@ pub fn check(path: &Path) -> Result<(), Failure> {
     let s = super::load(path)?;
     println!("{}: configuration ok", path.display());
     println!("  site      {} / {}", s.site.plant, s.site.kiln);
-    println!("  mqtt      {}:{}  topics under {}/", s.mqtt.host, s.mqtt.port, s.topic_root());
+    println!(
+        "  mqtt      {}:{}  topics under {}/",
+        s.mqtt.host,
+        s.mqtt.port,
+        s.topic_root()
+    );
     println!("  state dir {}", s.state_dir.display());
     for src in &s.sources {
-        let n = s.channels.iter().filter(|c| std::ptr::eq(&s.sources[c.source], src)).count();
-        println!("  source    {:<16} line protocol on {} at {} baud, {} channels", src.name, src.port, src.baud, n);
+        let n = s
+            .channels
+            .iter()
+            .filter(|c| std::ptr::eq(&s.sources[c.source], src))
+            .count();
+        println!(
+            "  source    {:<16} line protocol on {} at {} baud, {} channels",
+            src.name, src.port, src.baud, n
+        );
     }
     for z in &s.zones {
         let layers: Vec<String> = z
             .layers
             .iter()
-            .map(|l| format!("{} {:.0} mm", s.materials[l.material].name, l.thickness_m * 1000.0))
+            .map(|l| {
+                format!(
+                    "{} {:.0} mm",
+                    s.materials[l.material].name,
+                    l.thickness_m * 1000.0
+                )
+            })
             .collect();
         println!(
             "  zone      {:<16} {} model, {:.2} m², every {} s, wall {:.0} mm ({})",

@@ -5,7 +5,11 @@ use std::path::PathBuf;
 use clap::{Args, Parser, Subcommand, ValueEnum};
 
 #[derive(Debug, Parser)]
-#[command(name = "wallflux", version, about = "Live through-wall heat flux of kiln, furnace and oven walls, from embedded thermocouples to MQTT.")]
+#[command(
+    name = "wallflux",
+    version,
+    about = "Live through-wall heat flux of kiln, furnace and oven walls, from embedded thermocouples to MQTT."
+)]
 pub struct Cli {
     /// Log line format on stderr.
     #[arg(long, value_enum, default_value_t = LogFormat::Text, global = true)]
@@ -68,7 +72,7 @@ pub struct DemoArgs {
     #[arg(long)]
     pub no_broker: bool,
     /// Simulated seconds per real second.
-    #[arg(long, default_value_t = 240.0)]
+    #[arg(long, default_value_t = 360.0)]
     pub speed: f64,
     /// A configuration to demo instead of the built-in one (its sources are
     /// replaced by simulated pseudo-terminals).

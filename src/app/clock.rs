@@ -51,4 +51,3 @@ impl Clock {
         self.anchor + Duration::from_secs_f64((sim / self.speed).min(1e9))
     }
 }
-

@@ -16,10 +16,9 @@ use tokio::sync::Notify;
 use super::cli::DemoArgs;
 use super::clock::Clock;
 use super::Failure;
-use crate::acquire::line::{encode_frame, Value, Unit, MAX_LINE_BYTES};
+use crate::acquire::line::{encode_frame, Unit, Value, MAX_LINE_BYTES};
 use crate::config::{self, Settings, Signal};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
-use crate::physics::surface::SurfaceParams;
 use crate::physics::thermocouple;
 use crate::sim::firing::FiringSchedule;
 use crate::sim::pty::Pty;
@@ -31,25 +30,30 @@ pub const DEMO_CONFIG: &str = include_str!("../../config/demo.toml");
 
 /// Simulated seconds between two scans of the thermocouple box.
 const SCAN_S: f64 = 10.0;
-/// Hot-face offset of each demo zone from the kiln set-point, °C (demo
-/// data: the door runs cooler, the roof hotter).
-fn zone_offset_c(zone: &str) -> f64 {
-    match zone {
-        "door" => -30.0,
-        "roof" => 12.0,
-        _ => 0.0,
-    }
+/// Hot-face temperature of a demo zone at a kiln set-point: the door runs a
+/// little cooler and the roof a little hotter than the set-point (demo data).
+fn hot_face_c(zone: &str, setpoint_c: f64, ambient_c: f64) -> f64 {
+    let factor = match zone {
+        "door" => 0.975,
+        "roof" => 1.01,
+        _ => 1.0,
+    };
+    ambient_c + (setpoint_c - ambient_c) * factor
 }
 /// Simulated minutes between two terminal summaries.
 const PRINT_EVERY_S: f64 = 30.0 * 60.0;
 
 pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
     if !(args.speed.is_finite() && args.speed > 0.0 && args.speed <= 100_000.0) {
-        return Err(Failure::usage(anyhow!("--speed must be between 0 and 100000, got {}", args.speed)));
+        return Err(Failure::usage(anyhow!(
+            "--speed must be between 0 and 100000, got {}",
+            args.speed
+        )));
     }
     let mut settings = match &args.config {
         Some(path) => super::load(path)?,
-        None => config::parse(DEMO_CONFIG, "built-in demo configuration", None).map_err(Failure::usage)?,
+        None => config::parse(DEMO_CONFIG, "built-in demo configuration", None)
+            .map_err(Failure::usage)?,
     };
     settings.state_dir = std::env::temp_dir().join("wallflux-demo");
     if !args.no_broker {
@@ -59,7 +63,8 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
     // One pseudo-terminal per source.
     let mut ptys = Vec::new();
     for s in settings.sources.iter_mut() {
-        let pty = Pty::open().map_err(|e| Failure::runtime(anyhow!("cannot open a pseudo-terminal: {e}")))?;
+        let pty = Pty::open()
+            .map_err(|e| Failure::runtime(anyhow!("cannot open a pseudo-terminal: {e}")))?;
         s.port = pty.path.clone();
         ptys.push(pty);
     }
@@ -138,17 +143,9 @@ fn simulate(
                 thickness_m: l.thickness_m,
             })
             .collect();
-        let surface = SurfaceParams {
-            orientation: z.orientation,
-            length_m: z.height_m,
-            emissivity: z.emissivity,
-            ambient_c: z.ambient_c,
-            surroundings_c: z.ambient_c,
-            wind_m_s: None,
-        };
-        match WallSim::new(layers, 24, schedule.setpoint_c(0.0), surface) {
+        match WallSim::new(layers, 24, schedule.setpoint_c(0.0), z.surface) {
             Ok(mut w) => {
-                w.settle(schedule.setpoint_c(0.0) + zone_offset_c(&z.name));
+                w.settle(hot_face_c(&z.name, schedule.setpoint_c(0.0), z.ambient_c));
                 walls.push(w);
             }
             Err(e) => {
@@ -162,11 +159,14 @@ fn simulate(
     let place: Vec<Option<(usize, f64)>> = (0..settings.channels.len())
         .map(|c| {
             settings.zones.iter().enumerate().find_map(|(zi, z)| {
-                z.probes.iter().find(|p| p.channel == c).map(|p| (zi, p.depth_m))
+                z.probes
+                    .iter()
+                    .find(|p| p.channel == c)
+                    .map(|p| (zi, p.depth_m))
             })
         })
         .collect();
-    let mut rng = SplitMix64(0x5eed_0f_d3e0);
+    let mut rng = SplitMix64(0x2545_F491_4F6C_DD1D);
     let mut seq: u32 = 0;
     let mut t_sim = 0.0;
     let mut line = heapless::String::<{ MAX_LINE_BYTES + 2 }>::new();
@@ -174,13 +174,17 @@ fn simulate(
     while !stop.load(Ordering::Relaxed) {
         let now_s = clock.now().since(start);
         if t_sim + SCAN_S > now_s {
-            std::thread::sleep(clock.real_duration(t_sim + SCAN_S - now_s).min(Duration::from_millis(200)));
+            std::thread::sleep(
+                clock
+                    .real_duration(t_sim + SCAN_S - now_s)
+                    .min(Duration::from_millis(200)),
+            );
             continue;
         }
         t_sim += SCAN_S;
         let setpoint = schedule.setpoint_c(t_sim);
-        for (zi, w) in walls.iter_mut().enumerate() {
-            w.step(SCAN_S, setpoint + zone_offset_c(&settings.zones[zi].name));
+        for (w, z) in walls.iter_mut().zip(&settings.zones) {
+            w.step(SCAN_S, hot_face_c(&z.name, setpoint, z.ambient_c));
         }
         // The box's terminals warm a little with the kiln (demo data).
         let cj_c = 24.0 + 6.0 * ((setpoint - 20.0) / 1250.0).clamp(0.0, 1.0) + 0.05 * rng.gauss();
@@ -192,13 +196,21 @@ fn simulate(
                 };
                 let t = walls[zi].temperature_at(depth) + 0.15 * rng.gauss();
                 let v = match c.signal {
-                    Signal::Celsius => Value::Reading { value: round(t, 1), unit: Unit::Celsius },
+                    Signal::Celsius => Value::Reading {
+                        value: round(t, 1),
+                        unit: Unit::Celsius,
+                    },
                     Signal::Millivolts => {
-                        let (Ok(e), Ok(e_cj)) = (thermocouple::emf_mv(c.tc_type, t), thermocouple::emf_mv(c.tc_type, cj_c))
-                        else {
+                        let (Ok(e), Ok(e_cj)) = (
+                            thermocouple::emf_mv(c.tc_type, t),
+                            thermocouple::emf_mv(c.tc_type, cj_c),
+                        ) else {
                             continue;
                         };
-                        Value::Reading { value: round(e - e_cj, 3), unit: Unit::Millivolts }
+                        Value::Reading {
+                            value: round(e - e_cj, 3),
+                            unit: Unit::Millivolts,
+                        }
                     }
                 };
                 let _ = values.push((c.input, v));
@@ -215,6 +227,11 @@ fn simulate(
             // Let the daemon publish the last interval, then end.
             std::thread::sleep(clock.real_duration(120.0).min(Duration::from_secs(2)));
             done.notify_one();
+            // Keep the line up until the daemon has stopped, so it does not
+            // report a lost port on the way out.
+            while !stop.load(Ordering::Relaxed) {
+                std::thread::sleep(Duration::from_millis(20));
+            }
             return;
         }
     }
@@ -230,7 +247,9 @@ fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> su
     let mut latest: Vec<Option<ZoneReport>> = vec![None; zones];
     let mut next_print = start.plus_s(PRINT_EVERY_S);
     Box::new(move |r: &ZoneReport| {
-        let slot = latest.iter().position(|l| l.as_ref().is_some_and(|l| l.zone == r.zone));
+        let slot = latest
+            .iter()
+            .position(|l| l.as_ref().is_some_and(|l| l.zone == r.zone));
         match slot {
             Some(i) => latest[i] = Some(r.clone()),
             None => {
@@ -250,18 +269,20 @@ fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> su
             schedule.setpoint_c(t)
         );
         for l in latest.iter().flatten() {
-            let f = |v: Option<f64>, d: usize| v.map_or("     -".to_string(), |x| format!("{x:>6.d$}"));
+            let f =
+                |v: Option<f64>, d: usize| v.map_or("     -".to_string(), |x| format!("{x:>6.d$}"));
             let status = match l.status {
                 ZoneStatus::Ok => "ok",
                 ZoneStatus::Degraded => "DEGRADED",
                 ZoneStatus::InsufficientData => "NO DATA",
             };
             println!(
-                "  {:<10} hot face {} °C  shell {} °C  q_shell {} W/m²  loss {} kW  source {} W/m³  fit rms {} °C  {status}",
+                "  {:<10} hot face {} °C  shell {} °C  q_shell {} W/m² (surface {})  loss {} kW  source {} W/m³  fit rms {} °C  {status}",
                 l.zone,
                 f(l.hot_face_c, 1),
                 f(l.shell_c, 1),
                 f(l.flux_shell_w_m2, 0),
+                f(l.flux_surface_w_m2, 0),
                 f(l.heat_loss_w.map(|w| w / 1000.0), 2),
                 f(l.source_w_m3, 0),
                 f(l.fit_rms_c, 2),

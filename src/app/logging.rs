@@ -6,7 +6,9 @@ use tracing_subscriber::EnvFilter;
 use super::cli::LogFormat;
 
 pub fn init(format: LogFormat, level: Option<&str>) {
-    let default = "info,rumqttd=warn,rumqttc=warn";
+    // The embedded broker logs every probe and client hang-up as an error:
+    // too noisy for the demo; its start-up failures come back as errors.
+    let default = "info,rumqttd=off,rumqttc=warn";
     let filter = match level {
         Some(l) => EnvFilter::try_new(l).unwrap_or_else(|_| EnvFilter::new(default)),
         None => EnvFilter::try_from_default_env().unwrap_or_else(|_| EnvFilter::new(default)),

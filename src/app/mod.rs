@@ -36,10 +36,16 @@ pub struct Failure {
 
 impl Failure {
     pub fn usage(error: impl Into<anyhow::Error>) -> Self {
-        Failure { code: EXIT_USAGE, error: error.into() }
+        Failure {
+            code: EXIT_USAGE,
+            error: error.into(),
+        }
     }
     pub fn runtime(error: impl Into<anyhow::Error>) -> Self {
-        Failure { code: EXIT_RUNTIME, error: error.into() }
+        Failure {
+            code: EXIT_RUNTIME,
+            error: error.into(),
+        }
     }
 }
 
@@ -50,7 +56,9 @@ pub fn main() -> ExitCode {
         Err(e) => {
             let _ = e.print();
             return match e.kind() {
-                clap::error::ErrorKind::DisplayHelp | clap::error::ErrorKind::DisplayVersion => ExitCode::SUCCESS,
+                clap::error::ErrorKind::DisplayHelp | clap::error::ErrorKind::DisplayVersion => {
+                    ExitCode::SUCCESS
+                }
                 _ => ExitCode::from(EXIT_USAGE),
             };
         }
@@ -100,8 +108,12 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
 
 /// Reads and validates a configuration file (exit 2 on any problem).
 pub fn load(path: &Path) -> Result<Settings, Failure> {
-    let text = std::fs::read_to_string(path)
-        .map_err(|e| Failure::usage(anyhow::anyhow!("cannot read configuration {}: {e}", path.display())))?;
+    let text = std::fs::read_to_string(path).map_err(|e| {
+        Failure::usage(anyhow::anyhow!(
+            "cannot read configuration {}: {e}",
+            path.display()
+        ))
+    })?;
     let state_env = std::env::var("STATE_DIRECTORY").ok();
     config::parse(&text, &path.display().to_string(), state_env.as_deref()).map_err(Failure::usage)
 }

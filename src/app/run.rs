@@ -53,7 +53,14 @@ pub async fn run(
     for (i, s) in settings.sources.iter().enumerate() {
         let h = Arc::new(SourceHealth::default());
         source_health.push(h.clone());
-        source_tasks.push(tokio::spawn(serial::run(i, s.clone(), tx.clone(), h, clock, stop_rx.clone())));
+        source_tasks.push(tokio::spawn(serial::run(
+            i,
+            s.clone(),
+            tx.clone(),
+            h,
+            clock,
+            stop_rx.clone(),
+        )));
     }
     drop(tx);
 
@@ -144,17 +151,31 @@ fn drain(
                 payload,
                 kind: Kind::Channel,
             }),
-            Err(e) => warn!(channel = %ch.channel, error = %e, "channel state could not be encoded"),
+            Err(e) => {
+                warn!(channel = %ch.channel, error = %e, "channel state could not be encoded")
+            }
         }
     }
     while let Some(ev) = monitor.poll_event() {
         match ev {
-            Event::ChannelHealth { channel, from, to, reason, .. } => {
+            Event::ChannelHealth {
+                channel,
+                from,
+                to,
+                reason,
+                ..
+            } => {
                 let name = settings.channels[channel].name.as_str();
                 if to == crate::monitor::channel::Health::Ok {
                     info!(channel = name, from = from.name(), "channel ok");
                 } else {
-                    warn!(channel = name, status = to.name(), from = from.name(), reason, "channel fault: excluded from fits");
+                    warn!(
+                        channel = name,
+                        status = to.name(),
+                        from = from.name(),
+                        reason,
+                        "channel fault: excluded from fits"
+                    );
                 }
             }
             Event::UnknownInput { source, input } => {

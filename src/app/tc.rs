@@ -27,9 +27,15 @@ pub fn tc(args: &TcArgs) -> Result<(), Failure> {
     if let Some(t) = args.celsius {
         let mv = thermocouple::emf_mv(tc, t).map_err(|e| Failure::usage(anyhow!("{e}")))?;
         if args.json {
-            println!("{}", serde_json::json!({"type": letter, "celsius": t, "millivolts": round(mv, 3)}));
+            println!(
+                "{}",
+                serde_json::json!({"type": letter, "celsius": t, "millivolts": round(mv, 3)})
+            );
         } else {
-            println!("type {letter}: {t} °C = {:.3} mV (ITS-90, 0 °C reference junction)", mv);
+            println!(
+                "type {letter}: {t} °C = {:.3} mV (ITS-90, 0 °C reference junction)",
+                mv
+            );
         }
         return Ok(());
     }
@@ -45,9 +51,15 @@ pub fn tc(args: &TcArgs) -> Result<(), Failure> {
         }
         println!("{v}");
     } else if args.cj_c.is_some() {
-        println!("type {letter}: {mv} mV with the cold junction at {cj} °C = {:.2} °C (ITS-90)", t);
+        println!(
+            "type {letter}: {mv} mV with the cold junction at {cj} °C = {:.2} °C (ITS-90)",
+            t
+        );
     } else {
-        println!("type {letter}: {mv} mV = {:.2} °C (ITS-90, 0 °C reference junction)", t);
+        println!(
+            "type {letter}: {mv} mV = {:.2} °C (ITS-90, 0 °C reference junction)",
+            t
+        );
     }
     Ok(())
 }

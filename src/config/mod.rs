@@ -9,7 +9,7 @@ mod validate;
 use std::path::PathBuf;
 
 use crate::physics::material::Material;
-use crate::physics::surface::Orientation;
+use crate::physics::surface::{Orientation, SurfaceParams};
 use crate::physics::thermocouple::TcType;
 use crate::physics::tolerance::ToleranceClass;
 
@@ -158,6 +158,12 @@ pub struct Zone {
     pub height_m: f64,
     pub emissivity: f64,
     pub ambient_c: f64,
+    /// The shell's surface: orientation, length, emissivity, ambient,
+    /// surroundings and wind, for the surface heat-loss cross-check.
+    pub surface: SurfaceParams,
+    /// A measured combined surface coefficient, W/(m²·K), used instead of
+    /// the correlations when a site has one.
+    pub surface_h_w_m2k: Option<f64>,
     /// Window of the measured-rate regression, s.
     pub rate_window_s: f64,
     pub layers: Vec<ZoneLayer>,
@@ -174,7 +180,10 @@ impl Zone {
 impl Settings {
     /// MQTT topic root: `{topic_root}/{plant}/{kiln}`.
     pub fn topic_root(&self) -> String {
-        format!("{}/{}/{}", self.mqtt.topic_root, self.site.plant, self.site.kiln)
+        format!(
+            "{}/{}/{}",
+            self.mqtt.topic_root, self.site.plant, self.site.kiln
+        )
     }
 
     /// The channel index fed by `input` of `source`, if any.

@@ -87,7 +87,9 @@ impl<'de> Deserialize<'de> for RawProperty {
         impl<'de> serde::de::Visitor<'de> for V {
             type Value = RawProperty;
             fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
-                f.write_str("a number or a table of [t_c, value] pairs, e.g. [[200.0, 1.1], [1000.0, 1.3]]")
+                f.write_str(
+                    "a number or a table of [t_c, value] pairs, e.g. [[200.0, 1.1], [1000.0, 1.3]]",
+                )
             }
             fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<RawProperty, E> {
                 Ok(RawProperty::Constant(v))
@@ -95,7 +97,10 @@ impl<'de> Deserialize<'de> for RawProperty {
             fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<RawProperty, E> {
                 Ok(RawProperty::Constant(v as f64))
             }
-            fn visit_seq<A: serde::de::SeqAccess<'de>>(self, mut seq: A) -> Result<RawProperty, A::Error> {
+            fn visit_seq<A: serde::de::SeqAccess<'de>>(
+                self,
+                mut seq: A,
+            ) -> Result<RawProperty, A::Error> {
                 let mut points = Vec::new();
                 while let Some(p) = seq.next_element::<[f64; 2]>()? {
                     points.push(p);
@@ -142,6 +147,9 @@ pub struct RawZone {
     pub height_m: Option<S<f64>>,
     pub emissivity: Option<S<f64>>,
     pub ambient_c: Option<S<f64>>,
+    pub surroundings_c: Option<S<f64>>,
+    pub wind_m_s: Option<S<f64>>,
+    pub surface_h_w_m2k: Option<S<f64>>,
     pub rate_window_s: Option<S<f64>>,
     pub layers: S<Vec<S<RawLayer>>>,
     pub probes: S<Vec<S<RawProbe>>>,

@@ -25,7 +25,10 @@ fn shipped_configs_load() {
     let d = parse(DEMO, "demo.toml", Some("/run/x:/run/y")).unwrap();
     assert_eq!(d.zones.len(), 3);
     assert_eq!(d.state_dir, std::path::PathBuf::from("/run/x"));
-    assert_eq!(d.channel_for(0, 9).map(|c| d.channels[c].name.as_str()), Some("door-30"));
+    assert_eq!(
+        d.channel_for(0, 9).map(|c| d.channels[c].name.as_str()),
+        Some("door-30")
+    );
     assert_eq!(d.channels[5].signal, Signal::Millivolts);
 }
 
@@ -34,7 +37,11 @@ fn unknown_key_names_its_line() {
     let text = EXAMPLE.replace("keep_alive_s = 30", "keep_alive_s = 30\nkeepalive = 5");
     let p = problems(&text);
     assert_eq!(p.len(), 1);
-    let line = text.lines().position(|l| l.starts_with("keepalive")).unwrap() + 1;
+    let line = text
+        .lines()
+        .position(|l| l.starts_with("keepalive"))
+        .unwrap()
+        + 1;
     assert_eq!(p[0].line, Some(line));
     assert!(p[0].message.contains("keepalive"), "{}", p[0].message);
 }
@@ -42,12 +49,24 @@ fn unknown_key_names_its_line() {
 #[test]
 fn every_problem_is_reported_with_path_and_line() {
     let text = EXAMPLE
-        .replace("source = \"box-a\"\ninput = 2", "source = \"box-b\"\ninput = 2")
-        .replace("type = \"K\"\ntolerance = \"iec-class-2\"", "type = \"Q\"\ntolerance = \"iec-class-2\"")
+        .replace(
+            "source = \"box-a\"\ninput = 2",
+            "source = \"box-b\"\ninput = 2",
+        )
+        .replace(
+            "type = \"K\"\ntolerance = \"iec-class-2\"",
+            "type = \"Q\"\ntolerance = \"iec-class-2\"",
+        )
         .replace("emissivity = 0.8 ", "emissivity = 1.3 ")
-        .replace("{ channel = \"w1-200\", depth_mm = 200 }", "{ channel = \"w1-200\", depth_mm = 400 }")
+        .replace(
+            "{ channel = \"w1-200\", depth_mm = 200 }",
+            "{ channel = \"w1-200\", depth_mm = 400 }",
+        )
         .replace("interval_s = 10 ", "interval_s = 0 ")
-        .replace("material = \"castable-a\", thickness_mm", "material = \"castable-b\", thickness_mm");
+        .replace(
+            "material = \"castable-a\", thickness_mm",
+            "material = \"castable-b\", thickness_mm",
+        );
     let p = problems(&text);
     let find = |path: &str| {
         p.iter()
@@ -57,20 +76,44 @@ fn every_problem_is_reported_with_path_and_line() {
     let line_of = |needle: &str| text.lines().position(|l| l.contains(needle)).unwrap() + 1;
     assert_eq!(find("channel[1].source").line, Some(line_of("\"box-b\"")));
     assert_eq!(find("channel[3].type").line, Some(line_of("\"Q\"")));
-    assert_eq!(find("zone[0].emissivity").line, Some(line_of("emissivity = 1.3")));
-    assert_eq!(find("zone[0].probes[2].depth_mm").line, Some(line_of("depth_mm = 400")));
-    assert!(find("zone[0].probes[2].depth_mm").message.contains("250.0 mm"));
-    assert_eq!(find("zone[0].interval_s").line, Some(line_of("interval_s = 0 ")));
-    assert_eq!(find("zone[0].layers[0].material").line, Some(line_of("castable-b")));
+    assert_eq!(
+        find("zone[0].emissivity").line,
+        Some(line_of("emissivity = 1.3"))
+    );
+    assert_eq!(
+        find("zone[0].probes[2].depth_mm").line,
+        Some(line_of("depth_mm = 400"))
+    );
+    assert!(find("zone[0].probes[2].depth_mm")
+        .message
+        .contains("250.0 mm"));
+    assert_eq!(
+        find("zone[0].interval_s").line,
+        Some(line_of("interval_s = 0 "))
+    );
+    assert_eq!(
+        find("zone[0].layers[0].material").line,
+        Some(line_of("castable-b"))
+    );
     assert_eq!(p.len(), 6, "{p:#?}");
 }
 
 #[test]
 fn duplicates_and_references() {
-    let text = EXAMPLE.replace("name = \"w1-120\"", "name = \"w1-40\"").replace("input = 3", "input = 1");
+    let text = EXAMPLE
+        .replace("name = \"w1-120\"", "name = \"w1-40\"")
+        .replace("input = 3", "input = 1");
     let p = problems(&text);
-    assert!(p.iter().any(|x| x.path == "channel[1].name" && x.message.contains("channel[0]")), "{p:#?}");
-    assert!(p.iter().any(|x| x.path == "channel[2].input" && x.message.contains("channel[0]")), "{p:#?}");
+    assert!(
+        p.iter()
+            .any(|x| x.path == "channel[1].name" && x.message.contains("channel[0]")),
+        "{p:#?}"
+    );
+    assert!(
+        p.iter()
+            .any(|x| x.path == "channel[2].input" && x.message.contains("channel[0]")),
+        "{p:#?}"
+    );
 }
 
 #[test]
@@ -91,16 +134,43 @@ fn bad_values_are_refused() {
         ("baud = 115200", "baud = 12", "source[0].baud"),
         ("input = 4", "input = 65", "channel[3].input"),
         ("area_m2 = 12.0", "area_m2 = -1.0", "zone[0].area_m2"),
-        ("density_kg_m3 = 2200.0", "density_kg_m3 = 0.0", "material[0].density_kg_m3"),
-        ("[[200.0, 1.05], [600.0, 1.10]", "[[600.0, 1.05], [200.0, 1.10]", "material[0].conductivity_w_mk"),
-        ("tolerance = \"iec-class-1\"", "tolerance = \"class-a\"", "channel[0].tolerance"),
-        ("model = \"quadratic\"", "model = \"cubic\"", "zone[0].model"),
-        ("name = \"north-wall\"", "name = \"north wall\"", "zone[0].name"),
-        ("topic_root = \"wallflux\"", "topic_root = \"wall/#\"", "mqtt.topic_root"),
+        (
+            "density_kg_m3 = 2200.0",
+            "density_kg_m3 = 0.0",
+            "material[0].density_kg_m3",
+        ),
+        (
+            "[[200.0, 1.05], [600.0, 1.10]",
+            "[[600.0, 1.05], [200.0, 1.10]",
+            "material[0].conductivity_w_mk",
+        ),
+        (
+            "tolerance = \"iec-class-1\"",
+            "tolerance = \"class-a\"",
+            "channel[0].tolerance",
+        ),
+        (
+            "model = \"quadratic\"",
+            "model = \"cubic\"",
+            "zone[0].model",
+        ),
+        (
+            "name = \"north-wall\"",
+            "name = \"north wall\"",
+            "zone[0].name",
+        ),
+        (
+            "topic_root = \"wallflux\"",
+            "topic_root = \"wall/#\"",
+            "mqtt.topic_root",
+        ),
     ] {
         assert!(EXAMPLE.contains(from), "{from}");
         let p = problems(&EXAMPLE.replacen(from, to, 1));
-        assert!(p.iter().any(|x| x.path == path && x.line.is_some()), "{from} → {to}: {p:#?}");
+        assert!(
+            p.iter().any(|x| x.path == path && x.line.is_some()),
+            "{from} → {to}: {p:#?}"
+        );
     }
 }
 

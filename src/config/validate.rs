@@ -109,7 +109,11 @@ fn truncate(s: &str, max: usize) -> &str {
 
 fn line_of(text: &str, byte: usize) -> usize {
     let end = byte.min(text.len());
-    text.as_bytes()[..end].iter().filter(|&&b| b == b'\n').count() + 1
+    text.as_bytes()[..end]
+        .iter()
+        .filter(|&&b| b == b'\n')
+        .count()
+        + 1
 }
 
 struct Validator<'t> {
@@ -149,7 +153,11 @@ impl Validator<'_> {
     fn positive(&mut self, s: &Spanned<f64>, path: &str, unit: &str) -> f64 {
         let v = *s.get_ref();
         if !(v.is_finite() && v > 0.0) {
-            self.problem(s.span(), path, format!("must be a positive number of {unit}, got {v}"));
+            self.problem(
+                s.span(),
+                path,
+                format!("must be a positive number of {unit}, got {v}"),
+            );
         }
         v
     }
@@ -201,7 +209,11 @@ impl Validator<'_> {
             summary_every: match raw.log.as_ref().and_then(|l| l.summary_every.as_ref()) {
                 Some(s) if (1..=1_000_000).contains(s.get_ref()) => *s.get_ref() as u32,
                 Some(s) => {
-                    self.problem(s.span(), "log.summary_every", "must be 1 to 1000000 intervals");
+                    self.problem(
+                        s.span(),
+                        "log.summary_every",
+                        "must be 1 to 1000000 intervals",
+                    );
                     1
                 }
                 None => 6,
@@ -319,7 +331,11 @@ impl Validator<'_> {
         let port = match &m.port {
             Some(p) if (1..=65535).contains(p.get_ref()) => *p.get_ref() as u16,
             Some(p) => {
-                self.problem(p.span(), "mqtt.port", format!("must be 1 to 65535, got {}", p.get_ref()));
+                self.problem(
+                    p.span(),
+                    "mqtt.port",
+                    format!("must be 1 to 65535, got {}", p.get_ref()),
+                );
                 1883
             }
             None => 1883,
@@ -368,7 +384,11 @@ impl Validator<'_> {
         let queue_capacity = match &m.queue_capacity {
             Some(q) if (8..=100_000).contains(q.get_ref()) => *q.get_ref() as usize,
             Some(q) => {
-                self.problem(q.span(), "mqtt.queue_capacity", "must be 8 to 100000 messages");
+                self.problem(
+                    q.span(),
+                    "mqtt.queue_capacity",
+                    "must be 8 to 100000 messages",
+                );
                 256
             }
             None => 256,
@@ -397,17 +417,29 @@ impl Validator<'_> {
                 SourceKind::Line
             }
             other => {
-                self.problem(s.kind.span(), p("kind"), format!("{other:?} is not a source kind; use \"line\""));
+                self.problem(
+                    s.kind.span(),
+                    p("kind"),
+                    format!("{other:?} is not a source kind; use \"line\""),
+                );
                 SourceKind::Line
             }
         };
         if s.port.get_ref().is_empty() {
-            self.problem(s.port.span(), p("port"), "must name a serial device, e.g. /dev/ttyUSB0");
+            self.problem(
+                s.port.span(),
+                p("port"),
+                "must name a serial device, e.g. /dev/ttyUSB0",
+            );
         }
         let baud = match &s.baud {
             Some(b) if (300..=4_000_000).contains(b.get_ref()) => *b.get_ref() as u32,
             Some(b) => {
-                self.problem(b.span(), p("baud"), format!("{} is not a usable baud rate (300 to 4000000)", b.get_ref()));
+                self.problem(
+                    b.span(),
+                    p("baud"),
+                    format!("{} is not a usable baud rate (300 to 4000000)", b.get_ref()),
+                );
                 9600
             }
             None => 9600,
@@ -415,7 +447,11 @@ impl Validator<'_> {
         let cj_c = s.cj_c.as_ref().map(|c| {
             let v = self.finite(c, &p("cj_c"));
             if !(-50.0..=150.0).contains(&v) {
-                self.problem(c.span(), p("cj_c"), format!("{v} °C is not a plausible terminal temperature (-50 to 150 °C)"));
+                self.problem(
+                    c.span(),
+                    p("cj_c"),
+                    format!("{v} °C is not a plausible terminal temperature (-50 to 150 °C)"),
+                );
             }
             v
         });
@@ -436,7 +472,10 @@ impl Validator<'_> {
     fn channel(&mut self, i: usize, c: &RawChannel, sources: &[Source]) -> Channel {
         let p = |k: &str| format!("channel[{i}].{k}");
         let name = self.name(&c.name, &p("name"));
-        let source = match sources.iter().position(|s| s.name.as_str() == c.source.get_ref()) {
+        let source = match sources
+            .iter()
+            .position(|s| s.name.as_str() == c.source.get_ref())
+        {
             Some(s) => s,
             None => {
                 self.problem(
@@ -450,7 +489,11 @@ impl Validator<'_> {
         let input = match *c.input.get_ref() {
             n @ 1..=64 => n as u8,
             n => {
-                self.problem(c.input.span(), p("input"), format!("must be 1 to 64, got {n}"));
+                self.problem(
+                    c.input.span(),
+                    p("input"),
+                    format!("must be 1 to 64, got {n}"),
+                );
                 0
             }
         };
@@ -460,7 +503,10 @@ impl Validator<'_> {
                 self.problem(
                     c.tc_type.span(),
                     p("type"),
-                    format!("{:?} is not a thermocouple type; use one of B E J K N R S T", c.tc_type.get_ref()),
+                    format!(
+                        "{:?} is not a thermocouple type; use one of B E J K N R S T",
+                        c.tc_type.get_ref()
+                    ),
                 );
                 TcType::K
             }
@@ -470,7 +516,11 @@ impl Validator<'_> {
             Some("millivolts") => Signal::Millivolts,
             Some(other) => {
                 let span = c.signal.as_ref().map(|s| s.span()).unwrap_or_default();
-                self.problem(span, p("signal"), format!("{other:?} is not a signal; use \"celsius\" or \"millivolts\""));
+                self.problem(
+                    span,
+                    p("signal"),
+                    format!("{other:?} is not a signal; use \"celsius\" or \"millivolts\""),
+                );
                 Signal::Celsius
             }
         };
@@ -526,10 +576,21 @@ impl Validator<'_> {
     fn material(&mut self, i: usize, m: &RawMaterial) -> NamedMaterial {
         let p = |k: &str| format!("material[{i}].{k}");
         let name = self.name(&m.name, &p("name"));
-        let conductivity_w_mk = self.property(&m.conductivity_w_mk, &p("conductivity_w_mk"), "conductivity (W/m·K)");
-        let specific_heat_j_kgk = self.property(&m.specific_heat_j_kgk, &p("specific_heat_j_kgk"), "specific heat (J/kg·K)");
+        let conductivity_w_mk = self.property(
+            &m.conductivity_w_mk,
+            &p("conductivity_w_mk"),
+            "conductivity (W/m·K)",
+        );
+        let specific_heat_j_kgk = self.property(
+            &m.specific_heat_j_kgk,
+            &p("specific_heat_j_kgk"),
+            "specific heat (J/kg·K)",
+        );
         let density_kg_m3 = self.positive(&m.density_kg_m3, &p("density_kg_m3"), "kg/m³");
-        let max_service_c = m.max_service_c.as_ref().map(|v| self.finite(v, &p("max_service_c")));
+        let max_service_c = m
+            .max_service_c
+            .as_ref()
+            .map(|v| self.finite(v, &p("max_service_c")));
         NamedMaterial {
             name,
             material: Material {
@@ -564,7 +625,11 @@ impl Validator<'_> {
                 Model::Quadratic
             }
             other => {
-                self.problem(z.model.span(), p("model"), format!("{other:?} is not a model; use \"quadratic\""));
+                self.problem(
+                    z.model.span(),
+                    p("model"),
+                    format!("{other:?} is not a model; use \"quadratic\""),
+                );
                 Model::Quadratic
             }
         };
@@ -574,7 +639,11 @@ impl Validator<'_> {
             Some("floor") => Orientation::Floor,
             Some(other) => {
                 let span = z.orientation.as_ref().map(|o| o.span()).unwrap_or_default();
-                self.problem(span, p("orientation"), format!("{other:?} is not an orientation; use vertical, roof or floor"));
+                self.problem(
+                    span,
+                    p("orientation"),
+                    format!("{other:?} is not an orientation; use vertical, roof or floor"),
+                );
                 Orientation::Vertical
             }
         };
@@ -586,29 +655,68 @@ impl Validator<'_> {
             Some(e) => {
                 let v = *e.get_ref();
                 if !(0.0..=1.0).contains(&v) {
-                    self.problem(e.span(), p("emissivity"), format!("must be between 0 and 1, got {v}"));
+                    self.problem(
+                        e.span(),
+                        p("emissivity"),
+                        format!("must be between 0 and 1, got {v}"),
+                    );
                 }
                 v
             }
             None => 0.8,
         };
-        let ambient_c = z.ambient_c.as_ref().map_or(25.0, |a| self.finite(a, &p("ambient_c")));
+        let ambient_c = z
+            .ambient_c
+            .as_ref()
+            .map_or(25.0, |a| self.finite(a, &p("ambient_c")));
+        let surroundings_c = z
+            .surroundings_c
+            .as_ref()
+            .map_or(ambient_c, |a| self.finite(a, &p("surroundings_c")));
+        let wind_m_s = z.wind_m_s.as_ref().map(|w| {
+            let v = *w.get_ref();
+            if !(v.is_finite() && (0.0..=60.0).contains(&v)) {
+                self.problem(
+                    w.span(),
+                    p("wind_m_s"),
+                    format!("must be 0 to 60 m/s, got {v}"),
+                );
+            }
+            v
+        });
+        let surface_h_w_m2k = z
+            .surface_h_w_m2k
+            .as_ref()
+            .map(|h| self.positive(h, &p("surface_h_w_m2k"), "W/(m²·K)"));
         let rate_window_s = z
             .rate_window_s
             .as_ref()
-            .map_or(600.0_f64.max(3.0 * interval_s), |w| self.positive(w, &p("rate_window_s"), "seconds"));
+            .map_or(600.0_f64.max(3.0 * interval_s), |w| {
+                self.positive(w, &p("rate_window_s"), "seconds")
+            });
 
         let mut layers = Vec::new();
         if z.layers.get_ref().is_empty() {
-            self.problem(z.layers.span(), p("layers"), "a wall needs at least one layer");
+            self.problem(
+                z.layers.span(),
+                p("layers"),
+                "a wall needs at least one layer",
+            );
         }
         if z.layers.get_ref().len() > MAX_LAYERS {
-            self.problem(z.layers.span(), p("layers"), format!("at most {MAX_LAYERS} layers"));
+            self.problem(
+                z.layers.span(),
+                p("layers"),
+                format!("at most {MAX_LAYERS} layers"),
+            );
         }
         for (j, l) in z.layers.get_ref().iter().enumerate() {
             let l = l.get_ref();
             let lp = format!("zone[{i}].layers[{j}]");
-            let material = match materials.iter().position(|m| m.name.as_str() == l.material.get_ref()) {
+            let material = match materials
+                .iter()
+                .position(|m| m.name.as_str() == l.material.get_ref())
+            {
                 Some(m) => m,
                 None => {
                     self.problem(
@@ -639,7 +747,11 @@ impl Validator<'_> {
 
         let mut probes = Vec::new();
         if z.probes.get_ref().len() > MAX_PROBES {
-            self.problem(z.probes.span(), p("probes"), format!("at most {MAX_PROBES} probes per zone"));
+            self.problem(
+                z.probes.span(),
+                p("probes"),
+                format!("at most {MAX_PROBES} probes per zone"),
+            );
         }
         if z.probes.get_ref().len() < 2 {
             self.problem(
@@ -651,7 +763,10 @@ impl Validator<'_> {
         for (j, pr) in z.probes.get_ref().iter().enumerate() {
             let pr = pr.get_ref();
             let pp = format!("zone[{i}].probes[{j}]");
-            let channel = match channels.iter().position(|c| c.name.as_str() == pr.channel.get_ref()) {
+            let channel = match channels
+                .iter()
+                .position(|c| c.name.as_str() == pr.channel.get_ref())
+            {
                 Some(c) => c,
                 None => {
                     self.problem(
@@ -662,15 +777,24 @@ impl Validator<'_> {
                     usize::MAX
                 }
             };
-            if let Some(first) = probes.iter().position(|q: &Probe| q.channel == channel && channel != usize::MAX) {
+            if let Some(first) = probes
+                .iter()
+                .position(|q: &Probe| q.channel == channel && channel != usize::MAX)
+            {
                 self.problem(
                     pr.channel.span(),
                     format!("{pp}.channel"),
-                    format!("channel {:?} is already probes[{first}] of this zone", pr.channel.get_ref()),
+                    format!(
+                        "channel {:?} is already probes[{first}] of this zone",
+                        pr.channel.get_ref()
+                    ),
                 );
             }
             let depth_mm = *pr.depth_mm.get_ref();
-            if !depth_mm.is_finite() || depth_mm < 0.0 || (thickness_m > 0.0 && depth_mm > thickness_m * 1000.0 + 1e-9) {
+            if !depth_mm.is_finite()
+                || depth_mm < 0.0
+                || (thickness_m > 0.0 && depth_mm > thickness_m * 1000.0 + 1e-9)
+            {
                 self.problem(
                     pr.depth_mm.span(),
                     format!("{pp}.depth_mm"),
@@ -694,6 +818,15 @@ impl Validator<'_> {
             height_m,
             emissivity,
             ambient_c,
+            surface: SurfaceParams {
+                orientation,
+                length_m: height_m,
+                emissivity,
+                ambient_c,
+                surroundings_c,
+                wind_m_s,
+            },
+            surface_h_w_m2k,
             rate_window_s,
             layers,
             probes,

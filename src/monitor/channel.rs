@@ -83,7 +83,9 @@ impl ChannelState {
     pub fn health_at(&self, now: Timestamp, stale_after_s: f64) -> (Health, &'static str) {
         match self.last_seen {
             None => (Health::NoData, "nothing received yet"),
-            Some(t) if now.since(t) > stale_after_s => (Health::Stale, "no reading within the staleness limit"),
+            Some(t) if now.since(t) > stale_after_s => {
+                (Health::Stale, "no reading within the staleness limit")
+            }
             Some(_) => (self.value_health, self.reason),
         }
     }
@@ -101,7 +103,11 @@ impl ChannelState {
 /// checked); mV is cold-junction compensated the ITS-90 way (EMF of the
 /// junction added before inversion). `cj_c` is the frame's cold junction,
 /// else the source's fixed one.
-pub fn convert(channel: &Channel, value: Value, cj_c: Option<f64>) -> Result<f64, (Health, &'static str)> {
+pub fn convert(
+    channel: &Channel,
+    value: Value,
+    cj_c: Option<f64>,
+) -> Result<f64, (Health, &'static str)> {
     let (v, unit) = match value {
         Value::Open => return Err((Health::Open, "the source reports an open thermocouple")),
         Value::Reading { value, unit } => (value, unit),
@@ -112,12 +118,18 @@ pub fn convert(channel: &Channel, value: Value, cj_c: Option<f64>) -> Result<f64
             // beyond it the source extrapolated or the wire is faulty.
             match thermocouple::emf_mv(channel.tc_type, v) {
                 Ok(_) => Ok(v),
-                Err(_) => Err((Health::OutOfRange, "temperature outside the thermocouple type's range")),
+                Err(_) => Err((
+                    Health::OutOfRange,
+                    "temperature outside the thermocouple type's range",
+                )),
             }
         }
         (Signal::Millivolts, Unit::Millivolts) => {
             let Some(cj) = cj_c else {
-                return Err((Health::Invalid, "millivolts without a cold-junction temperature"));
+                return Err((
+                    Health::Invalid,
+                    "millivolts without a cold-junction temperature",
+                ));
             };
             match thermocouple::compensated_c(channel.tc_type, v, cj) {
                 Ok(t) => Ok(t),
@@ -130,12 +142,14 @@ pub fn convert(channel: &Channel, value: Value, cj_c: Option<f64>) -> Result<f64
                 )),
             }
         }
-        (Signal::Celsius, Unit::Millivolts) => {
-            Err((Health::Invalid, "millivolts received on a channel configured for celsius"))
-        }
-        (Signal::Millivolts, Unit::Celsius) => {
-            Err((Health::Invalid, "celsius received on a channel configured for millivolts"))
-        }
+        (Signal::Celsius, Unit::Millivolts) => Err((
+            Health::Invalid,
+            "millivolts received on a channel configured for celsius",
+        )),
+        (Signal::Millivolts, Unit::Celsius) => Err((
+            Health::Invalid,
+            "celsius received on a channel configured for millivolts",
+        )),
     }
 }
 

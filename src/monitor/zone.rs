@@ -9,6 +9,7 @@ use super::channel::{ChannelState, Health};
 use crate::config::{Name, Settings, Zone, MAX_PROBES};
 use crate::physics::fit::linear_slope;
 use crate::physics::profile::{ProbeSample, QuadraticWall};
+use crate::physics::surface::{surface_loss, SurfaceLoss};
 use crate::time::Timestamp;
 
 /// Schema tag of the zone-state payload.
@@ -77,6 +78,15 @@ pub struct ZoneReport {
     pub source_w_m3: Option<f64>,
     pub fit_rms_c: Option<f64>,
     pub fit_degree: Option<u8>,
+    /// Shell loss from the shell temperature alone (convection + radiation,
+    /// or the configured combined coefficient), W/m².
+    pub flux_surface_w_m2: Option<f64>,
+    pub h_convection_w_m2k: Option<f64>,
+    pub h_radiation_w_m2k: Option<f64>,
+    /// (Fourier flux at the shell − surface estimate) / surface estimate, %.
+    /// Large values point at a failed shell thermocouple, wet insulation or
+    /// a wall that is not at the state the model assumes.
+    pub balance_mismatch_pct: Option<f64>,
     pub probes_used: u8,
     pub uncertainty: Option<Uncertainty>,
     pub probes: HVec<ProbeReport, MAX_PROBES>,
@@ -118,7 +128,12 @@ impl ZoneEngine {
     }
 
     /// Runs one cycle at `now` over the channels' current states.
-    pub fn cycle(&mut self, settings: &Settings, channels: &[ChannelState], now: Timestamp) -> ZoneReport {
+    pub fn cycle(
+        &mut self,
+        settings: &Settings,
+        channels: &[ChannelState],
+        now: Timestamp,
+    ) -> ZoneReport {
         let zone = &settings.zones[self.index];
         self.cycles += 1;
         let max_age_s = STALE_INTERVALS * zone.interval_s;
@@ -139,11 +154,19 @@ impl ZoneEngine {
             let mut rate = None;
             if let Some(r) = fresh {
                 let t = r.time.since(self.origin);
-                let newer = track.history.recent().is_none_or(|&(t0, _)| t - t0 >= spacing_s);
+                let newer = track
+                    .history
+                    .recent()
+                    .is_none_or(|&(t0, _)| t - t0 >= spacing_s);
                 if newer {
                     track.history.write((t, r.celsius));
                 }
-                rate = measured_rate_c_per_h(&track.history, now.since(self.origin), zone.rate_window_s, zone.interval_s);
+                rate = measured_rate_c_per_h(
+                    &track.history,
+                    now.since(self.origin),
+                    zone.rate_window_s,
+                    zone.interval_s,
+                );
                 let _ = samples.push(ProbeSample {
                     depth_m: probe.depth_m,
                     temp_c: r.celsius,
@@ -175,6 +198,10 @@ impl ZoneEngine {
             source_w_m3: None,
             fit_rms_c: None,
             fit_degree: None,
+            flux_surface_w_m2: None,
+            h_convection_w_m2k: None,
+            h_radiation_w_m2k: None,
+            balance_mismatch_pct: None,
             probes_used: samples.len() as u8,
             uncertainty: None,
             probes,
@@ -196,6 +223,11 @@ impl ZoneEngine {
         report.source_w_m3 = Some(sol.source_w_m3);
         report.fit_rms_c = Some(sol.fit_rms_c);
         report.fit_degree = Some(sol.degree as u8);
+        let surface = shell_surface(zone, sol.shell_c);
+        report.flux_surface_w_m2 = Some(surface.flux_w_m2);
+        report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
+        report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
+        report.balance_mismatch_pct = mismatch_pct(sol.flux_shell_w_m2, surface.flux_w_m2);
         report.uncertainty = Some(Uncertainty {
             hot_face_c: sol.sigma_hot_face_c,
             flux_hot_face_w_m2: sol.sigma_flux_hot_face_w_m2,
@@ -209,6 +241,29 @@ impl ZoneEngine {
         }
         report
     }
+}
+
+/// Heat lost by the shell surface at `shell_c`: the configured combined
+/// coefficient (all of it reported as convection), or the natural/forced
+/// convection and radiation correlations of `physics::surface`.
+pub fn shell_surface(zone: &Zone, shell_c: f64) -> SurfaceLoss {
+    match zone.surface_h_w_m2k {
+        Some(h) => SurfaceLoss {
+            h_convection_w_m2k: h,
+            h_radiation_w_m2k: 0.0,
+            flux_w_m2: h * (shell_c - zone.surface.ambient_c),
+        },
+        None => surface_loss(shell_c, &zone.surface),
+    }
+}
+
+/// Relative mismatch of two flux estimates, %; None when the reference is
+/// too small for a percentage to mean anything (|q| < 1 W/m²).
+fn mismatch_pct(fourier_w_m2: f64, surface_w_m2: f64) -> Option<f64> {
+    if surface_w_m2.abs() < 1.0 || !fourier_w_m2.is_finite() {
+        return None;
+    }
+    Some((fourier_w_m2 - surface_w_m2) / surface_w_m2 * 100.0)
 }
 
 /// Least-squares slope of the probe's history over the window ending at

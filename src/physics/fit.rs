@@ -496,8 +496,8 @@ pub(crate) mod test_rng {
     pub(crate) struct SplitMix64(u64);
 
     impl SplitMix64 {
-        pub(crate) fn new(seed: u64) -> Self {
-            SplitMix64(seed)
+        pub(crate) fn new(state: u64) -> Self {
+            SplitMix64(state)
         }
 
         pub(crate) fn next_u64(&mut self) -> u64 {

@@ -217,8 +217,11 @@ mod tests {
     #[test]
     fn linear_table_integrates_exactly() {
         let k = |t: f64| 0.9 * (1.0 + 5e-4 * t);
-        let p = Property::table("k", &[(0.0, k(0.0)), (600.0, k(600.0)), (1400.0, k(1400.0))])
-            .unwrap();
+        let p = Property::table(
+            "k",
+            &[(0.0, k(0.0)), (600.0, k(600.0)), (1400.0, k(1400.0))],
+        )
+        .unwrap();
         let closed = |t: f64| 0.9 * (t + 2.5e-4 * t * t);
         let got = p.integral(300.0, 1200.0);
         let want = closed(1200.0) - closed(300.0);

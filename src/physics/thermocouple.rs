@@ -3,7 +3,7 @@
 //! cold-junction compensation and the Seebeck coefficient.
 //!
 //! # Source
-//! Reference functions and inverse-polynomial seeds are those of NIST
+//! Reference functions and inverse polynomials (starting values) are those of NIST
 //! Monograph 175 (Burns, Scroger, Strouse, Croarkin and Guthrie, 1993), as
 //! distributed in the NIST ITS-90 Thermocouple Database, NIST SRD 60. The
 //! coefficients below were typed in from the coefficient sections of the SRD 60
@@ -19,12 +19,12 @@
 //! - Forward: `E(t) = Σ cᵢ tⁱ`, plus `a₀ exp(a₁ (t − a₂)²)` for type K above
 //!   0 °C. A temperature on a boundary between two subranges uses the lower
 //!   subrange (the two agree there to within 0.075 µV).
-//! - Inverse: the published inverse polynomial `t = Σ dᵢ Eⁱ` only seeds a
+//! - Inverse: the published inverse polynomial `t = Σ dᵢ Eⁱ` only gives the starting value of a
 //!   safeguarded Newton iteration on the exact forward function (bisection
 //!   whenever a Newton step would leave the current bracket), stopped at a
 //!   step under [`INVERSE_TOLERANCE_C`]. Where no published inverse covers the
 //!   EMF (the cryogenic tails of E, K, N and T below −200 °C; the last few
-//!   microvolts past some rounded range ends) the seed is interpolated.
+//!   microvolts past some rounded range ends) the starting value is interpolated.
 //! - Out-of-range or non-finite input is a [`TcError`], never an extrapolated
 //!   number.
 //! - Type B is not monotonic below about 42 °C (its EMF dips to −0.0026 mV
@@ -341,7 +341,7 @@ fn emf_and_slope(s: &Spec, t: f64) -> (f64, f64) {
 /// Published inverse polynomial where one covers `mv`, else a linear
 /// interpolation across the uncovered stretch. Only a starting point.
 #[inline]
-fn seed_c(s: &Spec, mv: f64) -> f64 {
+fn start_c(s: &Spec, mv: f64) -> f64 {
     if let Some(p) = s
         .inverse
         .iter()
@@ -372,14 +372,14 @@ fn seed_c(s: &Spec, mv: f64) -> f64 {
     }
 }
 
-/// Solve E(t) = mv for t in the inverse range: Newton from the seed, kept
+/// Solve E(t) = mv for t in the inverse range: Newton from the starting value, kept
 /// inside a shrinking bracket, bisecting whenever Newton would leave it.
 /// Returns the temperature and the number of forward evaluations used.
 #[inline]
 fn invert(s: &Spec, mv: f64) -> (f64, u32) {
     let mut lo = s.inv_t_min_c;
     let mut hi = s.t_max_c;
-    let mut t = seed_c(s, mv).clamp(lo, hi);
+    let mut t = start_c(s, mv).clamp(lo, hi);
     let mut n = 0;
     while n < MAX_INVERSE_ITERATIONS {
         n += 1;
@@ -464,7 +464,7 @@ struct ForwardPiece {
 }
 
 /// One published approximate inverse `t = Σ dᵢ Eⁱ`, valid for
-/// `mv_min..=mv_max` (↔ `t_min_c..=t_max_c`); used as a seed only.
+/// `mv_min..=mv_max` (↔ `t_min_c..=t_max_c`); used as a starting value only.
 struct InversePiece {
     t_min_c: f64,
     t_max_c: f64,
@@ -1519,9 +1519,9 @@ mod tests {
             // at 1e-7 °C steps (rounding floor about 4e-8 °C in the E and T
             // cryogenic tails), so 1e-6 °C still leaves margin.
             assert!(worst < 1e-6, "type {tc}: worst round trip {worst:e} °C");
-            // Cost bound, not a timing: Newton from a published inverse seed
+            // Cost bound, not a timing: Newton from a published inverse start
             // converges quadratically (2 to 3 evaluations); the cryogenic
-            // tails start from a cruder seed.
+            // tails start from a cruder guess.
             assert!(most_evals <= 6, "type {tc}: {most_evals} evaluations");
         }
     }

@@ -152,12 +152,21 @@ pub async fn run(
     if health.connected.load(Ordering::Relaxed) {
         let flush = async {
             while let Some(m) = queue.try_pop() {
-                if client.publish(m.topic, QoS::AtLeastOnce, true, m.payload).await.is_err() {
+                if client
+                    .publish(m.topic, QoS::AtLeastOnce, true, m.payload)
+                    .await
+                    .is_err()
+                {
                     break;
                 }
             }
             let _ = client
-                .publish(status_topic, QoS::AtLeastOnce, true, status_payload("offline", clock.now()))
+                .publish(
+                    status_topic,
+                    QoS::AtLeastOnce,
+                    true,
+                    status_payload("offline", clock.now()),
+                )
                 .await;
             let _ = client.disconnect().await;
         };
@@ -172,13 +181,19 @@ pub async fn run(
         let both = async {
             tokio::join!(flush, drain);
         };
-        if tokio::time::timeout(Duration::from_secs(5), both).await.is_err() {
+        if tokio::time::timeout(Duration::from_secs(5), both)
+            .await
+            .is_err()
+        {
             warn!("MQTT disconnect did not complete within 5 s");
         } else {
             info!("MQTT status offline published; disconnected");
         }
     } else {
-        warn!(queued = queue.len(), "stopping while the broker is unreachable: queued states are not delivered");
+        warn!(
+            queued = queue.len(),
+            "stopping while the broker is unreachable: queued states are not delivered"
+        );
     }
     health.connected.store(false, Ordering::Relaxed);
 }

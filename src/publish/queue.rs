@@ -111,7 +111,10 @@ impl Queue {
     }
 
     pub fn try_pop(&self) -> Option<Message> {
-        self.inner.lock().unwrap_or_else(|e| e.into_inner()).pop_front()
+        self.inner
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .pop_front()
     }
 
     pub fn len(&self) -> usize {
@@ -154,7 +157,9 @@ mod tests {
         q.push(msg("z/c", Kind::ZoneState, 3));
         assert_eq!(q.len(), 3);
         assert_eq!(q.counters.dropped_zone_states.load(Ordering::Relaxed), 1);
-        let topics: Vec<_> = std::iter::from_fn(|| q.try_pop()).map(|m| m.topic).collect();
+        let topics: Vec<_> = std::iter::from_fn(|| q.try_pop())
+            .map(|m| m.topic)
+            .collect();
         assert_eq!(topics, ["status", "z/b", "z/c"]);
     }
 }

@@ -61,7 +61,9 @@ impl Pty {
             return Err(io::Error::from_raw_os_error(rc));
         }
         // SAFETY: on success buf holds a NUL-terminated string.
-        let path = unsafe { CStr::from_ptr(buf.as_ptr()) }.to_string_lossy().into_owned();
+        let path = unsafe { CStr::from_ptr(buf.as_ptr()) }
+            .to_string_lossy()
+            .into_owned();
         Ok(Pty {
             master: master_f,
             slave: slave_f,

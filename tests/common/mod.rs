@@ -16,7 +16,8 @@ pub fn run(args: &[&str]) -> Output {
 
 /// A fresh directory under the target dir for one test.
 pub fn temp_dir(name: &str) -> PathBuf {
-    let d = PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join(format!("{name}-{}", std::process::id()));
+    let d =
+        PathBuf::from(env!("CARGO_TARGET_TMPDIR")).join(format!("{name}-{}", std::process::id()));
     let _ = std::fs::remove_dir_all(&d);
     std::fs::create_dir_all(&d).unwrap();
     d
@@ -30,7 +31,14 @@ pub fn write(dir: &std::path::Path, name: &str, text: &str) -> PathBuf {
 
 /// A one-zone configuration: a single homogeneous layer of `thickness_mm`
 /// with constant conductivity `k`, probes at `depths_mm` on inputs 1.., type K.
-pub fn one_zone_config(port: &str, mqtt_port: u16, k: f64, thickness_mm: f64, depths_mm: &[f64], interval_s: f64) -> String {
+pub fn one_zone_config(
+    port: &str,
+    mqtt_port: u16,
+    k: f64,
+    thickness_mm: f64,
+    depths_mm: &[f64],
+    interval_s: f64,
+) -> String {
     let mut s = format!(
         r#"
 [site]

@@ -10,7 +10,11 @@ use std::time::{Duration, Instant};
 use rumqttc::{Client, Event, MqttOptions, Packet, QoS};
 
 pub fn free_port() -> u16 {
-    std::net::TcpListener::bind("127.0.0.1:0").unwrap().local_addr().unwrap().port()
+    std::net::TcpListener::bind("127.0.0.1:0")
+        .unwrap()
+        .local_addr()
+        .unwrap()
+        .port()
 }
 
 pub struct Broker {
@@ -25,7 +29,11 @@ impl Broker {
     }
 
     pub fn start(port: u16, dir: &std::path::Path) -> Broker {
-        let mut b = Broker { port, child: None, dir: dir.to_path_buf() };
+        let mut b = Broker {
+            port,
+            child: None,
+            dir: dir.to_path_buf(),
+        };
         b.restart();
         b
     }
@@ -34,7 +42,11 @@ impl Broker {
     pub fn restart(&mut self) {
         let child = if Self::kind() == "mosquitto" {
             let conf = self.dir.join(format!("mosquitto-{}.conf", self.port));
-            std::fs::write(&conf, format!("listener {} 127.0.0.1\nallow_anonymous true\n", self.port)).unwrap();
+            std::fs::write(
+                &conf,
+                format!("listener {} 127.0.0.1\nallow_anonymous true\n", self.port),
+            )
+            .unwrap();
             Command::new("mosquitto")
                 .arg("-c")
                 .arg(&conf)
@@ -53,7 +65,11 @@ impl Broker {
         self.child = Some(child);
         let deadline = Instant::now() + Duration::from_secs(20);
         while TcpStream::connect(("127.0.0.1", self.port)).is_err() {
-            assert!(Instant::now() < deadline, "broker did not start on port {}", self.port);
+            assert!(
+                Instant::now() < deadline,
+                "broker did not start on port {}",
+                self.port
+            );
             std::thread::sleep(Duration::from_millis(50));
         }
     }
@@ -84,7 +100,11 @@ pub struct Msg {
 /// subscribes again) when the broker goes away.
 pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
     let (tx, rx) = mpsc::channel();
-    let mut opts = MqttOptions::new(format!("test-sub-{port}-{}", std::process::id()), "127.0.0.1", port);
+    let mut opts = MqttOptions::new(
+        format!("test-sub-{port}-{}", std::process::id()),
+        "127.0.0.1",
+        port,
+    );
     opts.set_keep_alive(Duration::from_secs(5));
     opts.set_max_packet_size(1 << 20, 1 << 20);
     let (client, mut conn) = Client::new(opts, 16);
@@ -96,8 +116,16 @@ pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
                     let _ = client.try_subscribe(filter.clone(), QoS::AtLeastOnce);
                 }
                 Ok(Event::Incoming(Packet::Publish(p))) => {
-                    let json = serde_json::from_slice(&p.payload).unwrap_or(serde_json::Value::Null);
-                    if tx.send(Msg { topic: p.topic.clone(), retained: p.retain, json }).is_err() {
+                    let json =
+                        serde_json::from_slice(&p.payload).unwrap_or(serde_json::Value::Null);
+                    if tx
+                        .send(Msg {
+                            topic: p.topic.clone(),
+                            retained: p.retain,
+                            json,
+                        })
+                        .is_err()
+                    {
                         return;
                     }
                 }
@@ -111,7 +139,12 @@ pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
 
 /// Waits (bounded) for a message that satisfies `pred`; the others are
 /// dropped.
-pub fn wait_for(rx: &mpsc::Receiver<Msg>, within: Duration, what: &str, pred: impl Fn(&Msg) -> bool) -> Msg {
+pub fn wait_for(
+    rx: &mpsc::Receiver<Msg>,
+    within: Duration,
+    what: &str,
+    pred: impl Fn(&Msg) -> bool,
+) -> Msg {
     let deadline = Instant::now() + within;
     loop {
         let left = deadline.saturating_duration_since(Instant::now());
