@@ -111,6 +111,43 @@ pub struct Channel {
     pub tolerance: ToleranceClass,
     /// A measured standard uncertainty, °C, used instead of the class.
     pub uncertainty_c: Option<f64>,
+    pub calibration: Calibration,
+    /// A change faster than this between two readings is a spike, °C/min.
+    pub spike_c_per_min: f64,
+}
+
+/// A channel's calibration correction, `t = gain × t_raw + offset`, from a
+/// calibration certificate.
+#[derive(Debug, Clone, Copy, PartialEq)]
+pub struct Calibration {
+    pub offset_c: f64,
+    pub gain: f64,
+    /// Certificate date (UTC midnight) and how long it is valid.
+    pub date: Option<crate::time::Timestamp>,
+    pub interval_days: f64,
+}
+
+impl Default for Calibration {
+    fn default() -> Self {
+        Calibration {
+            offset_c: 0.0,
+            gain: 1.0,
+            date: None,
+            interval_days: 365.0,
+        }
+    }
+}
+
+impl Calibration {
+    pub fn apply(&self, t_c: f64) -> f64 {
+        self.gain * t_c + self.offset_c
+    }
+
+    /// Whether the certificate has expired at `now` (false without a date).
+    pub fn overdue(&self, now: crate::time::Timestamp) -> bool {
+        self.date
+            .is_some_and(|d| now.since(d) > self.interval_days * 86_400.0)
+    }
 }
 
 #[derive(Debug, Clone)]

@@ -72,6 +72,11 @@ pub struct RawChannel {
     pub signal: Option<S<String>>,
     pub tolerance: Option<S<String>>,
     pub uncertainty_c: Option<S<f64>>,
+    pub calibration_offset_c: Option<S<f64>>,
+    pub calibration_gain: Option<S<f64>>,
+    pub calibration_date: Option<S<String>>,
+    pub calibration_interval_days: Option<S<f64>>,
+    pub spike_c_per_min: Option<S<f64>>,
 }
 
 /// A number, or a table of `[t_c, value]` points.

@@ -545,6 +545,44 @@ impl Validator<'_> {
             .uncertainty_c
             .as_ref()
             .map(|u| self.positive(u, &p("uncertainty_c"), "°C"));
+        let mut calibration = Calibration::default();
+        if let Some(o) = &c.calibration_offset_c {
+            calibration.offset_c = self.finite(o, &p("calibration_offset_c"));
+            if calibration.offset_c.abs() > 50.0 {
+                self.problem(
+                    o.span(),
+                    p("calibration_offset_c"),
+                    "more than ±50 °C is not a calibration correction: check the sensor",
+                );
+            }
+        }
+        if let Some(g) = &c.calibration_gain {
+            calibration.gain = *g.get_ref();
+            if !(0.9..=1.1).contains(&calibration.gain) {
+                self.problem(
+                    g.span(),
+                    p("calibration_gain"),
+                    "must be between 0.9 and 1.1 (a correction, not a scale)",
+                );
+            }
+        }
+        if let Some(d) = &c.calibration_date {
+            match crate::time::Timestamp::parse(&format!("{}T00:00:00Z", d.get_ref())) {
+                Ok(t) if d.get_ref().len() == 10 => calibration.date = Some(t),
+                _ => self.problem(
+                    d.span(),
+                    p("calibration_date"),
+                    format!("{:?} is not a date YYYY-MM-DD", d.get_ref()),
+                ),
+            }
+        }
+        if let Some(i) = &c.calibration_interval_days {
+            calibration.interval_days = self.positive(i, &p("calibration_interval_days"), "days");
+        }
+        let spike_c_per_min = c
+            .spike_c_per_min
+            .as_ref()
+            .map_or(60.0, |v| self.positive(v, &p("spike_c_per_min"), "°C/min"));
         Channel {
             name,
             source,
@@ -553,6 +591,8 @@ impl Validator<'_> {
             signal,
             tolerance,
             uncertainty_c,
+            calibration,
+            spike_c_per_min,
         }
     }
 

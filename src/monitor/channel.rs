@@ -23,6 +23,12 @@ pub enum Health {
     /// A value the channel cannot use (millivolts with no cold junction,
     /// a unit that does not match the configured signal).
     Invalid,
+    /// A step faster than any wall can heat (rejected until confirmed).
+    Spike,
+    /// No change while the zone's other probes change.
+    Stuck,
+    /// Inconsistent with the zone's other probes (leave-one-out residual).
+    Outlier,
     /// No reading for longer than the staleness limit.
     Stale,
     /// Nothing received yet since start.
@@ -36,6 +42,9 @@ impl Health {
             Health::Open => "open",
             Health::OutOfRange => "out_of_range",
             Health::Invalid => "invalid",
+            Health::Spike => "spike",
+            Health::Stuck => "stuck",
+            Health::Outlier => "outlier",
             Health::Stale => "stale",
             Health::NoData => "no_data",
         }
@@ -64,6 +73,10 @@ pub struct ChannelState {
     pub last_seen: Option<Timestamp>,
     /// Health as last announced (for change detection).
     pub announced: Health,
+    /// A fault found by a zone that uses this channel (stuck, outlier).
+    pub zone_fault: Option<(Health, &'static str)>,
+    /// A large step waiting for confirmation: (°C, time, readings agreeing).
+    pub spike_candidate: Option<(f64, Timestamp, u8)>,
 }
 
 impl Default for ChannelState {
@@ -74,9 +87,14 @@ impl Default for ChannelState {
             reason: "nothing received yet",
             last_seen: None,
             announced: Health::NoData,
+            zone_fault: None,
+            spike_candidate: None,
         }
     }
 }
+
+/// Readings in a row at a new level that make a step real, not a spike.
+pub const SPIKE_CONFIRMATIONS: u8 = 3;
 
 impl ChannelState {
     /// Health at `now` given the staleness limit.
@@ -86,16 +104,57 @@ impl ChannelState {
             Some(t) if now.since(t) > stale_after_s => {
                 (Health::Stale, "no reading within the staleness limit")
             }
+            Some(_) if self.value_health == Health::Ok => {
+                self.zone_fault.unwrap_or((Health::Ok, ""))
+            }
             Some(_) => (self.value_health, self.reason),
         }
     }
 
-    /// The latest reading if valid and no older than `max_age_s` at `now`.
+    /// The latest reading if valid and no older than `max_age_s` at `now`
+    /// (zone faults aside: a zone re-examines those itself every cycle).
     pub fn fresh(&self, now: Timestamp, max_age_s: f64) -> Option<Reading> {
         if self.value_health != Health::Ok {
             return None;
         }
         self.latest.filter(|r| now.since(r.time) <= max_age_s)
+    }
+
+    /// Takes a converted, calibrated temperature: accepted, or held back as
+    /// a spike when it moved faster than `spike_c_per_min` since the last
+    /// accepted reading. A step is accepted once `SPIKE_CONFIRMATIONS`
+    /// readings in a row agree with the new level (a real change, e.g. a
+    /// burner relit), so a spike filter never hides a real event for long.
+    pub fn accept(&mut self, t_c: f64, sigma_c: f64, now: Timestamp, spike_c_per_min: f64) {
+        let rate = spike_c_per_min / 60.0;
+        let plausible = |from_c: f64, from_t: Timestamp| {
+            let dt = now.since(from_t).max(1.0);
+            (t_c - from_c).abs() <= rate * dt + 3.0 * sigma_c
+        };
+        let is_step = self
+            .latest
+            .filter(|_| matches!(self.value_health, Health::Ok | Health::Spike))
+            .is_some_and(|prev| !plausible(prev.celsius, prev.time));
+        if is_step {
+            let count = match self.spike_candidate {
+                Some((c, t, n)) if plausible(c, t) => n + 1,
+                _ => 1,
+            };
+            if count < SPIKE_CONFIRMATIONS {
+                self.spike_candidate = Some((t_c, now, count));
+                self.value_health = Health::Spike;
+                self.reason = "a step faster than the wall can heat (spike_c_per_min): held back until confirmed";
+                return;
+            }
+        }
+        self.spike_candidate = None;
+        self.latest = Some(Reading {
+            time: now,
+            celsius: t_c,
+            sigma_c,
+        });
+        self.value_health = Health::Ok;
+        self.reason = "";
     }
 }
 
@@ -186,4 +245,7 @@ pub struct ChannelReport {
     pub input: u8,
     #[serde(rename = "type")]
     pub tc_type: char,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub calibration_date: Option<Timestamp>,
+    pub calibration_overdue: bool,
 }

@@ -134,14 +134,9 @@ impl Monitor {
         let state = &mut self.channels[ch];
         state.last_seen = Some(now);
         match result {
-            Ok(t) => {
-                state.latest = Some(channel::Reading {
-                    time: now,
-                    celsius: t,
-                    sigma_c: channel::sigma_c(cfg, t),
-                });
-                state.value_health = Health::Ok;
-                state.reason = "";
+            Ok(raw) => {
+                let t = cfg.calibration.apply(raw);
+                state.accept(t, channel::sigma_c(cfg, t), now, cfg.spike_c_per_min);
             }
             Err((health, reason)) => {
                 state.value_health = health;
@@ -185,6 +180,16 @@ impl Monitor {
         let interval = self.settings.zones[i].interval_s;
         let report = self.zones[i].cycle(&self.settings, &self.channels, due);
         self.zones[i].next_due = due.plus_s(interval);
+        // Zone-level faults (stuck, outlier) become the channels' health.
+        let settings = self.settings.clone();
+        for (p, d) in settings.zones[i]
+            .probes
+            .iter()
+            .zip(self.zones[i].diagnosis.clone())
+        {
+            self.channels[p.channel].zone_fault = d;
+            self.check_health(p.channel, due);
+        }
         Some(report)
     }
 
@@ -214,6 +219,8 @@ impl Monitor {
             source: self.settings.sources[cfg.source].name.clone(),
             input: cfg.input,
             tc_type: cfg.tc_type.letter(),
+            calibration_date: cfg.calibration.date,
+            calibration_overdue: cfg.calibration.overdue(now),
         })
     }
 

@@ -5,7 +5,7 @@
 use heapless::{HistoryBuf, Vec as HVec};
 use serde::Serialize;
 
-use super::channel::{ChannelState, Health};
+use super::channel::{ChannelState, Health, Reading};
 use crate::config::{Name, Settings, Zone, MAX_PROBES};
 use crate::physics::fit::linear_slope;
 use crate::physics::profile::{ProbeSample, QuadraticWall};
@@ -108,6 +108,8 @@ pub struct ZoneEngine {
     /// Time origin of the rate histories (keeps the regression well scaled).
     origin: Timestamp,
     pub cycles: u64,
+    /// Zone-level faults of each probe from the last cycle (stuck, outlier).
+    pub diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES>,
 }
 
 impl ZoneEngine {
@@ -124,6 +126,7 @@ impl ZoneEngine {
             tracks,
             origin: start,
             cycles: 0,
+            diagnosis: HVec::new(),
         }
     }
 
@@ -145,14 +148,14 @@ impl ZoneEngine {
             material: &settings.materials[layer.material].material,
         };
 
-        let mut samples: HVec<ProbeSample, MAX_PROBES> = HVec::new();
-        let mut probes: HVec<ProbeReport, MAX_PROBES> = HVec::new();
+        // 1. Fresh readings and their histories.
+        let mut fresh: HVec<Option<Reading>, MAX_PROBES> = HVec::new();
+        let mut rates: HVec<Option<f64>, MAX_PROBES> = HVec::new();
+        let mut spans: HVec<Option<f64>, MAX_PROBES> = HVec::new();
+        let now_s = now.since(self.origin);
         for (probe, track) in zone.probes.iter().zip(self.tracks.iter_mut()) {
-            let state = &channels[probe.channel];
-            let (health, _) = state.health_at(now, max_age_s);
-            let fresh = state.fresh(now, max_age_s);
-            let mut rate = None;
-            if let Some(r) = fresh {
+            let r = channels[probe.channel].fresh(now, max_age_s);
+            if let Some(r) = r {
                 let t = r.time.since(self.origin);
                 let newer = track
                     .history
@@ -161,28 +164,62 @@ impl ZoneEngine {
                 if newer {
                     track.history.write((t, r.celsius));
                 }
-                rate = measured_rate_c_per_h(
-                    &track.history,
-                    now.since(self.origin),
-                    zone.rate_window_s,
-                    zone.interval_s,
-                );
+            }
+            let _ = rates.push(r.and_then(|_| {
+                measured_rate_c_per_h(&track.history, now_s, zone.rate_window_s, zone.interval_s)
+            }));
+            let _ = spans
+                .push(r.and_then(|_| history_span_c(&track.history, now_s, zone.rate_window_s)));
+            let _ = fresh.push(r);
+        }
+
+        // 2. Diagnostics the zone can make and a channel alone cannot.
+        let mut diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES> = HVec::new();
+        for i in 0..fresh.len() {
+            let _ = diagnosis.push(stuck(&spans, i).then_some((
+                Health::Stuck,
+                "no change while the zone's other probes change",
+            )));
+        }
+        let mut samples: HVec<ProbeSample, MAX_PROBES> = HVec::new();
+        let mut sample_probe: HVec<usize, MAX_PROBES> = HVec::new();
+        for (i, (probe, r)) in zone.probes.iter().zip(&fresh).enumerate() {
+            if let (Some(r), None) = (r, diagnosis[i]) {
                 let _ = samples.push(ProbeSample {
                     depth_m: probe.depth_m,
                     temp_c: r.celsius,
                     sigma_c: r.sigma_c,
                 });
+                let _ = sample_probe.push(i);
             }
+        }
+        if let Some(k) = outlier(&wall, &samples) {
+            diagnosis[sample_probe[k]] = Some((
+                Health::Outlier,
+                "inconsistent with the zone's other probes (leave-one-out residual)",
+            ));
+            samples.remove(k);
+        }
+
+        let mut probes: HVec<ProbeReport, MAX_PROBES> = HVec::new();
+        for (i, probe) in zone.probes.iter().enumerate() {
+            let (health, _) = channels[probe.channel].health_at(now, max_age_s);
+            let status = match (fresh[i], diagnosis[i]) {
+                (_, Some((h, _))) => h,
+                (Some(_), None) => Health::Ok,
+                (None, None) => health,
+            };
             let _ = probes.push(ProbeReport {
                 channel: settings.channels[probe.channel].name.clone(),
                 depth_mm: probe.depth_m * 1000.0,
-                measured_c: fresh.map(|r| r.celsius),
+                measured_c: fresh[i].map(|r| r.celsius),
                 fitted_c: None,
-                rate_measured_c_per_h: rate,
+                rate_measured_c_per_h: rates[i],
                 rate_model_c_per_h: None,
-                status: if fresh.is_some() { Health::Ok } else { health },
+                status,
             });
         }
+        self.diagnosis = diagnosis;
 
         let mut report = ZoneReport {
             schema: ZONE_SCHEMA,
@@ -264,6 +301,98 @@ fn mismatch_pct(fourier_w_m2: f64, surface_w_m2: f64) -> Option<f64> {
         return None;
     }
     Some((fourier_w_m2 - surface_w_m2) / surface_w_m2 * 100.0)
+}
+
+/// A probe is stuck when its readings spanned less than this over the
+/// window…
+pub const STUCK_SPAN_C: f64 = 0.05;
+/// …while the median span of the zone's other probes exceeded this.
+pub const STUCK_OTHERS_C: f64 = 5.0;
+/// An outlier's leave-one-out studentised residual exceeds this (a
+/// threshold of ours: five standard uncertainties).
+pub const OUTLIER_T: f64 = 5.0;
+
+/// Range (max − min) of a probe's history over the window, when the
+/// history covers at least half of it.
+fn history_span_c(
+    history: &HistoryBuf<(f64, f64), RATE_POINTS>,
+    now_s: f64,
+    window_s: f64,
+) -> Option<f64> {
+    let mut lo = f64::INFINITY;
+    let mut hi = f64::NEG_INFINITY;
+    let mut first = None;
+    for &(t, v) in history.oldest_ordered() {
+        if now_s - t <= window_s {
+            first.get_or_insert(t);
+            lo = lo.min(v);
+            hi = hi.max(v);
+        }
+    }
+    first
+        .filter(|&t0| now_s - t0 >= window_s / 2.0)
+        .map(|_| hi - lo)
+}
+
+/// Probe `i` stuck: flat while the median of the others moved.
+fn stuck(spans: &[Option<f64>], i: usize) -> bool {
+    let Some(own) = spans[i] else { return false };
+    let mut others: HVec<f64, MAX_PROBES> = HVec::new();
+    for (j, s) in spans.iter().enumerate() {
+        if let (true, Some(s)) = (j != i, s) {
+            let _ = others.push(*s);
+        }
+    }
+    if others.len() < 2 {
+        return false;
+    }
+    others.sort_unstable_by(f64::total_cmp);
+    let median = others[others.len() / 2];
+    own < STUCK_SPAN_C && median > STUCK_OTHERS_C
+}
+
+/// The one sample inconsistent with the others, if any. Each sample is
+/// predicted by the fit of the others and its studentised residual
+/// r / √(σᵢ² + var ŷ) computed; the worst is an outlier when it exceeds
+/// `OUTLIER_T` and the fit without it is itself consistent (every
+/// standardised residual below 3). That second test needs a redundant fit
+/// without it, so five samples or more: a profile the model cannot follow
+/// (a fast transient) spreads over all probes and is not blamed on one.
+fn outlier(wall: &QuadraticWall<'_>, samples: &[ProbeSample]) -> Option<usize> {
+    if samples.len() < 5 {
+        return None;
+    }
+    let without = |i: usize| {
+        let mut rest: HVec<ProbeSample, MAX_PROBES> = HVec::new();
+        for (j, s) in samples.iter().enumerate() {
+            if j != i {
+                let _ = rest.push(*s);
+            }
+        }
+        rest
+    };
+    // Studentised leave-one-out residuals, then the largest first: the
+    // first whose removal leaves a consistent fit is the outlier (the
+    // largest alone can be a well-behaved probe that the bad one drags).
+    let mut t: HVec<(usize, f64), MAX_PROBES> = HVec::new();
+    for i in 0..samples.len() {
+        let Ok(sol) = wall.solve(&without(i)) else {
+            continue;
+        };
+        let s = samples[i];
+        let var = s.sigma_c * s.sigma_c + sol.fit.value_variance(s.depth_m);
+        let _ = t.push((i, ((s.temp_c - sol.fitted_c(s.depth_m)) / var.sqrt()).abs()));
+    }
+    t.sort_unstable_by(|a, b| b.1.total_cmp(&a.1));
+    t.iter()
+        .take_while(|(_, ti)| *ti > OUTLIER_T)
+        .find_map(|&(i, _)| {
+            let rest = without(i);
+            let sol = wall.solve(&rest).ok()?;
+            rest.iter()
+                .all(|s| ((s.temp_c - sol.fitted_c(s.depth_m)) / s.sigma_c).abs() < 3.0)
+                .then_some(i)
+        })
 }
 
 /// Least-squares slope of the probe's history over the window ending at
