@@ -375,11 +375,10 @@ fn outlier(wall: &QuadraticWall<'_>, samples: &[ProbeSample]) -> Option<usize> {
     // first whose removal leaves a consistent fit is the outlier (the
     // largest alone can be a well-behaved probe that the bad one drags).
     let mut t: HVec<(usize, f64), MAX_PROBES> = HVec::new();
-    for i in 0..samples.len() {
+    for (i, &s) in samples.iter().enumerate() {
         let Ok(sol) = wall.solve(&without(i)) else {
             continue;
         };
-        let s = samples[i];
         let var = s.sigma_c * s.sigma_c + sol.fit.value_variance(s.depth_m);
         let _ = t.push((i, ((s.temp_c - sol.fitted_c(s.depth_m)) / var.sqrt()).abs()));
     }
