@@ -13,20 +13,32 @@ use wallflux::physics::thermocouple::{compensated_c, emf_mv, temperature_c, TcTy
 use wallflux::time::Timestamp;
 
 fn thermocouple(c: &mut Criterion) {
-    c.bench_function("tc K emf_mv(812.4 °C)", |b| b.iter(|| emf_mv(TcType::K, black_box(812.4))));
+    c.bench_function("tc K emf_mv(812.4 °C)", |b| {
+        b.iter(|| emf_mv(TcType::K, black_box(812.4)))
+    });
     c.bench_function("tc K temperature_c(33.275 mV)", |b| {
         b.iter(|| temperature_c(TcType::K, black_box(33.275)))
     });
     c.bench_function("tc N compensated_c(30.1 mV, cj 26 °C)", |b| {
         b.iter(|| compensated_c(TcType::N, black_box(30.1), black_box(26.0)))
     });
-    c.bench_function("tc S temperature_c(12.0 mV)", |b| b.iter(|| temperature_c(TcType::S, black_box(12.0))));
+    c.bench_function("tc S temperature_c(12.0 mV)", |b| {
+        b.iter(|| temperature_c(TcType::S, black_box(12.0)))
+    });
 }
 
 fn line(c: &mut Criterion) {
     let mut out = heapless::String::<{ MAX_LINE_BYTES + 2 }>::new();
     let values: Vec<(u8, Value)> = (1..=16u8)
-        .map(|i| (i, Value::Reading { value: 1200.0 - 37.5 * f64::from(i), unit: Unit::Celsius }))
+        .map(|i| {
+            (
+                i,
+                Value::Reading {
+                    value: 1200.0 - 37.5 * f64::from(i),
+                    unit: Unit::Celsius,
+                },
+            )
+        })
         .collect();
     encode_frame(1042, &values, Some(24.6), &mut out).unwrap();
     let bytes = out.as_bytes().to_vec();
@@ -52,7 +64,10 @@ fn zone_cycle(c: &mut Criterion) {
     );
     let depths: Vec<f64> = (0..8).map(|i| 10.0 + 40.0 * f64::from(i)).collect();
     for i in 0..8 {
-        text += &format!("[[channel]]\nname = \"c{i}\"\nsource = \"s\"\ninput = {}\ntype = \"K\"\n", i + 1);
+        text += &format!(
+            "[[channel]]\nname = \"c{i}\"\nsource = \"s\"\ninput = {}\ntype = \"K\"\n",
+            i + 1
+        );
     }
     text += "[[zone]]\nname = \"z\"\narea_m2 = 5.0\nmodel = \"quadratic\"\ninterval_s = 1.0\nlayers = [{ material = \"m\", thickness_mm = 300 }]\nprobes = [";
     for (i, d) in depths.iter().enumerate() {
@@ -68,7 +83,15 @@ fn zone_cycle(c: &mut Criterion) {
             let now = Timestamp::from_epoch_s(t);
             for (i, d) in depths.iter().enumerate() {
                 let v = 1150.0 - 3.0 * d + 0.001 * d * d + 0.01 * t;
-                m.handle_value(i, Value::Reading { value: v, unit: Unit::Celsius }, None, now);
+                m.handle_value(
+                    i,
+                    Value::Reading {
+                        value: v,
+                        unit: Unit::Celsius,
+                    },
+                    None,
+                    now,
+                );
             }
             let mut n = 0;
             while let Some(r) = m.poll_zone(now) {

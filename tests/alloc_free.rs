@@ -40,8 +40,10 @@ mod common;
 #[test]
 fn engine_and_parser_do_not_allocate_in_steady_state() {
     let depths = [20.0, 60.0, 110.0, 160.0, 210.0, 260.0, 300.0, 340.0];
-    let text = common::one_zone_config("/dev/null", 1883, 1.2, 350.0, &depths, 1.0)
-        .replace("conductivity_w_mk = 1.2", "conductivity_w_mk = [[200.0, 1.0], [1200.0, 1.4]]");
+    let text = common::one_zone_config("/dev/null", 1883, 1.2, 350.0, &depths, 1.0).replace(
+        "conductivity_w_mk = 1.2",
+        "conductivity_w_mk = [[200.0, 1.0], [1200.0, 1.4]]",
+    );
     let settings = Arc::new(config::parse(&text, "t", None).unwrap());
     let mut m = Monitor::new(settings, Timestamp::from_epoch_s(0.0));
     let mut p = LineParser::new();
@@ -53,7 +55,13 @@ fn engine_and_parser_do_not_allocate_in_steady_state() {
         let mut values: heapless::Vec<(u8, Value), 64> = heapless::Vec::new();
         for (i, d) in depths.iter().enumerate() {
             let v = 1150.0 - 2.5 * d + 0.001 * d * d + 0.02 * t;
-            let _ = values.push((i as u8 + 1, Value::Reading { value: (v * 100.0).round() / 100.0, unit: Unit::Celsius }));
+            let _ = values.push((
+                i as u8 + 1,
+                Value::Reading {
+                    value: (v * 100.0).round() / 100.0,
+                    unit: Unit::Celsius,
+                },
+            ));
         }
         line.clear();
         encode_frame(s, &values, None, &mut line).unwrap();

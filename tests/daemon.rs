@@ -134,6 +134,13 @@ fn daemon_end_to_end() {
     assert_close(&v["probes"][0], "measured_c", temp(20.0), 0.001);
     assert!(v["uncertainty"]["flux_shell_w_m2"].as_f64().unwrap() > 0.0);
 
+    let kiln = wait_for(&rx, Duration::from_secs(20), "kiln state", |m| {
+        m.topic == "wf/test-plant/k1/kiln/state"
+    });
+    assert_close(&kiln.json, "heat_loss_w", Q * 10.0, 0.005);
+    assert_eq!(kiln.json["zones_reporting"], 1);
+    assert!(kiln.json["energy_total_kwh"].as_f64().unwrap() > 0.0);
+
     let ch = wait_for(&rx, Duration::from_secs(20), "channel p0", |m| {
         m.topic == "wf/test-plant/k1/channel/p0" && m.json["status"] == "ok"
     });
@@ -203,6 +210,19 @@ fn daemon_end_to_end() {
     let _ = feed.join();
     let text = log_text();
     assert_eq!(status.code(), Some(0), "{text}");
+    // The energy totals were saved on the way out: a few seconds at 30 kW.
+    let state_dir = std::fs::read_to_string(&cfg).unwrap();
+    let state_dir = state_dir
+        .lines()
+        .find_map(|l| l.strip_prefix("state_dir = "))
+        .unwrap()
+        .trim_matches('"');
+    let saved: serde_json::Value = serde_json::from_slice(
+        &std::fs::read(std::path::Path::new(state_dir).join("energy.json")).unwrap(),
+    )
+    .unwrap();
+    let kwh = saved["total_kwh"].as_f64().unwrap();
+    assert!(kwh > 0.0 && kwh < 30.0 * 60.0 / 3600.0, "{kwh} kWh");
     // The garbage was seen and reported, rate-limited: far fewer warnings
     // than bad lines.
     assert!(text.contains("bad line"), "{text}");

@@ -152,7 +152,11 @@ fn a_probe_frozen_while_the_wall_heats_is_stuck() {
     // 100 s (a failed input module holding its last value).
     let rising = |i: usize, t: f64| Some(temp(DEPTHS_MM[i]) - 300.0 + 0.1 * t);
     let mut m = monitor();
-    run(&mut m, 0, 100, rising);
+    let r = run(&mut m, 0, 100, rising);
+    // Heat stored at a uniform rise: ρ c_p (dT/dt) L = 2000 × 1000 × 0.1 ×
+    // 0.25 = 50 000 W/m² (the trapezoid is exact for a uniform rate).
+    let stored = r.last().unwrap().stored_w_m2.unwrap();
+    assert!((stored - 50_000.0).abs() < 50.0, "stored {stored} W/m²");
     let frozen = rising(1, 100.0).unwrap();
     let r = run(&mut m, 100, 200, |i, t| {
         if i == 1 {

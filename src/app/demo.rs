@@ -55,7 +55,8 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         None => config::parse(DEMO_CONFIG, "built-in demo configuration", None)
             .map_err(Failure::usage)?,
     };
-    settings.state_dir = std::env::temp_dir().join("wallflux-demo");
+    // A fresh state directory per demo run: its energy totals start at zero.
+    settings.state_dir = std::env::temp_dir().join(format!("wallflux-demo-{}", std::process::id()));
     if !args.no_broker {
         settings.mqtt.host = "127.0.0.1".into();
         settings.mqtt.port = args.broker_port;
@@ -68,6 +69,7 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         s.port = pty.path.clone();
         ptys.push(pty);
     }
+    let state_dir = settings.state_dir.clone();
     let settings = Arc::new(settings);
     let schedule = FiringSchedule::demo();
     let rt = super::runtime()?;
@@ -118,6 +120,7 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         let result = super::run::run(settings, clock, shutdown, Some(observer)).await;
         stop.store(true, Ordering::Relaxed);
         let _ = sim.join();
+        let _ = std::fs::remove_dir_all(&state_dir);
         result.map_err(Failure::runtime)
     })
 }

@@ -11,6 +11,7 @@ pub mod clock;
 pub mod demo;
 pub mod logging;
 pub mod run;
+pub mod state;
 pub mod tc;
 
 use std::path::Path;

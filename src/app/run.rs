@@ -10,8 +10,10 @@ use tokio::sync::{mpsc, watch};
 use tracing::{info, warn};
 
 use super::clock::Clock;
+use super::state;
 use crate::acquire::serial::{self, SourceHealth};
 use crate::config::Settings;
+use crate::monitor::energy::{EnergyMeter, EnergyTotals};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
 use crate::monitor::{Event, Monitor};
 use crate::publish::mqtt::{self, LinkHealth};
@@ -22,6 +24,8 @@ pub type Observer = Box<dyn FnMut(&ZoneReport) + Send>;
 
 /// How often (real time) the engine looks for due work.
 const TICK: Duration = Duration::from_millis(100);
+/// How often (real time) the energy totals are saved.
+const SAVE_EVERY: Duration = Duration::from_secs(300);
 /// How often (real time) the status with counters is republished.
 const STATUS_EVERY: Duration = Duration::from_secs(60);
 
@@ -72,6 +76,20 @@ pub async fn run(
     );
 
     let mut monitor = Monitor::new(settings.clone(), clock.now());
+    let totals = match state::load::<EnergyTotals>(&settings.state_dir, ENERGY_FILE) {
+        state::Loaded::Value(t) => {
+            info!(total_kwh = t.total_kwh, "energy totals restored");
+            t
+        }
+        state::Loaded::Missing => EnergyTotals::default(),
+        state::Loaded::Corrupt(moved, e) => {
+            warn!(file = %moved.display(), error = %e, "energy totals unreadable: moved aside, counting from zero");
+            EnergyTotals::default()
+        }
+    };
+    let mut meter = EnergyMeter::new(settings.zones.len(), settings.site.firing_start_c, totals);
+    let mut save_tick = tokio::time::interval(SAVE_EVERY);
+    save_tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
     let mut tick = tokio::time::interval(TICK);
     tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
     let mut status_tick = tokio::time::interval(STATUS_EVERY);
@@ -86,8 +104,9 @@ pub async fn run(
                 None => sources_open = false,
             },
             _ = tick.tick() => {
-                drain(&mut monitor, &settings, &root, &queue, clock, &mut observer);
+                drain(&mut monitor, &mut meter, &settings, &root, &queue, clock, &mut observer);
             }
+            _ = save_tick.tick() => save_energy(&settings, &meter),
             _ = status_tick.tick() => {
                 queue.push(Message {
                     topic: format!("{root}/status"),
@@ -100,6 +119,7 @@ pub async fn run(
     }
 
     info!("shutting down");
+    save_energy(&settings, &meter);
     let _ = stop_tx.send(true);
     for t in source_tasks {
         let _ = tokio::time::timeout(Duration::from_secs(2), t).await;
@@ -115,6 +135,7 @@ pub async fn run(
 /// Moves every due output of the monitor to the queue and the log.
 fn drain(
     monitor: &mut Monitor,
+    meter: &mut EnergyMeter,
     settings: &Settings,
     root: &str,
     queue: &Queue,
@@ -122,12 +143,21 @@ fn drain(
     observer: &mut Option<Observer>,
 ) {
     let now = clock.now();
+    let mut any_zone = false;
     while let Some(report) = monitor.poll_zone(now) {
+        any_zone = true;
         let zi = settings
             .zones
             .iter()
             .position(|z| z.name == report.zone)
             .unwrap_or(0);
+        meter.record(
+            zi,
+            report.heat_loss_w,
+            report.hot_face_c,
+            settings.zones[zi].interval_s,
+            report.time,
+        );
         let cycles = monitor.zone_cycles(zi);
         if cycles % u64::from(settings.log.summary_every) == 1 || settings.log.summary_every == 1 {
             log_summary(&report);
@@ -142,6 +172,21 @@ fn drain(
         }
         if let Some(obs) = observer.as_mut() {
             obs(&report);
+        }
+    }
+    if any_zone {
+        let price = settings
+            .site
+            .energy_price
+            .as_ref()
+            .map(|(p, c)| (*p, c.as_str()));
+        match serde_json::to_vec(&meter.report(now, price)) {
+            Ok(payload) => queue.push(Message {
+                topic: format!("{root}/kiln/state"),
+                payload,
+                kind: Kind::ZoneState,
+            }),
+            Err(e) => warn!(error = %e, "kiln state could not be encoded"),
         }
     }
     while let Some(ch) = monitor.poll_channel(now) {
@@ -183,6 +228,15 @@ fn drain(
                     "frame carries an input that no [[channel]] reads (ignored; further ones counted)");
             }
         }
+    }
+}
+
+/// File of the energy totals in the state directory.
+pub const ENERGY_FILE: &str = "energy.json";
+
+fn save_energy(settings: &Settings, meter: &EnergyMeter) {
+    if let Err(e) = state::save(&settings.state_dir, ENERGY_FILE, &meter.totals) {
+        warn!(dir = %settings.state_dir.display(), error = %e, "cannot save the energy totals");
     }
 }
 

@@ -50,6 +50,10 @@ pub struct Settings {
 pub struct Site {
     pub plant: Name,
     pub kiln: Name,
+    /// Energy price and its currency, for the cost of heat lost.
+    pub energy_price: Option<(f64, String)>,
+    /// A firing is under way while a zone's hot face is above this, °C.
+    pub firing_start_c: f64,
 }
 
 #[derive(Debug, Clone)]

@@ -31,6 +31,9 @@ pub struct RawConfig {
 pub struct RawSite {
     pub plant: S<String>,
     pub kiln: S<String>,
+    pub energy_price_per_kwh: Option<S<f64>>,
+    pub currency: Option<S<String>>,
+    pub firing_start_c: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]

@@ -188,9 +188,53 @@ impl Validator<'_> {
     fn settings(&mut self, raw: RawConfig, state_env: Option<&str>) -> Option<Settings> {
         let site = {
             let s = raw.site.get_ref();
+            let energy_price = match (&s.energy_price_per_kwh, &s.currency) {
+                (Some(p), Some(c)) => {
+                    let v = *p.get_ref();
+                    if !(v.is_finite() && v >= 0.0) {
+                        self.problem(
+                            p.span(),
+                            "site.energy_price_per_kwh",
+                            "must be zero or a positive number",
+                        );
+                    }
+                    let cur = c.get_ref().trim();
+                    if cur.is_empty() || cur.len() > 8 {
+                        self.problem(
+                            c.span(),
+                            "site.currency",
+                            "must be a short currency code, e.g. \"EUR\"",
+                        );
+                    }
+                    Some((v, cur.to_string()))
+                }
+                (Some(p), None) => {
+                    self.problem(
+                        p.span(),
+                        "site.energy_price_per_kwh",
+                        "needs site.currency too",
+                    );
+                    None
+                }
+                (None, Some(c)) => {
+                    self.problem(
+                        c.span(),
+                        "site.currency",
+                        "needs site.energy_price_per_kwh too",
+                    );
+                    None
+                }
+                (None, None) => None,
+            };
+            let firing_start_c = s
+                .firing_start_c
+                .as_ref()
+                .map_or(150.0, |f| self.finite(f, "site.firing_start_c"));
             Site {
                 plant: self.name(&s.plant, "site.plant"),
                 kiln: self.name(&s.kiln, "site.kiln"),
+                energy_price,
+                firing_start_c,
             }
         };
         let state_dir = match &raw.state_dir {

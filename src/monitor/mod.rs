@@ -4,7 +4,11 @@
 //! come out of `poll_*`, and every call takes `now`. The live daemon and
 //! `analyze` drive the same engine, so a replay reproduces the live numbers.
 
+pub mod alarm;
 pub mod channel;
+pub mod command;
+pub mod energy;
+pub mod trend;
 pub mod zone;
 
 use std::sync::Arc;

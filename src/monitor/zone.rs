@@ -8,6 +8,7 @@ use serde::Serialize;
 use super::channel::{ChannelState, Health, Reading};
 use crate::config::{Name, Settings, Zone, MAX_PROBES};
 use crate::physics::fit::linear_slope;
+use crate::physics::material::Material;
 use crate::physics::profile::{ProbeSample, QuadraticWall};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
 use crate::time::Timestamp;
@@ -87,6 +88,10 @@ pub struct ZoneReport {
     /// Large values point at a failed shell thermocouple, wet insulation or
     /// a wall that is not at the state the model assumes.
     pub balance_mismatch_pct: Option<f64>,
+    /// Rate of heat storage in the wall from the probes' measured rates,
+    /// ∫ ρ c_p ∂T/∂t dx (trapezoid over the probes, each end value held to
+    /// its face), W/m². Positive: the wall is heating.
+    pub stored_w_m2: Option<f64>,
     pub probes_used: u8,
     pub uncertainty: Option<Uncertainty>,
     pub probes: HVec<ProbeReport, MAX_PROBES>,
@@ -239,10 +244,12 @@ impl ZoneEngine {
             h_convection_w_m2k: None,
             h_radiation_w_m2k: None,
             balance_mismatch_pct: None,
+            stored_w_m2: None,
             probes_used: samples.len() as u8,
             uncertainty: None,
             probes,
         };
+        report.stored_w_m2 = stored_w_m2(&report.probes, wall.thickness_m, wall.material);
         let Ok(sol) = wall.solve(&samples) else {
             return report;
         };
@@ -292,6 +299,31 @@ pub fn shell_surface(zone: &Zone, shell_c: f64) -> SurfaceLoss {
         },
         None => surface_loss(shell_c, &zone.surface),
     }
+}
+
+/// ∫₀ᴸ ρ c_p ∂T/∂t dx from the valid probes' measured rates (trapezoid in
+/// depth order; the shallowest and deepest values held to the faces).
+/// Needs two probes with rates.
+fn stored_w_m2(probes: &[ProbeReport], thickness_m: f64, material: &Material) -> Option<f64> {
+    let mut pts: HVec<(f64, f64), MAX_PROBES> = HVec::new();
+    for p in probes.iter().filter(|p| p.status == Health::Ok) {
+        if let (Some(rate), Some(t)) = (p.rate_measured_c_per_h, p.measured_c) {
+            let _ = pts.push((
+                p.depth_mm / 1000.0,
+                material.heat_capacity_j_m3k(t) * rate / 3600.0,
+            ));
+        }
+    }
+    if pts.len() < 2 {
+        return None;
+    }
+    pts.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
+    let (first, last) = (pts[0], pts[pts.len() - 1]);
+    let mut sum = first.1 * first.0 + last.1 * (thickness_m - last.0);
+    for w in pts.windows(2) {
+        sum += 0.5 * (w[0].1 + w[1].1) * (w[1].0 - w[0].0);
+    }
+    Some(sum)
 }
 
 /// Relative mismatch of two flux estimates, %; None when the reference is

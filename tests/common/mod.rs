@@ -39,8 +39,13 @@ pub fn one_zone_config(
     depths_mm: &[f64],
     interval_s: f64,
 ) -> String {
+    let state_dir =
+        std::env::temp_dir().join(format!("wallflux-test-{mqtt_port}-{}", std::process::id()));
+    let state_dir = state_dir.display();
     let mut s = format!(
         r#"
+state_dir = "{state_dir}"
+
 [site]
 plant = "test-plant"
 kiln = "k1"
