@@ -44,6 +44,118 @@ pub struct Settings {
     pub channels: Vec<Channel>,
     pub materials: Vec<NamedMaterial>,
     pub zones: Vec<Zone>,
+    /// Every alarm: built-in ones (tuned or disabled by an `[[alarm]]` of the
+    /// same name) and configured ones.
+    pub alarms: Vec<AlarmConfig>,
+    pub trend: TrendSettings,
+}
+
+/// What an alarm watches.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum AlarmTarget {
+    /// A numeric field of zone `zone`'s state.
+    Zone { zone: usize, quantity: ZoneQuantity },
+    /// Channel `channel`: its temperature, or its health (diagnostic).
+    Channel { channel: usize, health: bool },
+    /// Source `source` silent (diagnostic).
+    Source { source: usize },
+}
+
+/// The zone-state fields an alarm can watch.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum ZoneQuantity {
+    HotFaceC,
+    ShellC,
+    FluxHotFaceWM2,
+    FluxShellWM2,
+    HeatLossW,
+    SourceWM3,
+    FitRmsC,
+    FluxSurfaceWM2,
+    BalanceMismatchPct,
+    StoredWM2,
+}
+
+impl ZoneQuantity {
+    pub const ALL: [(ZoneQuantity, &'static str, &'static str); 10] = [
+        (ZoneQuantity::HotFaceC, "hot_face_c", "°C"),
+        (ZoneQuantity::ShellC, "shell_c", "°C"),
+        (ZoneQuantity::FluxHotFaceWM2, "flux_hot_face_w_m2", "W/m²"),
+        (ZoneQuantity::FluxShellWM2, "flux_shell_w_m2", "W/m²"),
+        (ZoneQuantity::HeatLossW, "heat_loss_w", "W"),
+        (ZoneQuantity::SourceWM3, "source_w_m3", "W/m³"),
+        (ZoneQuantity::FitRmsC, "fit_rms_c", "°C"),
+        (ZoneQuantity::FluxSurfaceWM2, "flux_surface_w_m2", "W/m²"),
+        (
+            ZoneQuantity::BalanceMismatchPct,
+            "balance_mismatch_pct",
+            "%",
+        ),
+        (ZoneQuantity::StoredWM2, "stored_w_m2", "W/m²"),
+    ];
+
+    pub fn from_name(s: &str) -> Option<Self> {
+        Self::ALL
+            .iter()
+            .find(|(_, n, _)| *n == s)
+            .map(|(q, _, _)| *q)
+    }
+
+    pub fn name(self) -> &'static str {
+        Self::ALL
+            .iter()
+            .find(|(q, _, _)| *q == self)
+            .map_or("", |(_, n, _)| n)
+    }
+
+    pub fn unit(self) -> &'static str {
+        Self::ALL
+            .iter()
+            .find(|(q, _, _)| *q == self)
+            .map_or("", |(_, _, u)| u)
+    }
+}
+
+/// One alarm, validated.
+#[derive(Debug, Clone)]
+pub struct AlarmConfig {
+    /// Unique; safe in a topic level (built from validated names).
+    pub name: String,
+    pub target: AlarmTarget,
+    pub spec: crate::monitor::alarm::AlarmSpec,
+    /// For `deviation`: the reference the percentage is taken from.
+    pub baseline: Option<f64>,
+    pub builtin: bool,
+    pub message: String,
+    pub consequence: String,
+    pub action: String,
+}
+
+impl AlarmConfig {
+    /// Unit of the watched value (per hour for rates, % for deviations).
+    pub fn unit(&self) -> &'static str {
+        use crate::monitor::alarm::AlarmKind;
+        match (self.spec.kind, self.target) {
+            (AlarmKind::Diagnostic, _) => "",
+            (AlarmKind::Deviation, _) => "%",
+            (AlarmKind::RateHigh, AlarmTarget::Zone { quantity, .. }) => match quantity.unit() {
+                "°C" => "°C/h",
+                "W" => "W/h",
+                _ => "/h",
+            },
+            (AlarmKind::RateHigh, _) => "°C/h",
+            (_, AlarmTarget::Zone { quantity, .. }) => quantity.unit(),
+            (_, _) => "°C",
+        }
+    }
+}
+
+/// Trend alerts: a watched quantity reaching its alarm limit within the
+/// horizon at its current rate gets a log line and an event.
+#[derive(Debug, Clone, Copy)]
+pub struct TrendSettings {
+    pub horizon_h: f64,
+    pub repeat_min: f64,
 }
 
 #[derive(Debug, Clone)]
@@ -205,6 +317,10 @@ pub struct Zone {
     /// A measured combined surface coefficient, W/(m²·K), used instead of
     /// the correlations when a site has one.
     pub surface_h_w_m2k: Option<f64>,
+    /// Heating/cooling rate limit of the hot face (built-in alarm), °C/h.
+    pub max_ramp_c_per_h: Option<f64>,
+    /// Reference heat loss of the zone (built-in deviation alarm), W.
+    pub heat_loss_baseline_w: Option<f64>,
     /// Window of the measured-rate regression, s.
     pub rate_window_s: f64,
     pub layers: Vec<ZoneLayer>,

@@ -24,6 +24,41 @@ pub struct RawConfig {
     pub material: Vec<S<RawMaterial>>,
     #[serde(default)]
     pub zone: Vec<S<RawZone>>,
+    #[serde(default)]
+    pub alarm_defaults: Option<S<RawAlarmDefaults>>,
+    #[serde(default)]
+    pub alarm: Vec<S<RawAlarm>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawAlarmDefaults {
+    pub shell_touch_c: Option<S<f64>>,
+    pub shell_touch_enabled: Option<S<bool>>,
+    pub trend_horizon_h: Option<S<f64>>,
+    pub trend_repeat_min: Option<S<f64>>,
+}
+
+#[derive(Debug, Deserialize)]
+#[serde(deny_unknown_fields)]
+pub struct RawAlarm {
+    pub name: S<String>,
+    pub zone: Option<S<String>>,
+    pub channel: Option<S<String>>,
+    pub source: Option<S<String>>,
+    pub quantity: Option<S<String>>,
+    pub kind: Option<S<String>>,
+    pub setpoint: Option<S<f64>>,
+    pub baseline: Option<S<f64>>,
+    pub deadband: Option<S<f64>>,
+    pub on_delay_s: Option<S<f64>>,
+    pub off_delay_s: Option<S<f64>>,
+    pub priority: Option<S<String>>,
+    pub latch: Option<S<bool>>,
+    pub enabled: Option<S<bool>>,
+    pub message: Option<S<String>>,
+    pub consequence: Option<S<String>>,
+    pub action: Option<S<String>>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -158,6 +193,8 @@ pub struct RawZone {
     pub surroundings_c: Option<S<f64>>,
     pub wind_m_s: Option<S<f64>>,
     pub surface_h_w_m2k: Option<S<f64>>,
+    pub max_ramp_c_per_h: Option<S<f64>>,
+    pub heat_loss_baseline_w: Option<S<f64>>,
     pub rate_window_s: Option<S<f64>>,
     pub layers: S<Vec<S<RawLayer>>>,
     pub probes: S<Vec<S<RawProbe>>>,

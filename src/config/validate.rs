@@ -9,7 +9,14 @@ use toml::Spanned;
 
 use super::raw::*;
 use super::*;
+use crate::monitor::alarm::{AlarmKind, AlarmSpec, Priority};
 use crate::physics::material::{Material, Property};
+
+/// Default shell touch limit, °C: a common personnel-protection target (ASTM
+/// C1055 guides the design of heated surfaces for contact and fixes no
+/// value; ISO 13732-1 gives burn thresholds by material and contact time).
+/// Local rules decide: set `[alarm_defaults] shell_touch_c`.
+pub const DEFAULT_SHELL_TOUCH_C: f64 = 60.0;
 
 /// One problem in a configuration file.
 #[derive(Debug, Clone, PartialEq)]
@@ -355,6 +362,22 @@ impl Validator<'_> {
             });
         }
 
+        let defaults = raw.alarm_defaults.as_ref().map(|d| d.get_ref());
+        let trend = TrendSettings {
+            horizon_h: defaults
+                .and_then(|d| d.trend_horizon_h.as_ref())
+                .map_or(4.0, |h| {
+                    self.positive(h, "alarm_defaults.trend_horizon_h", "hours")
+                }),
+            repeat_min: defaults
+                .and_then(|d| d.trend_repeat_min.as_ref())
+                .map_or(30.0, |h| {
+                    self.positive(h, "alarm_defaults.trend_repeat_min", "minutes")
+                }),
+        };
+        let mut alarms = self.builtin_alarms(defaults, &sources, &channels, &materials, &zones);
+        self.configured_alarms(&raw.alarm, &mut alarms, &sources, &channels, &zones);
+
         Some(Settings {
             site,
             state_dir,
@@ -364,7 +387,413 @@ impl Validator<'_> {
             channels,
             materials,
             zones,
+            alarms,
+            trend,
         })
+    }
+
+    /// The alarms every site gets (see docs/alarms.md for their sources).
+    fn builtin_alarms(
+        &mut self,
+        defaults: Option<&RawAlarmDefaults>,
+        sources: &[Source],
+        channels: &[Channel],
+        materials: &[NamedMaterial],
+        zones: &[Zone],
+    ) -> Vec<AlarmConfig> {
+        let spec = |kind, setpoint, deadband, on_delay_s, priority| AlarmSpec {
+            kind,
+            setpoint,
+            deadband,
+            on_delay_s,
+            off_delay_s: 0.0,
+            latch: false,
+            priority,
+        };
+        let mut out = Vec::new();
+        let touch_c = defaults
+            .and_then(|d| d.shell_touch_c.as_ref())
+            .map_or(DEFAULT_SHELL_TOUCH_C, |t| {
+                self.finite(t, "alarm_defaults.shell_touch_c")
+            });
+        let touch_on = defaults
+            .and_then(|d| d.shell_touch_enabled.as_ref())
+            .is_none_or(|e| *e.get_ref());
+        let text = |s: &str| s.to_string();
+        for (zi, z) in zones.iter().enumerate() {
+            let zone = |quantity| AlarmTarget::Zone { zone: zi, quantity };
+            if touch_on {
+                out.push(AlarmConfig {
+                    name: format!("{}-shell-touch", z.name),
+                    target: zone(ZoneQuantity::ShellC),
+                    spec: spec(AlarmKind::High, touch_c, 2.0, 60.0, Priority::High),
+                    baseline: None,
+                    builtin: true,
+                    message: format!("Shell of zone {} is above the touch limit", z.name),
+                    consequence: text("Burns on contact with the shell"),
+                    action: text(
+                        "Keep people clear, guard or sign the area, check the insulation behind it",
+                    ),
+                });
+            }
+            if let Some(limit) = z
+                .layers
+                .first()
+                .and_then(|l| materials.get(l.material))
+                .and_then(|m| m.material.max_service_c)
+            {
+                out.push(AlarmConfig {
+                    name: format!("{}-hot-face-service", z.name),
+                    target: zone(ZoneQuantity::HotFaceC),
+                    spec: spec(AlarmKind::High, limit, 10.0, 120.0, Priority::High),
+                    baseline: None,
+                    builtin: true,
+                    message: format!(
+                        "Hot face of zone {} above the lining's service limit",
+                        z.name
+                    ),
+                    consequence: text("Lining damage: softening, shrinkage, spalling"),
+                    action: text(
+                        "Check the firing against the lining's limit; reduce the set-point",
+                    ),
+                });
+            }
+            if let Some(ramp) = z.max_ramp_c_per_h {
+                out.push(AlarmConfig {
+                    name: format!("{}-ramp", z.name),
+                    target: zone(ZoneQuantity::HotFaceC),
+                    spec: spec(
+                        AlarmKind::RateHigh,
+                        ramp,
+                        0.1 * ramp,
+                        300.0,
+                        Priority::Medium,
+                    ),
+                    baseline: None,
+                    builtin: true,
+                    message: format!(
+                        "Hot face of zone {} heating or cooling faster than the ramp limit",
+                        z.name
+                    ),
+                    consequence: text("Thermal shock; in a wet lining, steam spalling"),
+                    action: text("Slow the ramp to the refractory supplier's schedule"),
+                });
+            }
+            if let Some(base) = z.heat_loss_baseline_w {
+                out.push(AlarmConfig {
+                    name: format!("{}-heat-loss", z.name),
+                    target: zone(ZoneQuantity::HeatLossW),
+                    spec: spec(AlarmKind::Deviation, 20.0, 2.0, 1800.0, Priority::Low),
+                    baseline: Some(base),
+                    builtin: true,
+                    message: format!(
+                        "Heat loss of zone {} more than 20 % from its baseline",
+                        z.name
+                    ),
+                    consequence: text("Energy cost; possibly a worn or wet lining"),
+                    action: text("Compare with earlier firings; plan an inspection"),
+                });
+            }
+        }
+        for (ci, c) in channels.iter().enumerate() {
+            if !zones
+                .iter()
+                .any(|z| z.probes.iter().any(|p| p.channel == ci))
+            {
+                continue;
+            }
+            out.push(AlarmConfig {
+                name: format!("{}-fault", c.name),
+                target: AlarmTarget::Channel { channel: ci, health: true },
+                spec: spec(AlarmKind::Diagnostic, 0.5, 0.0, 30.0, Priority::Medium),
+                baseline: None,
+                builtin: true,
+                message: format!("Thermocouple {} faulty (open, out of range, stuck, outlier or stale)", c.name),
+                consequence: text("The zone's numbers rest on fewer probes; alarms depending on it are suppressed"),
+                action: text("Check the thermocouple, its wiring and its input"),
+            });
+        }
+        for (si, s) in sources.iter().enumerate() {
+            out.push(AlarmConfig {
+                name: format!("{}-silent", s.name),
+                target: AlarmTarget::Source { source: si },
+                spec: spec(AlarmKind::Diagnostic, 0.5, 0.0, 0.0, Priority::High),
+                baseline: None,
+                builtin: true,
+                message: format!("No valid frame from {} within its silence limit", s.name),
+                consequence: text(
+                    "No readings from its thermocouples: no numbers, no process alarms",
+                ),
+                action: text("Check the serial cable, the box's power and the port"),
+            });
+        }
+        out
+    }
+
+    fn configured_alarms(
+        &mut self,
+        raw: &[Spanned<RawAlarm>],
+        alarms: &mut Vec<AlarmConfig>,
+        sources: &[Source],
+        channels: &[Channel],
+        zones: &[Zone],
+    ) {
+        let mut seen: Vec<String> = Vec::new();
+        for (i, ra) in raw.iter().enumerate() {
+            let a = ra.get_ref();
+            let p = |k: &str| format!("alarm[{i}].{k}");
+            let name = self.name(&a.name, &p("name")).to_string();
+            if seen.contains(&name) && !name.is_empty() {
+                self.problem(
+                    a.name.span(),
+                    p("name"),
+                    format!("{name:?} is already the name of another [[alarm]]"),
+                );
+                continue;
+            }
+            seen.push(name.clone());
+            let builtin = alarms.iter().position(|b| b.builtin && b.name == name);
+            let kind = a.kind.as_ref().map(|k| match k.get_ref().as_str() {
+                "high" => AlarmKind::High,
+                "low" => AlarmKind::Low,
+                "rate_high" => AlarmKind::RateHigh,
+                "deviation" => AlarmKind::Deviation,
+                "diagnostic" => AlarmKind::Diagnostic,
+                other => {
+                    self.problem(
+                        k.span(),
+                        p("kind"),
+                        format!("{other:?} is not an alarm kind; use high, low, rate_high, deviation or diagnostic"),
+                    );
+                    AlarmKind::High
+                }
+            });
+            let priority = a.priority.as_ref().map(|k| match k.get_ref().as_str() {
+                "critical" => Priority::Critical,
+                "high" => Priority::High,
+                "medium" => Priority::Medium,
+                "low" => Priority::Low,
+                other => {
+                    self.problem(
+                        k.span(),
+                        p("priority"),
+                        format!("{other:?} is not a priority; use critical, high, medium or low"),
+                    );
+                    Priority::Medium
+                }
+            });
+            let mut cfg = match builtin {
+                Some(b) => {
+                    for (given, key) in [
+                        (a.zone.is_some(), "zone"),
+                        (a.channel.is_some(), "channel"),
+                        (a.source.is_some(), "source"),
+                        (a.quantity.is_some(), "quantity"),
+                        (a.kind.is_some(), "kind"),
+                    ] {
+                        if given {
+                            self.problem(
+                                a.name.span(),
+                                p(key),
+                                format!("{name:?} is a built-in alarm: its {key} is fixed (tune setpoint, delays, priority, texts, or set enabled = false)"),
+                            );
+                        }
+                    }
+                    if a.enabled.as_ref().is_some_and(|e| !*e.get_ref()) {
+                        alarms.remove(b);
+                        continue;
+                    }
+                    alarms.remove(b)
+                }
+                None => {
+                    let Some(target) = self.alarm_target(i, a, sources, channels, zones) else {
+                        continue;
+                    };
+                    let Some(kind) = kind else {
+                        self.problem(
+                            a.name.span(),
+                            p("kind"),
+                            "an alarm needs a kind: high, low, rate_high, deviation or diagnostic",
+                        );
+                        continue;
+                    };
+                    if a.enabled.as_ref().is_some_and(|e| !*e.get_ref()) {
+                        continue;
+                    }
+                    AlarmConfig {
+                        name: name.clone(),
+                        target,
+                        spec: AlarmSpec {
+                            kind,
+                            setpoint: if kind == AlarmKind::Diagnostic {
+                                0.5
+                            } else {
+                                f64::NAN
+                            },
+                            deadband: 0.0,
+                            on_delay_s: 0.0,
+                            off_delay_s: 0.0,
+                            latch: false,
+                            priority: Priority::Medium,
+                        },
+                        baseline: None,
+                        builtin: false,
+                        message: String::new(),
+                        consequence: String::new(),
+                        action: String::new(),
+                    }
+                }
+            };
+            if let Some(s) = &a.setpoint {
+                cfg.spec.setpoint = self.finite(s, &p("setpoint"));
+            } else if cfg.spec.setpoint.is_nan() {
+                self.problem(a.name.span(), p("setpoint"), "this alarm needs a setpoint");
+            }
+            if let Some(b) = &a.baseline {
+                cfg.baseline = Some(self.positive(b, &p("baseline"), "units of the quantity"));
+            }
+            if cfg.spec.kind == AlarmKind::Deviation && cfg.baseline.is_none() {
+                self.problem(
+                    a.name.span(),
+                    p("baseline"),
+                    "a deviation alarm needs the baseline it deviates from",
+                );
+            }
+            for (v, key) in [
+                (&a.deadband, "deadband"),
+                (&a.on_delay_s, "on_delay_s"),
+                (&a.off_delay_s, "off_delay_s"),
+            ] {
+                if let Some(v) = v {
+                    let x = *v.get_ref();
+                    if !(x.is_finite() && x >= 0.0) {
+                        self.problem(
+                            v.span(),
+                            p(key),
+                            format!("must be zero or positive, got {x}"),
+                        );
+                        continue;
+                    }
+                    match key {
+                        "deadband" => cfg.spec.deadband = x,
+                        "on_delay_s" => cfg.spec.on_delay_s = x,
+                        _ => cfg.spec.off_delay_s = x,
+                    }
+                }
+            }
+            if let Some(pr) = priority {
+                cfg.spec.priority = pr;
+            }
+            if let Some(l) = &a.latch {
+                cfg.spec.latch = *l.get_ref();
+            }
+            for (v, slot) in [
+                (&a.message, &mut cfg.message),
+                (&a.consequence, &mut cfg.consequence),
+                (&a.action, &mut cfg.action),
+            ] {
+                if let Some(t) = v {
+                    *slot = t.get_ref().clone();
+                }
+            }
+            if let Err(e) = cfg.spec.validate() {
+                if !cfg.spec.setpoint.is_nan() {
+                    self.problem(a.name.span(), format!("alarm[{i}]"), e.to_string());
+                }
+            }
+            alarms.push(cfg);
+        }
+    }
+
+    fn alarm_target(
+        &mut self,
+        i: usize,
+        a: &RawAlarm,
+        sources: &[Source],
+        channels: &[Channel],
+        zones: &[Zone],
+    ) -> Option<AlarmTarget> {
+        let p = |k: &str| format!("alarm[{i}].{k}");
+        let given = [a.zone.is_some(), a.channel.is_some(), a.source.is_some()]
+            .iter()
+            .filter(|g| **g)
+            .count();
+        if given != 1 {
+            self.problem(
+                a.name.span(),
+                p("zone"),
+                "an alarm watches exactly one of zone, channel or source",
+            );
+            return None;
+        }
+        if let Some(z) = &a.zone {
+            let Some(zone) = zones.iter().position(|x| x.name.as_str() == z.get_ref()) else {
+                self.problem(
+                    z.span(),
+                    p("zone"),
+                    format!("no [[zone]] is named {:?}", z.get_ref()),
+                );
+                return None;
+            };
+            let Some(q) = &a.quantity else {
+                self.problem(
+                    a.name.span(),
+                    p("quantity"),
+                    "a zone alarm needs a quantity, e.g. \"shell_c\"",
+                );
+                return None;
+            };
+            let Some(quantity) = ZoneQuantity::from_name(q.get_ref()) else {
+                let names: Vec<&str> = ZoneQuantity::ALL.iter().map(|(_, n, _)| *n).collect();
+                self.problem(
+                    q.span(),
+                    p("quantity"),
+                    format!(
+                        "{:?} is not a zone quantity; use one of {}",
+                        q.get_ref(),
+                        names.join(", ")
+                    ),
+                );
+                return None;
+            };
+            return Some(AlarmTarget::Zone { zone, quantity });
+        }
+        if let Some(c) = &a.channel {
+            let Some(channel) = channels.iter().position(|x| x.name.as_str() == c.get_ref()) else {
+                self.problem(
+                    c.span(),
+                    p("channel"),
+                    format!("no [[channel]] is named {:?}", c.get_ref()),
+                );
+                return None;
+            };
+            let health = match a.quantity.as_ref().map(|q| q.get_ref().as_str()) {
+                None | Some("celsius") => false,
+                Some("health") => true,
+                Some(other) => {
+                    let span = a.quantity.as_ref().map(|q| q.span()).unwrap_or_default();
+                    self.problem(
+                        span,
+                        p("quantity"),
+                        format!(
+                            "{other:?} is not a channel quantity; use \"celsius\" or \"health\""
+                        ),
+                    );
+                    return None;
+                }
+            };
+            return Some(AlarmTarget::Channel { channel, health });
+        }
+        let s = a.source.as_ref()?;
+        let Some(source) = sources.iter().position(|x| x.name.as_str() == s.get_ref()) else {
+            self.problem(
+                s.span(),
+                p("source"),
+                format!("no [[source]] is named {:?}", s.get_ref()),
+            );
+            return None;
+        };
+        Some(AlarmTarget::Source { source })
     }
 
     fn mqtt(&mut self, m: &RawMqtt, site: &Site) -> MqttSettings {
@@ -772,6 +1201,14 @@ impl Validator<'_> {
             .surface_h_w_m2k
             .as_ref()
             .map(|h| self.positive(h, &p("surface_h_w_m2k"), "W/(m²·K)"));
+        let max_ramp_c_per_h = z
+            .max_ramp_c_per_h
+            .as_ref()
+            .map(|h| self.positive(h, &p("max_ramp_c_per_h"), "°C/h"));
+        let heat_loss_baseline_w = z
+            .heat_loss_baseline_w
+            .as_ref()
+            .map(|h| self.positive(h, &p("heat_loss_baseline_w"), "W"));
         let rate_window_s = z
             .rate_window_s
             .as_ref()
@@ -911,6 +1348,8 @@ impl Validator<'_> {
                 wind_m_s,
             },
             surface_h_w_m2k,
+            max_ramp_c_per_h,
+            heat_loss_baseline_w,
             rate_window_s,
             layers,
             probes,

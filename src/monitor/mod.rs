@@ -5,6 +5,7 @@
 //! `analyze` drive the same engine, so a replay reproduces the live numbers.
 
 pub mod alarm;
+pub mod alarm_engine;
 pub mod channel;
 pub mod command;
 pub mod energy;
@@ -18,7 +19,10 @@ use heapless::Deque;
 use crate::acquire::line::{Frame, Value};
 use crate::config::Settings;
 use crate::time::Timestamp;
+use alarm::AlarmFlags;
+use alarm_engine::{AlarmEngine, AlarmOutput, AlarmReport};
 use channel::{ChannelReport, ChannelState, Health};
+use command::{Command, CommandError};
 use zone::{ZoneEngine, ZoneReport, STALE_INTERVALS};
 
 /// Something notable that the edges log and publish.
@@ -52,12 +56,26 @@ pub struct Monitor {
     zones: Vec<ZoneEngine>,
     events: Deque<Event, EVENT_QUEUE>,
     unknown_inputs_seen: Vec<[bool; 65]>,
+    /// Latest value of any kind from each source, and whether it is silent.
+    source_seen: Vec<Option<Timestamp>>,
+    source_silent: Vec<bool>,
+    start: Timestamp,
+    alarms: AlarmEngine,
     pub events_dropped: u64,
     pub unknown_inputs: u64,
 }
 
 impl Monitor {
     pub fn new(settings: Arc<Settings>, start: Timestamp) -> Self {
+        Self::with_alarm_flags(settings, start, &std::collections::BTreeMap::new())
+    }
+
+    /// A monitor whose alarms resume from saved flags (by alarm name).
+    pub fn with_alarm_flags(
+        settings: Arc<Settings>,
+        start: Timestamp,
+        saved: &std::collections::BTreeMap<String, AlarmFlags>,
+    ) -> Self {
         let n = settings.channels.len();
         let mut stale_after_s: Vec<f64> = settings
             .channels
@@ -92,6 +110,10 @@ impl Monitor {
             zones,
             events: Deque::new(),
             unknown_inputs_seen: vec![[false; 65]; settings.sources.len()],
+            source_seen: vec![None; settings.sources.len()],
+            source_silent: vec![false; settings.sources.len()],
+            start,
+            alarms: AlarmEngine::new(&settings, saved, start),
             events_dropped: 0,
             unknown_inputs: 0,
             settings,
@@ -135,6 +157,9 @@ impl Monitor {
             return;
         };
         let result = channel::convert(cfg, value, cj_c);
+        if let Some(seen) = self.source_seen.get_mut(cfg.source) {
+            *seen = Some(now);
+        }
         let state = &mut self.channels[ch];
         state.last_seen = Some(now);
         match result {
@@ -226,6 +251,62 @@ impl Monitor {
             calibration_date: cfg.calibration.date,
             calibration_overdue: cfg.calibration.overdue(now),
         })
+    }
+
+    fn update_suppression(&mut self, now: Timestamp) {
+        let channels = &self.channels;
+        let stale = &self.stale_after_s;
+        let silent = &self.source_silent;
+        self.alarms.update_suppression(
+            &self.settings,
+            |c| channels[c].health_at(now, stale[c]).0,
+            |s| silent[s],
+            now,
+        );
+    }
+
+    /// Time-driven work that no reading triggers: sources falling silent,
+    /// alarm timers (shelves running out, delays completing).
+    pub fn tick(&mut self, now: Timestamp) {
+        for s in 0..self.source_silent.len() {
+            let limit = self.settings.sources[s].silence_s;
+            let since = self.source_seen[s].unwrap_or(self.start);
+            let silent = now.since(since) > limit;
+            if silent != self.source_silent[s] {
+                self.source_silent[s] = silent;
+                self.update_suppression(now);
+            }
+            self.alarms.on_source(s, silent, now);
+        }
+        self.alarms.tick(now);
+    }
+
+    /// Whether source `s` is silent (no value within its silence limit).
+    pub fn source_silent(&self, s: usize) -> bool {
+        self.source_silent.get(s).copied().unwrap_or(false)
+    }
+
+    /// The next alarm transition or trend alert.
+    pub fn poll_alarm(&mut self) -> Option<AlarmOutput> {
+        self.alarms.poll()
+    }
+
+    /// An operator command; `Ok(alarm index)` when accepted.
+    pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+        self.alarms.command(cmd, now)
+    }
+
+    pub fn alarms(&self) -> &AlarmEngine {
+        &self.alarms
+    }
+
+    pub fn alarms_mut(&mut self) -> &mut AlarmEngine {
+        &mut self.alarms
+    }
+
+    /// The `{root}/alarm/{name}` payload of alarm `i` at `now`.
+    pub fn alarm_report(&self, i: usize, now: Timestamp) -> AlarmReport<'_> {
+        self.alarms.report(&self.settings, i, now)
     }
 
     /// The next queued event.

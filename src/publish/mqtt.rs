@@ -11,12 +11,13 @@ use std::time::Duration;
 
 use rumqttc::{AsyncClient, Event, LastWill, MqttOptions, Outgoing, Packet, QoS};
 use serde::Serialize;
-use tokio::sync::watch;
+use tokio::sync::{mpsc, watch};
 use tracing::{info, warn};
 
 use super::queue::Queue;
 use crate::app::clock::Clock;
 use crate::config::MqttSettings;
+use crate::monitor::command::MAX_COMMAND_BYTES;
 use crate::time::Timestamp;
 
 /// Largest packet either way; a zone state with 16 probes is about 4 KiB,
@@ -36,6 +37,8 @@ pub struct LinkHealth {
     pub connections: AtomicU64,
     pub failed_attempts: AtomicU64,
     pub published: AtomicU64,
+    /// Commands not handed to the engine (its queue full, or absurdly large).
+    pub commands_dropped: AtomicU64,
 }
 
 #[derive(Serialize)]
@@ -65,9 +68,11 @@ pub async fn run(
     queue: Arc<Queue>,
     health: Arc<LinkHealth>,
     clock: Clock,
+    commands: mpsc::Sender<Vec<u8>>,
     mut shutdown: watch::Receiver<bool>,
 ) {
     let status_topic = format!("{root}/status");
+    let cmd_topic = format!("{root}/cmd");
     let mut opts = MqttOptions::new(cfg.client_id.clone(), cfg.host.clone(), cfg.port);
     // Validated at load time: keep-alive ≥ 1 s and a non-empty client id
     // (rumqttc panics otherwise).
@@ -89,7 +94,7 @@ pub async fn run(
         tokio::spawn(async move {
             loop {
                 let m = queue.pop().await;
-                let retain = true;
+                let retain = m.retain();
                 if client
                     .publish(m.topic, QoS::AtLeastOnce, retain, m.payload)
                     .await
@@ -119,6 +124,13 @@ pub async fn run(
                     backoff = Duration::from_millis(250);
                     let _ = client.try_publish(status_topic.clone(), QoS::AtLeastOnce, true,
                         status_payload("online", clock.now()));
+                    // A new session may not know our subscription: ask again.
+                    let _ = client.try_subscribe(cmd_topic.clone(), QoS::AtLeastOnce);
+                }
+                Ok(Event::Incoming(Packet::Publish(p))) if p.topic == cmd_topic => {
+                    if p.payload.len() > MAX_COMMAND_BYTES * 4 || commands.try_send(p.payload.to_vec()).is_err() {
+                        health.commands_dropped.fetch_add(1, Ordering::Relaxed);
+                    }
                 }
                 Ok(_) => {}
                 Err(e) => {
@@ -152,8 +164,9 @@ pub async fn run(
     if health.connected.load(Ordering::Relaxed) {
         let flush = async {
             while let Some(m) = queue.try_pop() {
+                let retain = m.retain();
                 if client
-                    .publish(m.topic, QoS::AtLeastOnce, true, m.payload)
+                    .publish(m.topic, QoS::AtLeastOnce, retain, m.payload)
                     .await
                     .is_err()
                 {

@@ -20,13 +20,38 @@ pub enum Kind {
     Channel,
     /// Retained service status: never dropped.
     Status,
+    /// Retained alarm state: latest wins; never dropped.
+    Alarm,
+    /// Alarm transition, trend alert or command reply (not retained):
+    /// never coalesced, never dropped while fewer than `MAX_EVENTS` wait.
+    Event,
 }
+
+impl Kind {
+    fn droppable(self) -> bool {
+        matches!(self, Kind::ZoneState | Kind::Channel)
+    }
+    fn coalesced(self) -> bool {
+        matches!(self, Kind::ZoneState | Kind::Channel | Kind::Alarm)
+    }
+}
+
+/// Events held at most while the broker is away; beyond, the oldest is lost
+/// and counted (a durable spool is planned).
+pub const MAX_EVENTS: usize = 10_000;
 
 #[derive(Debug, Clone, PartialEq)]
 pub struct Message {
     pub topic: String,
     pub payload: Vec<u8>,
     pub kind: Kind,
+}
+
+impl Message {
+    /// Every kind but events is retained.
+    pub fn retain(&self) -> bool {
+        self.kind != Kind::Event
+    }
 }
 
 /// Counters of the queue, shared with the status report.
@@ -38,6 +63,8 @@ pub struct QueueCounters {
     pub dropped_zone_states: AtomicU64,
     /// Channel readings dropped because the queue was full.
     pub dropped_channels: AtomicU64,
+    /// Events lost because more than `MAX_EVENTS` waited.
+    pub lost_events: AtomicU64,
 }
 
 pub struct Queue {
@@ -62,7 +89,15 @@ impl Queue {
     pub fn push(&self, msg: Message) {
         {
             let mut q = self.inner.lock().unwrap_or_else(|e| e.into_inner());
-            if msg.kind != Kind::Status {
+            if msg.kind == Kind::Event
+                && q.iter().filter(|m| m.kind == Kind::Event).count() >= MAX_EVENTS
+            {
+                if let Some(i) = q.iter().position(|m| m.kind == Kind::Event) {
+                    q.remove(i);
+                    self.counters.lost_events.fetch_add(1, Ordering::Relaxed);
+                }
+            }
+            if msg.kind.coalesced() {
                 if let Some(old) = q.iter_mut().find(|m| m.topic == msg.topic) {
                     *old = msg;
                     self.counters.coalesced.fetch_add(1, Ordering::Relaxed);
@@ -72,13 +107,13 @@ impl Queue {
                 }
             }
             if q.len() >= self.capacity {
-                match q.iter().position(|m| m.kind != Kind::Status) {
+                match q.iter().position(|m| m.kind.droppable()) {
                     Some(i) => {
                         if let Some(old) = q.remove(i) {
                             self.count_drop(old.kind);
                         }
                     }
-                    None if msg.kind != Kind::Status => {
+                    None if msg.kind.droppable() => {
                         self.count_drop(msg.kind);
                         return;
                     }
@@ -94,7 +129,7 @@ impl Queue {
         let c = match kind {
             Kind::ZoneState => &self.counters.dropped_zone_states,
             Kind::Channel => &self.counters.dropped_channels,
-            Kind::Status => return,
+            Kind::Status | Kind::Alarm | Kind::Event => return,
         };
         c.fetch_add(1, Ordering::Relaxed);
     }
@@ -161,5 +196,25 @@ mod tests {
             .map(|m| m.topic)
             .collect();
         assert_eq!(topics, ["status", "z/b", "z/c"]);
+    }
+
+    #[test]
+    fn events_are_kept_in_order_beyond_capacity() {
+        let q = Queue::new(2);
+        for n in 0..5 {
+            q.push(msg("events", Kind::Event, n));
+        }
+        q.push(msg("z/a", Kind::ZoneState, 9));
+        let got: Vec<_> = std::iter::from_fn(|| q.try_pop())
+            .map(|m| (m.kind, m.payload[0]))
+            .collect();
+        // Five events, none coalesced or dropped; the zone state is dropped
+        // (the queue is over capacity with undroppable messages).
+        assert_eq!(got.len(), 5, "{got:?}");
+        assert!(got
+            .iter()
+            .enumerate()
+            .all(|(i, (k, n))| *k == Kind::Event && *n as usize == i));
+        assert_eq!(q.counters.dropped_zone_states.load(Ordering::Relaxed), 1);
     }
 }
