@@ -36,7 +36,10 @@ const DEFAULT_RATE_WINDOW_S: f64 = 600.0;
 /// (transitions are counted as lost only when nothing else can go).
 const MAX_PENDING: usize = 1024;
 
-/// Something for the edges to publish and log.
+/// Something for the edges to publish and log. (A transition carries the
+/// operator's name inline, without allocation; outputs are rare and queued
+/// in a bounded deque, so the size difference between variants is harmless.)
+#[allow(clippy::large_enum_variant)]
 #[derive(Debug, Clone, PartialEq)]
 pub enum AlarmOutput {
     /// An alarm changed; `announced` is false while it is shelved,
