@@ -219,6 +219,15 @@ impl Monitor {
             self.channels[p.channel].zone_fault = d;
             self.check_health(p.channel, due);
         }
+        // Alarms: suppression from the channels' health, then the zone's
+        // process alarms and its channels' alarms.
+        self.update_suppression(due);
+        self.alarms.on_zone(i, &report);
+        for p in &settings.zones[i].probes {
+            let (h, _) = self.channels[p.channel].health_at(due, self.stale_after_s[p.channel]);
+            let c = self.channels[p.channel].latest.map(|r| r.celsius);
+            self.alarms.on_channel(p.channel, h, c, due);
+        }
         Some(report)
     }
 

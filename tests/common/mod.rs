@@ -1,6 +1,7 @@
 //! Shared helpers of the integration tests: the real binary, temp files.
 #![allow(dead_code)]
 
+pub mod feeder;
 pub mod mqtt;
 
 use std::path::PathBuf;

@@ -155,3 +155,54 @@ pub fn wait_for(
         }
     }
 }
+
+/// Publishes one message (QoS 1) and waits until the broker has it.
+pub fn publish(port: u16, topic: &str, payload: &[u8]) {
+    let mut opts = MqttOptions::new(
+        format!("test-pub-{port}-{}", std::process::id()),
+        "127.0.0.1",
+        port,
+    );
+    opts.set_max_packet_size(1 << 20, 1 << 20);
+    let (client, mut conn) = Client::new(opts, 16);
+    client
+        .publish(topic, QoS::AtLeastOnce, false, payload.to_vec())
+        .unwrap();
+    for ev in conn.iter() {
+        match ev {
+            Ok(Event::Incoming(Packet::PubAck(_))) => break,
+            Ok(_) => {}
+            Err(e) => panic!("publish to {topic}: {e}"),
+        }
+    }
+    let _ = client.disconnect();
+}
+
+/// Waits (bounded) until every predicate has matched some message, in any
+/// order; returns the first match of each.
+pub fn wait_all(
+    rx: &mpsc::Receiver<Msg>,
+    within: Duration,
+    what: &str,
+    preds: &[&dyn Fn(&Msg) -> bool],
+) -> Vec<Msg> {
+    let deadline = Instant::now() + within;
+    let mut found: Vec<Option<Msg>> = vec![None; preds.len()];
+    while found.iter().any(|f| f.is_none()) {
+        let left = deadline.saturating_duration_since(Instant::now());
+        match rx.recv_timeout(left) {
+            Ok(m) => {
+                for (i, p) in preds.iter().enumerate() {
+                    if found[i].is_none() && p(&m) {
+                        found[i] = Some(m.clone());
+                    }
+                }
+            }
+            Err(_) => panic!(
+                "not all seen within {within:?}: {what} (seen: {:?})",
+                found.iter().map(|f| f.is_some()).collect::<Vec<_>>()
+            ),
+        }
+    }
+    found.into_iter().flatten().collect()
+}
