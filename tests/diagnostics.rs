@@ -70,7 +70,7 @@ fn steady(i: usize, _t: f64) -> Option<f64> {
 /// own reported uncertainty.
 fn assert_within_uncertainty(r: &ZoneReport) {
     let q = r.flux_shell_w_m2.unwrap();
-    let sigma = r.uncertainty.unwrap().flux_shell_w_m2;
+    let sigma = r.uncertainty.as_ref().unwrap().flux_shell_w_m2;
     assert!(
         (q - Q).abs() <= 3.0 * sigma + 1e-6,
         "q_shell {q} vs {Q} ± 3×{sigma}"

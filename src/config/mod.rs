@@ -276,12 +276,16 @@ pub struct NamedMaterial {
 pub enum Model {
     /// One homogeneous layer; weighted quadratic fit of T(x).
     Quadratic,
+    /// Any number of layers at steady state, k(T) solved exactly (Kirchhoff
+    /// transform), hot-face temperature and flux fitted to the probes.
+    Layered,
 }
 
 impl Model {
     pub fn name(self) -> &'static str {
         match self {
             Model::Quadratic => "quadratic",
+            Model::Layered => "layered",
         }
     }
 }
@@ -291,6 +295,8 @@ pub struct ZoneLayer {
     /// Index into `Settings::materials`.
     pub material: usize,
     pub thickness_m: f64,
+    /// Contact resistance at the layer's cold-side interface, m²K/W.
+    pub contact_m2k_w: f64,
 }
 
 #[derive(Debug, Clone, Copy)]

@@ -170,6 +170,7 @@ pub struct RawMaterial {
 pub struct RawLayer {
     pub material: S<String>,
     pub thickness_mm: S<f64>,
+    pub contact_m2k_w: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]

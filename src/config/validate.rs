@@ -1129,11 +1129,12 @@ impl Validator<'_> {
         let interval_s = self.positive(&z.interval_s, &p("interval_s"), "seconds");
         let model = match z.model.get_ref().as_str() {
             "quadratic" => Model::Quadratic,
-            m @ ("layered" | "transient") => {
+            "layered" => Model::Layered,
+            m @ "transient" => {
                 self.problem(
                     z.model.span(),
                     p("model"),
-                    format!("model {m:?} is not available in this version yet; use \"quadratic\" (one layer)"),
+                    format!("model {m:?} is not available in this version yet; use \"quadratic\" (one layer) or \"layered\""),
                 );
                 Model::Quadratic
             }
@@ -1141,7 +1142,7 @@ impl Validator<'_> {
                 self.problem(
                     z.model.span(),
                     p("model"),
-                    format!("{other:?} is not a model; use \"quadratic\""),
+                    format!("{other:?} is not a model; use \"quadratic\" or \"layered\""),
                 );
                 Model::Quadratic
             }
@@ -1249,9 +1250,29 @@ impl Validator<'_> {
                 }
             };
             let thickness_mm = self.positive(&l.thickness_mm, &format!("{lp}.thickness_mm"), "mm");
+            let last = j + 1 == z.layers.get_ref().len();
+            let contact_m2k_w = match &l.contact_m2k_w {
+                Some(c) if last => {
+                    self.problem(c.span(), format!("{lp}.contact_m2k_w"), "the last layer's cold face is the shell surface: no contact resistance there");
+                    0.0
+                }
+                Some(c) => {
+                    let v = *c.get_ref();
+                    if !(v.is_finite() && v >= 0.0) {
+                        self.problem(
+                            c.span(),
+                            format!("{lp}.contact_m2k_w"),
+                            format!("must be zero or positive, got {v}"),
+                        );
+                    }
+                    v
+                }
+                None => 0.0,
+            };
             layers.push(ZoneLayer {
                 material,
                 thickness_m: thickness_mm / 1000.0,
+                contact_m2k_w,
             });
         }
         if model == Model::Quadratic && layers.len() > 1 {

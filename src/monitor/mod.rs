@@ -10,6 +10,7 @@ pub mod channel;
 pub mod command;
 pub mod energy;
 pub mod trend;
+pub mod wall;
 pub mod zone;
 
 use std::sync::Arc;

@@ -6,10 +6,12 @@ use heapless::{HistoryBuf, Vec as HVec};
 use serde::Serialize;
 
 use super::channel::{ChannelState, Health, Reading};
+use super::wall::Wall;
+use crate::config::Model;
 use crate::config::{Name, Settings, Zone, MAX_PROBES};
 use crate::physics::fit::linear_slope;
-use crate::physics::material::Material;
-use crate::physics::profile::{ProbeSample, QuadraticWall};
+use crate::physics::layered::{ModelCheck, MAX_LAYERS};
+use crate::physics::profile::{heat_loss_w, ProbeSample};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
 use crate::time::Timestamp;
 
@@ -44,12 +46,17 @@ impl ZoneStatus {
 /// Standard uncertainties (1 σ) of the headline numbers, from the fit
 /// covariance and the probes' standard uncertainties. The conductivity's own
 /// uncertainty is not included.
-#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Uncertainty {
     pub hot_face_c: f64,
+    pub shell_c: f64,
     pub flux_hot_face_w_m2: f64,
     pub flux_shell_w_m2: f64,
     pub heat_loss_w: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub interface_c: Option<HVec<f64, MAX_LAYERS>>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub thermal_resistance_m2k_w: Option<f64>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -92,6 +99,18 @@ pub struct ZoneReport {
     /// ∫ ρ c_p ∂T/∂t dx (trapezoid over the probes, each end value held to
     /// its face), W/m². Positive: the wall is heating.
     pub stored_w_m2: Option<f64>,
+    /// Interface temperatures hot to cold (layered model), °C.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub interface_c: Option<HVec<f64, MAX_LAYERS>>,
+    /// Thermal resistance hot face → shell (layered model), m²K/W.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub thermal_resistance_m2k_w: Option<f64>,
+    /// `consistent`, `contradicted` or `untested`: do the probes agree with
+    /// the model within their uncertainties (χ² against its 3σ quantile)?
+    pub model_check: Option<&'static str>,
+    /// Why, in words, when the check says contradicted.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub model_note: Option<&'static str>,
     pub probes_used: u8,
     pub uncertainty: Option<Uncertainty>,
     pub probes: HVec<ProbeReport, MAX_PROBES>,
@@ -146,12 +165,7 @@ impl ZoneEngine {
         self.cycles += 1;
         let max_age_s = STALE_INTERVALS * zone.interval_s;
         let spacing_s = zone.rate_window_s / (RATE_POINTS as f64 - 1.0);
-        // The quadratic model has one layer (validated at load time).
-        let layer = zone.layers[0];
-        let wall = QuadraticWall {
-            thickness_m: zone.thickness_m(),
-            material: &settings.materials[layer.material].material,
-        };
+        let wall = Wall::new(zone, settings);
 
         // 1. Fresh readings and their histories.
         let mut fresh: HVec<Option<Reading>, MAX_PROBES> = HVec::new();
@@ -198,7 +212,7 @@ impl ZoneEngine {
                 let _ = sample_probe.push(i);
             }
         }
-        if let Some(k) = outlier(&wall, &samples) {
+        if let Some(k) = wall.as_ref().and_then(|w| outlier(w, &samples)) {
             diagnosis[sample_probe[k]] = Some((
                 Health::Outlier,
                 "inconsistent with the zone's other probes (leave-one-out residual)",
@@ -245,16 +259,45 @@ impl ZoneEngine {
             h_radiation_w_m2k: None,
             balance_mismatch_pct: None,
             stored_w_m2: None,
+            interface_c: None,
+            thermal_resistance_m2k_w: None,
+            model_check: None,
+            model_note: None,
             probes_used: samples.len() as u8,
             uncertainty: None,
             probes,
         };
-        report.stored_w_m2 = stored_w_m2(&report.probes, wall.thickness_m, wall.material);
-        let Ok(sol) = wall.solve(&samples) else {
+        let Some(wall) = wall else {
             return report;
         };
-        let full_degree = if zone.probes.len() >= 3 { 2 } else { 1 };
-        report.status = if samples.len() == zone.probes.len() && sol.degree == full_degree {
+        report.stored_w_m2 = stored_w_m2(&report.probes, &wall);
+        let Some(sol) = wall.solve(&samples) else {
+            return report;
+        };
+        let full_order = match zone.model {
+            Model::Quadratic => sol.degree == Some(if zone.probes.len() >= 3 { 2 } else { 1 }),
+            Model::Layered => true,
+        };
+        // Data that contradict the model (residuals beyond what the probes'
+        // uncertainties allow: the wall is not at steady state, or a probe
+        // or the model is wrong) degrade the zone, with the reason.
+        report.model_check = Some(check_name(sol.check));
+        report.model_note = (sol.check == ModelCheck::Contradicted).then(|| {
+            let fast = report
+                .probes
+                .iter()
+                .filter_map(|p| p.rate_measured_c_per_h)
+                .any(|r| r.abs() > FAST_RATE_C_PER_H);
+            if fast {
+                "the probes disagree with the model beyond their uncertainty while heating or cooling fast: the wall is not at steady state"
+            } else {
+                "the probes disagree with the model beyond their uncertainty: check the probe depths, the materials, or a probe"
+            }
+        });
+        report.status = if samples.len() == zone.probes.len()
+            && full_order
+            && sol.check != ModelCheck::Contradicted
+        {
             ZoneStatus::Ok
         } else {
             ZoneStatus::Degraded
@@ -263,10 +306,14 @@ impl ZoneEngine {
         report.shell_c = Some(sol.shell_c);
         report.flux_hot_face_w_m2 = Some(sol.flux_hot_face_w_m2);
         report.flux_shell_w_m2 = Some(sol.flux_shell_w_m2);
-        report.heat_loss_w = Some(sol.heat_loss_w(zone.area_m2));
-        report.source_w_m3 = Some(sol.source_w_m3);
+        report.heat_loss_w = Some(heat_loss_w(sol.flux_shell_w_m2, zone.area_m2));
+        report.source_w_m3 = sol.source_w_m3;
         report.fit_rms_c = Some(sol.fit_rms_c);
-        report.fit_degree = Some(sol.degree as u8);
+        report.fit_degree = sol.degree;
+        if !sol.interface_c.is_empty() {
+            report.interface_c = Some(sol.interface_c.iter().map(|&(t, _)| t).collect());
+        }
+        report.thermal_resistance_m2k_w = sol.resistance_m2k_w.map(|(r, _)| r);
         let surface = shell_surface(zone, sol.shell_c);
         report.flux_surface_w_m2 = Some(surface.flux_w_m2);
         report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
@@ -274,13 +321,17 @@ impl ZoneEngine {
         report.balance_mismatch_pct = mismatch_pct(sol.flux_shell_w_m2, surface.flux_w_m2);
         report.uncertainty = Some(Uncertainty {
             hot_face_c: sol.sigma_hot_face_c,
+            shell_c: sol.sigma_shell_c,
             flux_hot_face_w_m2: sol.sigma_flux_hot_face_w_m2,
             flux_shell_w_m2: sol.sigma_flux_shell_w_m2,
             heat_loss_w: sol.sigma_flux_shell_w_m2 * zone.area_m2,
+            interface_c: (!sol.interface_c.is_empty())
+                .then(|| sol.interface_c.iter().map(|&(_, s)| s).collect()),
+            thermal_resistance_m2k_w: sol.resistance_m2k_w.map(|(_, s)| s),
         });
         for p in report.probes.iter_mut() {
             let x = p.depth_mm / 1000.0;
-            p.fitted_c = Some(sol.fitted_c(x));
+            p.fitted_c = wall.fitted(&sol, x).map(|(t, _)| t);
             p.rate_model_c_per_h = wall.model_rate_c_per_s(&sol, x).map(|r| r * 3600.0);
         }
         report
@@ -304,14 +355,15 @@ pub fn shell_surface(zone: &Zone, shell_c: f64) -> SurfaceLoss {
 /// ∫₀ᴸ ρ c_p ∂T/∂t dx from the valid probes' measured rates (trapezoid in
 /// depth order; the shallowest and deepest values held to the faces).
 /// Needs two probes with rates.
-fn stored_w_m2(probes: &[ProbeReport], thickness_m: f64, material: &Material) -> Option<f64> {
+fn stored_w_m2(probes: &[ProbeReport], wall: &Wall<'_>) -> Option<f64> {
+    let thickness_m = wall.thickness_m();
     let mut pts: HVec<(f64, f64), MAX_PROBES> = HVec::new();
     for p in probes.iter().filter(|p| p.status == Health::Ok) {
-        if let (Some(rate), Some(t)) = (p.rate_measured_c_per_h, p.measured_c) {
-            let _ = pts.push((
-                p.depth_mm / 1000.0,
-                material.heat_capacity_j_m3k(t) * rate / 3600.0,
-            ));
+        let x = p.depth_mm / 1000.0;
+        if let (Some(rate), Some(t), Some(m)) =
+            (p.rate_measured_c_per_h, p.measured_c, wall.material_at(x))
+        {
+            let _ = pts.push((x, m.heat_capacity_j_m3k(t) * rate / 3600.0));
         }
     }
     if pts.len() < 2 {
@@ -324,6 +376,18 @@ fn stored_w_m2(probes: &[ProbeReport], thickness_m: f64, material: &Material) ->
         sum += 0.5 * (w[0].1 + w[1].1) * (w[1].0 - w[0].0);
     }
     Some(sum)
+}
+
+/// A probe rate beyond this makes a contradicted steady model read as
+/// "not at steady state" (a threshold of ours), °C/h.
+pub const FAST_RATE_C_PER_H: f64 = 20.0;
+
+fn check_name(c: ModelCheck) -> &'static str {
+    match c {
+        ModelCheck::Consistent => "consistent",
+        ModelCheck::Contradicted => "contradicted",
+        ModelCheck::Untested => "untested",
+    }
 }
 
 /// Relative mismatch of two flux estimates, %; None when the reference is
@@ -390,8 +454,14 @@ fn stuck(spans: &[Option<f64>], i: usize) -> bool {
 /// standardised residual below 3). That second test needs a redundant fit
 /// without it, so five samples or more: a profile the model cannot follow
 /// (a fast transient) spreads over all probes and is not blamed on one.
-fn outlier(wall: &QuadraticWall<'_>, samples: &[ProbeSample]) -> Option<usize> {
-    if samples.len() < 5 {
+fn outlier(wall: &Wall<'_>, samples: &[ProbeSample]) -> Option<usize> {
+    // The fit without the suspect must itself be redundant: more samples
+    // than the model's parameters (quadratic 3, layered 2).
+    let params = match wall {
+        Wall::Quadratic(_) => 3,
+        Wall::Layered(_) => 2,
+    };
+    if samples.len() < params + 2 {
         return None;
     }
     let without = |i: usize| {
@@ -408,20 +478,26 @@ fn outlier(wall: &QuadraticWall<'_>, samples: &[ProbeSample]) -> Option<usize> {
     // largest alone can be a well-behaved probe that the bad one drags).
     let mut t: HVec<(usize, f64), MAX_PROBES> = HVec::new();
     for (i, &s) in samples.iter().enumerate() {
-        let Ok(sol) = wall.solve(&without(i)) else {
+        let Some((y, sd)) = wall
+            .solve(&without(i))
+            .and_then(|f| wall.fitted(&f, s.depth_m))
+        else {
             continue;
         };
-        let var = s.sigma_c * s.sigma_c + sol.fit.value_variance(s.depth_m);
-        let _ = t.push((i, ((s.temp_c - sol.fitted_c(s.depth_m)) / var.sqrt()).abs()));
+        let var = s.sigma_c * s.sigma_c + sd * sd;
+        let _ = t.push((i, ((s.temp_c - y) / var.sqrt()).abs()));
     }
     t.sort_unstable_by(|a, b| b.1.total_cmp(&a.1));
     t.iter()
         .take_while(|(_, ti)| *ti > OUTLIER_T)
         .find_map(|&(i, _)| {
             let rest = without(i);
-            let sol = wall.solve(&rest).ok()?;
+            let fit = wall.solve(&rest)?;
             rest.iter()
-                .all(|s| ((s.temp_c - sol.fitted_c(s.depth_m)) / s.sigma_c).abs() < 3.0)
+                .all(|s| {
+                    wall.fitted(&fit, s.depth_m)
+                        .is_some_and(|(y, _)| ((s.temp_c - y) / s.sigma_c).abs() < 3.0)
+                })
                 .then_some(i)
         })
 }

@@ -1,6 +1,7 @@
 //! The physics: pure functions over values, no IO, no clock.
 
 pub mod fit;
+pub mod layered;
 pub mod material;
 pub mod profile;
 pub mod surface;

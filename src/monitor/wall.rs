@@ -1,0 +1,176 @@
+//! The zone's wall model behind one face: `quadratic` (one layer, weighted
+//! polynomial) or `layered` (steady, any layers, k(T) exact). The zone
+//! cycle, its outlier test and its report do not care which.
+
+use heapless::Vec as HVec;
+
+use crate::config::{Model, Settings, Zone};
+use crate::physics::layered::{
+    self, LayerSpec, LayeredSolution, LayeredWall, ModelCheck, MAX_LAYERS,
+};
+use crate::physics::material::Material;
+use crate::physics::profile::{ProbeSample, QuadraticWall, WallSolution};
+
+pub enum Wall<'a> {
+    Quadratic(QuadraticWall<'a>),
+    Layered(LayeredWall<'a>),
+}
+
+/// What a fit gives, whichever the model.
+#[derive(Debug, Clone)]
+pub struct Fit {
+    pub hot_face_c: f64,
+    pub shell_c: f64,
+    pub flux_hot_face_w_m2: f64,
+    pub flux_shell_w_m2: f64,
+    /// Steady-state equivalent source (the layered model assumes none).
+    pub source_w_m3: Option<f64>,
+    pub fit_rms_c: f64,
+    pub degree: Option<u8>,
+    pub sigma_hot_face_c: f64,
+    pub sigma_shell_c: f64,
+    pub sigma_flux_hot_face_w_m2: f64,
+    pub sigma_flux_shell_w_m2: f64,
+    /// Interfaces hot to cold with their σ (layered).
+    pub interface_c: HVec<(f64, f64), MAX_LAYERS>,
+    /// Thermal resistance hot face → shell and its σ (layered), m²K/W.
+    pub resistance_m2k_w: Option<(f64, f64)>,
+    pub check: ModelCheck,
+    pub chi2: f64,
+    pub dof: usize,
+    solution: Solution,
+}
+
+#[derive(Debug, Clone)]
+enum Solution {
+    Quadratic(WallSolution),
+    Layered(LayeredSolution),
+}
+
+impl<'a> Wall<'a> {
+    pub fn new(zone: &Zone, settings: &'a Settings) -> Option<Wall<'a>> {
+        match zone.model {
+            Model::Quadratic => {
+                let layer = zone.layers.first()?;
+                Some(Wall::Quadratic(QuadraticWall {
+                    thickness_m: zone.thickness_m(),
+                    material: &settings.materials.get(layer.material)?.material,
+                }))
+            }
+            Model::Layered => {
+                let mut specs: HVec<LayerSpec<'a>, MAX_LAYERS> = HVec::new();
+                for l in &zone.layers {
+                    let _ = specs.push(LayerSpec {
+                        material: &settings.materials.get(l.material)?.material,
+                        thickness_m: l.thickness_m,
+                        contact_m2k_w: l.contact_m2k_w,
+                    });
+                }
+                LayeredWall::new(&specs).ok().map(Wall::Layered)
+            }
+        }
+    }
+
+    pub fn thickness_m(&self) -> f64 {
+        match self {
+            Wall::Quadratic(q) => q.thickness_m,
+            Wall::Layered(l) => l.thickness_m(),
+        }
+    }
+
+    /// The material at `depth_m` (for heat capacity).
+    pub fn material_at(&self, depth_m: f64) -> Option<&'a Material> {
+        match self {
+            Wall::Quadratic(q) => Some(q.material),
+            Wall::Layered(l) => {
+                let mut x = 0.0;
+                for s in &l.layers {
+                    x += s.thickness_m;
+                    if depth_m <= x + 1e-9 {
+                        return Some(s.material);
+                    }
+                }
+                l.layers.last().map(|s| s.material)
+            }
+        }
+    }
+
+    pub fn solve(&self, samples: &[ProbeSample]) -> Option<Fit> {
+        match self {
+            Wall::Quadratic(q) => {
+                let s = q.solve(samples).ok()?;
+                let dof = s.fit.dof;
+                Some(Fit {
+                    hot_face_c: s.hot_face_c,
+                    shell_c: s.shell_c,
+                    flux_hot_face_w_m2: s.flux_hot_face_w_m2,
+                    flux_shell_w_m2: s.flux_shell_w_m2,
+                    source_w_m3: Some(s.source_w_m3),
+                    fit_rms_c: s.fit_rms_c,
+                    degree: Some(s.degree as u8),
+                    sigma_hot_face_c: s.sigma_hot_face_c,
+                    sigma_shell_c: s.sigma_shell_c,
+                    sigma_flux_hot_face_w_m2: s.sigma_flux_hot_face_w_m2,
+                    sigma_flux_shell_w_m2: s.sigma_flux_shell_w_m2,
+                    interface_c: HVec::new(),
+                    resistance_m2k_w: None,
+                    check: layered::model_check(s.fit.chi2, dof),
+                    chi2: s.fit.chi2,
+                    dof,
+                    solution: Solution::Quadratic(s),
+                })
+            }
+            Wall::Layered(l) => {
+                let s = l.solve(samples).ok()?;
+                let mut interface_c = HVec::new();
+                for (t, sd) in s.interface_c.iter().zip(&s.sigma_interface_c) {
+                    let _ = interface_c.push((*t, *sd));
+                }
+                Some(Fit {
+                    hot_face_c: s.hot_face_c,
+                    shell_c: s.shell_c,
+                    flux_hot_face_w_m2: s.flux_w_m2,
+                    flux_shell_w_m2: s.flux_w_m2,
+                    source_w_m3: None,
+                    fit_rms_c: s.fit_rms_c,
+                    degree: None,
+                    sigma_hot_face_c: s.sigma_hot_face_c,
+                    sigma_shell_c: s.sigma_shell_c,
+                    sigma_flux_hot_face_w_m2: s.sigma_flux_w_m2,
+                    sigma_flux_shell_w_m2: s.sigma_flux_w_m2,
+                    interface_c,
+                    resistance_m2k_w: Some((s.thermal_resistance_m2k_w, s.sigma_resistance_m2k_w)),
+                    check: s.check,
+                    chi2: s.chi2,
+                    dof: s.dof,
+                    solution: Solution::Layered(s),
+                })
+            }
+        }
+    }
+
+    /// The fitted temperature at `depth_m` and its standard uncertainty.
+    pub fn fitted(&self, fit: &Fit, depth_m: f64) -> Option<(f64, f64)> {
+        match (self, &fit.solution) {
+            (Wall::Quadratic(_), Solution::Quadratic(s)) => Some((
+                s.fitted_c(depth_m),
+                s.fit.value_variance(depth_m).max(0.0).sqrt(),
+            )),
+            (Wall::Layered(l), Solution::Layered(s)) => {
+                let t = l.temperature_at(s.hot_face_c, s.flux_w_m2, depth_m).ok()?;
+                let sd = l.sigma_temperature_at(s, depth_m).ok()?;
+                Some((t, sd))
+            }
+            _ => None,
+        }
+    }
+
+    /// The heat-equation rate at `depth_m`, °C/s (quadratic model only: the
+    /// steady layered model has none by assumption).
+    pub fn model_rate_c_per_s(&self, fit: &Fit, depth_m: f64) -> Option<f64> {
+        match (self, &fit.solution) {
+            (Wall::Quadratic(q), Solution::Quadratic(s)) => q.model_rate_c_per_s(s, depth_m),
+            _ => None,
+        }
+    }
+}

@@ -1,0 +1,304 @@
+//! The estimator's initial profile: piecewise steady and layered, through
+//! the readings.
+//!
+//! A steady layered wall without sources carries one flux `q` through every
+//! layer. In each layer the Kirchhoff potential `Θ(T) = ∫k dT` is linear in
+//! `x`, so from a point `(x_a, T_a)` the temperature at `x_b` in the same
+//! layer solves `∫_{T_b}^{T_a} k dT = q (x_b − x_a)` (Incropera §3.2,
+//! variable conductivity); marching layer by layer gives the profile of any
+//! flux from any point ([`Stack::march`]).
+//!
+//! The initial profile goes through the readings (averaged where probes
+//! share a depth), each span between adjacent probe depths being the steady
+//! layered profile that joins them:
+//!
+//! - between two probe depths: the flux that joins their readings;
+//! - hot side of the shallowest probe: the flux of the first span, carried on
+//!   to the hot face (with one depth only: the shell-balance flux);
+//! - shell side of the deepest probe: the flux the shell loses at steady
+//!   state from there ([`shell_balance_flux`]).
+//!
+//! On a steady wall this is the exact steady profile (one flux everywhere).
+//! On a wall heating up it is not steady, but it still passes through every
+//! reading and keeps the unmeasured shell between the deepest reading and
+//! the air; a single steady fit would miss the readings by a hundred kelvin
+//! mid-heat-up, and extrapolating its (large) flux to the shell can put the
+//! shell below the air. The filter's prior covariance allows for the rest.
+
+use heapless::Vec as HVec;
+
+use super::model::{temperature_ok, ShellBoundary};
+use super::MAX_NODES;
+use crate::physics::material::{Material, Property};
+use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
+
+/// Most Newton iterations of one Kirchhoff inversion.
+const MAX_NEWTON_ITERATIONS: usize = 60;
+
+/// Most bisection steps on a flux (more than f64 needs).
+const MAX_BISECTIONS: usize = 200;
+
+/// The temperature `T` with `∫_T^{from} k dT = target_w_m`: exact for a
+/// constant `k`; for a table, Newton's method kept inside the bracket
+/// `[from − target/k_min, from − target/k_max]` (bisection when a Newton
+/// step would leave it).
+pub(super) fn invert_kirchhoff(k: &Property, from_c: f64, target_w_m: f64) -> f64 {
+    match k {
+        Property::Constant(kv) => from_c - target_w_m / kv,
+        Property::Table(_) => {
+            if target_w_m == 0.0 {
+                return from_c;
+            }
+            let (k_min, k_max) = bounds(k);
+            let a = from_c - target_w_m / k_min;
+            let b = from_c - target_w_m / k_max;
+            let (mut lo, mut hi) = (a.min(b), a.max(b));
+            let mut t = (from_c - target_w_m / k.at(from_c)).clamp(lo, hi);
+            for _ in 0..MAX_NEWTON_ITERATIONS {
+                // f(T) = ∫_T^from k − target falls as T rises, f' = −k(T).
+                let f = k.integral(t, from_c) - target_w_m;
+                if f > 0.0 {
+                    lo = t;
+                } else {
+                    hi = t;
+                }
+                let mut next = t + f / k.at(t);
+                if !(next > lo && next < hi) {
+                    next = 0.5 * (lo + hi);
+                }
+                if (next - t).abs() <= 1e-12 * t.abs().max(1.0) {
+                    return next;
+                }
+                t = next;
+            }
+            t
+        }
+    }
+}
+
+/// Smallest and largest value of a property (a table is clamped at its
+/// ends, so these bound it at every temperature).
+fn bounds(p: &Property) -> (f64, f64) {
+    match p {
+        Property::Constant(v) => (*v, *v),
+        Property::Table(pts) => pts
+            .iter()
+            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(_, v)| {
+                (lo.min(v), hi.max(v))
+            }),
+    }
+}
+
+/// The layers as the steady profile needs them.
+pub(super) struct Stack<'a> {
+    pub materials: &'a [Material],
+    /// Depth of each layer's shell-side face, m (rising; the last is L).
+    pub ends_m: &'a [f64],
+}
+
+impl Stack<'_> {
+    fn thickness_m(&self) -> f64 {
+        self.ends_m.last().copied().unwrap_or(0.0)
+    }
+
+    fn start_of(&self, i: usize) -> f64 {
+        match i.checked_sub(1) {
+            Some(j) => self.ends_m.get(j).copied().unwrap_or(0.0),
+            None => 0.0,
+        }
+    }
+
+    /// Steady temperature at `to_m` with flux `q` through a point at
+    /// `from_m` at `from_c` (either direction), or `None` if it falls to
+    /// absolute zero or is not finite.
+    pub fn march(&self, from_m: f64, from_c: f64, q_w_m2: f64, to_m: f64) -> Option<f64> {
+        let mut x = from_m;
+        let mut t = from_c;
+        let layers = self.materials.iter().zip(self.ends_m.iter()).enumerate();
+        let piece = |k: &Property, x_next: f64, x: &mut f64, t: &mut f64| {
+            *t = invert_kirchhoff(k, *t, q_w_m2 * (x_next - *x));
+            *x = x_next;
+        };
+        if to_m >= from_m {
+            for (i, (m, &end)) in layers {
+                if end <= x || self.start_of(i) >= to_m {
+                    continue;
+                }
+                piece(&m.conductivity_w_mk, end.min(to_m), &mut x, &mut t);
+            }
+        } else {
+            for (i, (m, &end)) in layers.rev() {
+                let start = self.start_of(i);
+                if start >= x || end <= to_m {
+                    continue;
+                }
+                piece(&m.conductivity_w_mk, start.max(to_m), &mut x, &mut t);
+            }
+        }
+        temperature_ok(t).then_some(t)
+    }
+
+    /// The steady flux that joins `(a_m, a_c)` to `(b_m, b_c)`, `a_m < b_m`:
+    /// bisection on `q` (the marched temperature falls as `q` rises), within
+    /// `ΔT/R_max … ΔT/R_min`, the resistances of the span with every layer
+    /// at its lowest and highest conductivity.
+    pub fn joining_flux(&self, a_m: f64, a_c: f64, b_m: f64, b_c: f64) -> Option<f64> {
+        let (mut r_min, mut r_max) = (0.0, 0.0);
+        for (i, (m, &end)) in self.materials.iter().zip(self.ends_m).enumerate() {
+            let overlap = end.min(b_m) - self.start_of(i).max(a_m);
+            if overlap > 0.0 {
+                let (k_min, k_max) = bounds(&m.conductivity_w_mk);
+                r_min += overlap / k_max;
+                r_max += overlap / k_min;
+            }
+        }
+        let dt = a_c - b_c;
+        let (x, y) = (dt / r_max, dt / r_min);
+        let (mut q_lo, mut q_hi) = (x.min(y), x.max(y));
+        if !(q_lo.is_finite() && q_hi.is_finite()) {
+            return None;
+        }
+        for _ in 0..MAX_BISECTIONS {
+            let mid = 0.5 * (q_lo + q_hi);
+            if !(mid > q_lo && mid < q_hi) {
+                break;
+            }
+            // Too large a flux ends too cold (or below absolute zero).
+            match self.march(a_m, a_c, mid, b_m) {
+                Some(t) if t >= b_c => q_lo = mid,
+                _ => q_hi = mid,
+            }
+        }
+        Some(0.5 * (q_lo + q_hi))
+    }
+}
+
+/// The steady flux from a point at `depth_m` at `temp_c` to the shell that
+/// the shell loses: `q = loss(T(L; q))`, by bisection (the residual
+/// `q − loss(T(L; q))` rises with `q`; the root's shell temperature lies
+/// between `temp_c` and the air and surroundings, which brackets `q`).
+pub(super) fn shell_balance_flux(
+    stack: &Stack<'_>,
+    depth_m: f64,
+    temp_c: f64,
+    shell: &ShellBoundary,
+) -> Option<f64> {
+    let l = stack.thickness_m();
+    let surroundings = match shell {
+        ShellBoundary::Surface(p) => p.surroundings_c,
+        ShellBoundary::Convection { ambient_c, .. } => *ambient_c,
+    };
+    let lo_c = temp_c.min(shell.ambient_c()).min(surroundings);
+    let hi_c = temp_c.max(shell.ambient_c()).max(surroundings);
+    let (mut q_lo, mut q_hi) = (shell.flux_w_m2(lo_c), shell.flux_w_m2(hi_c));
+    if !(q_lo.is_finite() && q_hi.is_finite()) {
+        return None;
+    }
+    for _ in 0..MAX_BISECTIONS {
+        let mid = 0.5 * (q_lo + q_hi);
+        if !(mid > q_lo && mid < q_hi) {
+            break;
+        }
+        // A trial flux whose shell falls below absolute zero is far too
+        // large: a positive residual.
+        let too_large = match stack.march(depth_m, temp_c, mid, l) {
+            Some(t_shell) => mid > shell.flux_w_m2(t_shell),
+            None => true,
+        };
+        if too_large {
+            q_hi = mid;
+        } else {
+            q_lo = mid;
+        }
+    }
+    Some(0.5 * (q_lo + q_hi))
+}
+
+/// Readings averaged per depth (weights `1/σ²`; depths within
+/// [`DEPTH_TOLERANCE_M`] are one), sorted by depth: `(depth_m, temp_c)`.
+/// At most [`MAX_NODES`] readings are used.
+pub(super) fn readings_by_depth<I>(samples: I) -> HVec<(f64, f64), MAX_NODES>
+where
+    I: Iterator<Item = ProbeSample>,
+{
+    let mut sorted: HVec<ProbeSample, MAX_NODES> = HVec::new();
+    for s in samples {
+        if sorted.push(s).is_err() {
+            break;
+        }
+    }
+    sorted.sort_unstable_by(|a, b| a.depth_m.total_cmp(&b.depth_m));
+    let mut out: HVec<(f64, f64), MAX_NODES> = HVec::new();
+    let mut group = (0.0, 0.0, 0.0, f64::NEG_INFINITY); // Σw, Σw d, Σw T, first depth
+    for s in sorted.iter() {
+        let w = 1.0 / (s.sigma_c * s.sigma_c);
+        if s.depth_m - group.3 > DEPTH_TOLERANCE_M && group.0 > 0.0 {
+            let _ = out.push((group.1 / group.0, group.2 / group.0));
+            group = (0.0, 0.0, 0.0, s.depth_m);
+        }
+        if group.0 == 0.0 {
+            group.3 = s.depth_m;
+        }
+        group.0 += w;
+        group.1 += w * s.depth_m;
+        group.2 += w * s.temp_c;
+    }
+    if group.0 > 0.0 {
+        let _ = out.push((group.1 / group.0, group.2 / group.0));
+    }
+    out
+}
+
+/// Fills `out` with the initial profile at `depths_m` through `points`
+/// (from [`readings_by_depth`]; see the module docs). `false` if there are
+/// no points or some temperature cannot be found.
+pub(super) fn initial_profile(
+    stack: &Stack<'_>,
+    points: &[(f64, f64)],
+    shell: &ShellBoundary,
+    depths_m: &[f64],
+    out: &mut [f64],
+) -> bool {
+    let (Some(&first), Some(&last)) = (points.first(), points.last()) else {
+        return false;
+    };
+    let Some(q_shell) = shell_balance_flux(stack, last.0, last.1, shell) else {
+        return false;
+    };
+    let q_hot = match points.get(1) {
+        Some(&second) => stack.joining_flux(first.0, first.1, second.0, second.1),
+        None => Some(q_shell),
+    };
+    let Some(q_hot) = q_hot else {
+        return false;
+    };
+    // Flux of each span between adjacent points.
+    let mut span_q: HVec<f64, MAX_NODES> = HVec::new();
+    for w in points.windows(2) {
+        match stack.joining_flux(w[0].0, w[0].1, w[1].0, w[1].1) {
+            Some(q) => {
+                let _ = span_q.push(q);
+            }
+            None => return false,
+        }
+    }
+    for (&x, t) in depths_m.iter().zip(out.iter_mut()) {
+        let value = if x <= first.0 {
+            stack.march(first.0, first.1, q_hot, x)
+        } else if x >= last.0 {
+            stack.march(last.0, last.1, q_shell, x)
+        } else {
+            // The span [a, b] that holds x; points rise strictly in depth.
+            let i = points.partition_point(|p| p.0 <= x).saturating_sub(1);
+            match (points.get(i), span_q.get(i)) {
+                (Some(&a), Some(&q)) => stack.march(a.0, a.1, q, x),
+                _ => None,
+            }
+        };
+        match value {
+            Some(v) => *t = v,
+            None => return false,
+        }
+    }
+    true
+}
