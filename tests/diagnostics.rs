@@ -62,8 +62,14 @@ fn run(
     out
 }
 
-fn steady(i: usize, _t: f64) -> Option<f64> {
-    Some(temp(DEPTHS_MM[i]))
+/// A little reading noise (±0.05 °C, deterministic): live thermocouples
+/// never repeat a value exactly for long, frozen inputs do.
+fn noise(i: usize, t: f64) -> f64 {
+    0.05 * ((t * 1.7 + i as f64 * 2.3).sin())
+}
+
+fn steady(i: usize, t: f64) -> Option<f64> {
+    Some(temp(DEPTHS_MM[i]) + noise(i, t))
 }
 
 /// The zone's shell flux agrees with the closed form within 3 σ of its
@@ -103,7 +109,7 @@ fn spike_is_held_back_and_clears() {
         ZoneStatus::Ok,
         "the spike is not in the state at 70 s"
     );
-    assert!((during.probes[2].measured_c.unwrap() - temp(130.0)).abs() < 1e-9);
+    assert!((during.probes[2].measured_c.unwrap() - temp(130.0)).abs() < 0.1);
     assert_within_uncertainty(during);
     // Held back while it is the latest value.
     let mut m2 = monitor();
@@ -127,8 +133,16 @@ fn spike_is_held_back_and_clears() {
 fn a_probe_that_reads_off_is_an_outlier_and_excluded() {
     let mut m = monitor();
     run(&mut m, 0, 30, steady);
-    // Probe 3 drifts 40 °C high (a degraded junction, a wrong type).
+    // Probe 3 drifts 40 °C high (a degraded junction, a wrong type). It is
+    // judged once the jump has left its 100 s rate window.
     let r = run(&mut m, 30, 60, |i, t| {
+        steady(i, t).map(|c| if i == 3 { c + 40.0 } else { c })
+    });
+    assert!(
+        r.iter().all(|r| r.probes[3].status != Health::Outlier),
+        "judged during the jump"
+    );
+    let r = run(&mut m, 90, 90, |i, t| {
         steady(i, t).map(|c| if i == 3 { c + 40.0 } else { c })
     });
     let last = r.last().unwrap();
@@ -136,13 +150,13 @@ fn a_probe_that_reads_off_is_an_outlier_and_excluded() {
     assert_eq!(last.probes[3].status, Health::Outlier);
     assert_eq!(last.probes_used, 4);
     assert_within_uncertainty(last);
-    assert_eq!(channel_health(&mut m, 90.0, "p3"), Health::Outlier);
+    assert_eq!(channel_health(&mut m, 180.0, "p3"), Health::Outlier);
     // Back in line: the flag clears.
-    let r = run(&mut m, 90, 30, steady);
+    let r = run(&mut m, 180, 30, steady);
     let last = r.last().unwrap();
     assert_eq!(last.status, ZoneStatus::Ok);
     assert_eq!(last.probes[3].status, Health::Ok);
-    assert_eq!(channel_health(&mut m, 120.0, "p3"), Health::Ok);
+    assert_eq!(channel_health(&mut m, 210.0, "p3"), Health::Ok);
 }
 
 #[test]
@@ -150,7 +164,7 @@ fn a_probe_frozen_while_the_wall_heats_is_stuck() {
     // The whole wall rising at 360 °C/h (0.1 °C/s): every probe moves 10 °C
     // over the 100 s rate window, except probe 1, frozen at its value at
     // 100 s (a failed input module holding its last value).
-    let rising = |i: usize, t: f64| Some(temp(DEPTHS_MM[i]) - 300.0 + 0.1 * t);
+    let rising = |i: usize, t: f64| Some(temp(DEPTHS_MM[i]) - 300.0 + 0.1 * t + noise(i, t));
     let mut m = monitor();
     let r = run(&mut m, 0, 100, rising);
     // Heat stored at a uniform rise: ρ c_p (dT/dt) L = 2000 × 1000 × 0.1 ×
@@ -170,8 +184,9 @@ fn a_probe_frozen_while_the_wall_heats_is_stuck() {
     assert_eq!(last.status, ZoneStatus::Degraded);
     assert_within_uncertainty(last);
     let rate = last.probes[0].rate_measured_c_per_h.unwrap();
+    // ±0.05 °C of noise over the 100 s window moves the slope by a few °C/h.
     assert!(
-        (rate - 360.0).abs() < 1.0,
+        (rate - 360.0).abs() < 5.0,
         "measured rate {rate} °C/h (exact 360)"
     );
     assert_eq!(channel_health(&mut m, 300.0, "p1"), Health::Stuck);

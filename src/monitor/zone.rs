@@ -193,11 +193,15 @@ impl ZoneEngine {
         }
 
         // 2. Diagnostics the zone can make and a channel alone cannot.
+        let mut depths: HVec<f64, MAX_PROBES> = HVec::new();
+        for p in zone.probes.iter().take(MAX_PROBES) {
+            let _ = depths.push(p.depth_m);
+        }
         let mut diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES> = HVec::new();
         for i in 0..fresh.len() {
-            let _ = diagnosis.push(stuck(&spans, i).then_some((
+            let _ = diagnosis.push(stuck(&spans, &depths, i).then_some((
                 Health::Stuck,
-                "no change while the zone's other probes change",
+                "the same value repeated exactly while a neighbouring probe changes",
             )));
         }
         let mut samples: HVec<ProbeSample, MAX_PROBES> = HVec::new();
@@ -212,7 +216,19 @@ impl ZoneEngine {
                 let _ = sample_probe.push(i);
             }
         }
-        if let Some(k) = wall.as_ref().and_then(|w| outlier(w, &samples)) {
+        // Outliers only while the wall is near steady state: in a
+        // transient the model's own misfit (steep curvature near the hot
+        // face) would be blamed on a healthy probe. So every probe must be
+        // changing slowly, the suspect too (a probe that jumped is judged
+        // once its rate window has passed the jump).
+        let mut sample_rates: HVec<Option<f64>, MAX_PROBES> = HVec::new();
+        for &i in &sample_probe {
+            let _ = sample_rates.push(rates[i]);
+        }
+        if let Some(k) = wall
+            .as_ref()
+            .and_then(|w| outlier(w, &samples, &sample_rates))
+        {
             diagnosis[sample_probe[k]] = Some((
                 Health::Outlier,
                 "inconsistent with the zone's other probes (leave-one-out residual)",
@@ -380,7 +396,7 @@ fn stored_w_m2(probes: &[ProbeReport], wall: &Wall<'_>) -> Option<f64> {
 
 /// A probe rate beyond this makes a contradicted steady model read as
 /// "not at steady state" (a threshold of ours), °C/h.
-pub const FAST_RATE_C_PER_H: f64 = 20.0;
+pub const FAST_RATE_C_PER_H: f64 = 5.0;
 
 fn check_name(c: ModelCheck) -> &'static str {
     match c {
@@ -399,11 +415,16 @@ fn mismatch_pct(fourier_w_m2: f64, surface_w_m2: f64) -> Option<f64> {
     Some((fourier_w_m2 - surface_w_m2) / surface_w_m2 * 100.0)
 }
 
-/// A probe is stuck when its readings spanned less than this over the
-/// window…
-pub const STUCK_SPAN_C: f64 = 0.05;
-/// …while the median span of the zone's other probes exceeded this.
+/// A probe is stuck when it repeated exactly the same value over the
+/// window (a live thermocouple always shows some noise or drift; a frozen
+/// input module or a dead converter repeats its last value bit for bit)…
+pub const STUCK_SPAN_C: f64 = 1e-9;
+/// …while a probe next to it in depth moved by more than this, °C. (A
+/// shell probe may legitimately sit still for hours while the lining
+/// heats, so "the others move" alone is not enough.)
 pub const STUCK_OTHERS_C: f64 = 5.0;
+/// Readings in the window before a span is judged.
+pub const MIN_SPAN_POINTS: usize = 5;
 /// An outlier's leave-one-out studentised residual exceeds this (a
 /// threshold of ours: five standard uncertainties).
 pub const OUTLIER_T: f64 = 5.0;
@@ -418,33 +439,44 @@ fn history_span_c(
     let mut lo = f64::INFINITY;
     let mut hi = f64::NEG_INFINITY;
     let mut first = None;
+    let mut n = 0;
     for &(t, v) in history.oldest_ordered() {
         if now_s - t <= window_s {
             first.get_or_insert(t);
             lo = lo.min(v);
             hi = hi.max(v);
+            n += 1;
         }
     }
+    // Enough distinct readings to call it a span (a reading that was not
+    // renewed is not a repeated one).
     first
-        .filter(|&t0| now_s - t0 >= window_s / 2.0)
+        .filter(|&t0| n >= MIN_SPAN_POINTS && now_s - t0 >= window_s / 2.0)
         .map(|_| hi - lo)
 }
 
-/// Probe `i` stuck: flat while the median of the others moved.
-fn stuck(spans: &[Option<f64>], i: usize) -> bool {
+/// Probe `i` stuck: exactly flat while its neighbours in depth moved.
+fn stuck(spans: &[Option<f64>], depths: &[f64], i: usize) -> bool {
     let Some(own) = spans[i] else { return false };
-    let mut others: HVec<f64, MAX_PROBES> = HVec::new();
-    for (j, s) in spans.iter().enumerate() {
-        if let (true, Some(s)) = (j != i, s) {
-            let _ = others.push(*s);
-        }
-    }
-    if others.len() < 2 {
+    if own > STUCK_SPAN_C {
         return false;
     }
-    others.sort_unstable_by(f64::total_cmp);
-    let median = others[others.len() / 2];
-    own < STUCK_SPAN_C && median > STUCK_OTHERS_C
+    // The nearest shallower and deeper probes.
+    let d = depths[i];
+    let nearest = |deeper: bool| {
+        (0..spans.len())
+            .filter(|&j| j != i && if deeper { depths[j] > d } else { depths[j] < d })
+            .min_by(|&a, &b| (depths[a] - d).abs().total_cmp(&(depths[b] - d).abs()))
+    };
+    // Every neighbour it has moved (one jumping neighbour is its own fault).
+    let neighbours: HVec<usize, 2> = [nearest(false), nearest(true)]
+        .into_iter()
+        .flatten()
+        .collect();
+    !neighbours.is_empty()
+        && neighbours
+            .iter()
+            .all(|&j| spans[j].is_some_and(|s| s > STUCK_OTHERS_C))
 }
 
 /// The one sample inconsistent with the others, if any. Each sample is
@@ -454,7 +486,7 @@ fn stuck(spans: &[Option<f64>], i: usize) -> bool {
 /// standardised residual below 3). That second test needs a redundant fit
 /// without it, so five samples or more: a profile the model cannot follow
 /// (a fast transient) spreads over all probes and is not blamed on one.
-fn outlier(wall: &Wall<'_>, samples: &[ProbeSample]) -> Option<usize> {
+fn outlier(wall: &Wall<'_>, samples: &[ProbeSample], rates: &[Option<f64>]) -> Option<usize> {
     // The fit without the suspect must itself be redundant: more samples
     // than the model's parameters (quadratic 3, layered 2).
     let params = match wall {
@@ -490,6 +522,11 @@ fn outlier(wall: &Wall<'_>, samples: &[ProbeSample]) -> Option<usize> {
     t.sort_unstable_by(|a, b| b.1.total_cmp(&a.1));
     t.iter()
         .take_while(|(_, ti)| *ti > OUTLIER_T)
+        .filter(|_| {
+            rates
+                .iter()
+                .all(|r| r.is_some_and(|r| r.abs() <= FAST_RATE_C_PER_H))
+        })
         .find_map(|&(i, _)| {
             let rest = without(i);
             let fit = wall.solve(&rest)?;

@@ -7,3 +7,4 @@ pub mod profile;
 pub mod surface;
 pub mod thermocouple;
 pub mod tolerance;
+pub mod transient;
