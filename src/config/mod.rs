@@ -13,7 +13,7 @@ use crate::physics::surface::{Orientation, SurfaceParams};
 use crate::physics::thermocouple::TcType;
 use crate::physics::tolerance::ToleranceClass;
 
-pub use validate::{parse, ConfigError, Problem};
+pub use validate::{parse, ConfigError, Problem, DEFAULT_SHELL_TOUCH_C};
 
 /// Longest name of a zone, channel, source or material (they appear in MQTT
 /// topics and fixed-capacity payloads).
@@ -279,6 +279,9 @@ pub enum Model {
     /// Any number of layers at steady state, k(T) solved exactly (Kirchhoff
     /// transform), hot-face temperature and flux fitted to the probes.
     Layered,
+    /// The 1-D heat equation across the layers with a Kalman estimator of
+    /// the nodal temperatures and the (unmeasured) hot face; forecasts.
+    Transient,
 }
 
 impl Model {
@@ -286,6 +289,7 @@ impl Model {
         match self {
             Model::Quadratic => "quadratic",
             Model::Layered => "layered",
+            Model::Transient => "transient",
         }
     }
 }
@@ -327,6 +331,13 @@ pub struct Zone {
     pub max_ramp_c_per_h: Option<f64>,
     /// Reference heat loss of the zone (built-in deviation alarm), W.
     pub heat_loss_baseline_w: Option<f64>,
+    /// Forecast horizons of the transient model, h.
+    pub forecast_h: Vec<f64>,
+    /// The firing's set-point: forecasts do not extrapolate the hot face
+    /// beyond it (nor beyond the hot layer's `max_service_c`), °C.
+    pub firing_setpoint_c: Option<f64>,
+    /// Finite-volume cells per layer of the transient model.
+    pub cells_per_layer: usize,
     /// Window of the measured-rate regression, s.
     pub rate_window_s: f64,
     pub layers: Vec<ZoneLayer>,

@@ -1130,19 +1130,14 @@ impl Validator<'_> {
         let model = match z.model.get_ref().as_str() {
             "quadratic" => Model::Quadratic,
             "layered" => Model::Layered,
-            m @ "transient" => {
-                self.problem(
-                    z.model.span(),
-                    p("model"),
-                    format!("model {m:?} is not available in this version yet; use \"quadratic\" (one layer) or \"layered\""),
-                );
-                Model::Quadratic
-            }
+            "transient" => Model::Transient,
             other => {
                 self.problem(
                     z.model.span(),
                     p("model"),
-                    format!("{other:?} is not a model; use \"quadratic\" or \"layered\""),
+                    format!(
+                        "{other:?} is not a model; use \"quadratic\", \"layered\" or \"transient\""
+                    ),
                 );
                 Model::Quadratic
             }
@@ -1210,6 +1205,36 @@ impl Validator<'_> {
             .heat_loss_baseline_w
             .as_ref()
             .map(|h| self.positive(h, &p("heat_loss_baseline_w"), "W"));
+        let forecast_h = match &z.forecast_h {
+            Some(f) => {
+                let v = f.get_ref().clone();
+                if v.is_empty()
+                    || v.len() > 8
+                    || v.iter()
+                        .any(|h| !(h.is_finite() && *h > 0.0 && *h <= 168.0))
+                {
+                    self.problem(
+                        f.span(),
+                        p("forecast_h"),
+                        "1 to 8 horizons, each more than 0 and at most 168 h",
+                    );
+                }
+                v
+            }
+            None => vec![1.0, 2.0, 4.0],
+        };
+        let firing_setpoint_c = z
+            .firing_setpoint_c
+            .as_ref()
+            .map(|f| self.finite(f, &p("firing_setpoint_c")));
+        let cells_per_layer = match &z.cells_per_layer {
+            Some(c) if (2..=32).contains(c.get_ref()) => *c.get_ref() as usize,
+            Some(c) => {
+                self.problem(c.span(), p("cells_per_layer"), "must be 2 to 32");
+                16
+            }
+            None => 16,
+        };
         let rate_window_s = z
             .rate_window_s
             .as_ref()
@@ -1371,6 +1396,9 @@ impl Validator<'_> {
             surface_h_w_m2k,
             max_ramp_c_per_h,
             heat_loss_baseline_w,
+            forecast_h,
+            firing_setpoint_c,
+            cells_per_layer,
             rate_window_s,
             layers,
             probes,

@@ -101,7 +101,7 @@ impl Monitor {
             .zones
             .iter()
             .enumerate()
-            .map(|(i, z)| ZoneEngine::new(i, z, start))
+            .map(|(i, z)| ZoneEngine::new(i, z, &settings.materials, start))
             .collect();
         Monitor {
             channels: vec![ChannelState::default(); n],

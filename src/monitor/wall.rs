@@ -68,6 +68,8 @@ impl<'a> Wall<'a> {
                 }
                 LayeredWall::new(&specs).ok().map(Wall::Layered)
             }
+            // Stateful: the zone engine runs it (see `ZoneEngine`).
+            Model::Transient => None,
         }
     }
 

@@ -7,12 +7,15 @@ use serde::Serialize;
 
 use super::channel::{ChannelState, Health, Reading};
 use super::wall::Wall;
-use crate::config::Model;
+use crate::config::{Model, NamedMaterial};
 use crate::config::{Name, Settings, Zone, MAX_PROBES};
 use crate::physics::fit::linear_slope;
 use crate::physics::layered::{ModelCheck, MAX_LAYERS};
 use crate::physics::profile::{heat_loss_w, ProbeSample};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
+use crate::physics::transient::{
+    Limit, TransientError, TransientEstimator, TransientLayer, TransientSettings,
+};
 use crate::time::Timestamp;
 
 /// Schema tag of the zone-state payload.
@@ -111,6 +114,20 @@ pub struct ZoneReport {
     /// Why, in words, when the check says contradicted.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub model_note: Option<&'static str>,
+    /// Transient model: the estimated hot-face rate, °C/h.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub hot_face_rate_c_per_h: Option<f64>,
+    /// Transient model: windowed mean normalised innovation squared per
+    /// reading (about 1 when the model and the readings agree).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub filter_nis: Option<f64>,
+    /// Transient model: the profile run ahead under the hot-face trend.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub forecast: Option<HVec<ForecastReport, 8>>,
+    /// Transient model: hours until each limit is reached, within the
+    /// longest forecast horizon.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub time_to_limit_h: Option<HVec<LimitReport, 9>>,
     pub probes_used: u8,
     pub uncertainty: Option<Uncertainty>,
     pub probes: HVec<ProbeReport, MAX_PROBES>,
@@ -134,10 +151,33 @@ pub struct ZoneEngine {
     pub cycles: u64,
     /// Zone-level faults of each probe from the last cycle (stuck, outlier).
     pub diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES>,
+    /// The transient model's estimator (model = "transient"), or why it
+    /// could not be built.
+    transient: Option<Result<Box<TransientEstimator>, TransientError>>,
+    last_step: Option<Timestamp>,
 }
 
 impl ZoneEngine {
-    pub fn new(index: usize, zone: &Zone, start: Timestamp) -> Self {
+    pub fn new(index: usize, zone: &Zone, materials: &[NamedMaterial], start: Timestamp) -> Self {
+        // The transient estimator is built once (its covariance is large):
+        // no allocation per cycle.
+        let transient = (zone.model == Model::Transient).then(|| {
+            let layers: Vec<TransientLayer<'_>> = zone
+                .layers
+                .iter()
+                .filter_map(|l| {
+                    materials.get(l.material).map(|m| TransientLayer {
+                        material: &m.material,
+                        thickness_m: l.thickness_m,
+                    })
+                })
+                .collect();
+            let settings = TransientSettings {
+                cells_per_layer: zone.cells_per_layer,
+                ..TransientSettings::default()
+            };
+            TransientEstimator::new(&layers, zone.surface, settings).map(Box::new)
+        });
         let mut tracks = HVec::new();
         for _ in zone.probes.iter().take(MAX_PROBES) {
             let _ = tracks.push(ProbeTrack {
@@ -151,6 +191,8 @@ impl ZoneEngine {
             origin: start,
             cycles: 0,
             diagnosis: HVec::new(),
+            transient,
+            last_step: None,
         }
     }
 
@@ -279,10 +321,18 @@ impl ZoneEngine {
             thermal_resistance_m2k_w: None,
             model_check: None,
             model_note: None,
+            hot_face_rate_c_per_h: None,
+            filter_nis: None,
+            forecast: None,
+            time_to_limit_h: None,
             probes_used: samples.len() as u8,
             uncertainty: None,
             probes,
         };
+        if zone.model == Model::Transient {
+            self.transient_cycle(settings, &samples, &mut report, now);
+            return report;
+        }
         let Some(wall) = wall else {
             return report;
         };
@@ -292,7 +342,7 @@ impl ZoneEngine {
         };
         let full_order = match zone.model {
             Model::Quadratic => sol.degree == Some(if zone.probes.len() >= 3 { 2 } else { 1 }),
-            Model::Layered => true,
+            Model::Layered | Model::Transient => true,
         };
         // Data that contradict the model (residuals beyond what the probes'
         // uncertainties allow: the wall is not at steady state, or a probe
@@ -413,6 +463,171 @@ fn mismatch_pct(fourier_w_m2: f64, surface_w_m2: f64) -> Option<f64> {
         return None;
     }
     Some((fourier_w_m2 - surface_w_m2) / surface_w_m2 * 100.0)
+}
+
+impl ZoneEngine {
+    /// The transient model's cycle: predict over the interval, assimilate
+    /// the valid probes, report the estimate, forecasts and times to limits.
+    fn transient_cycle(
+        &mut self,
+        settings: &Settings,
+        samples: &[ProbeSample],
+        report: &mut ZoneReport,
+        now: Timestamp,
+    ) {
+        let zone = &settings.zones[self.index];
+        let dt = self.last_step.map_or(0.0, |t| now.since(t).max(0.0));
+        self.last_step = Some(now);
+        let est = match self.transient.as_mut() {
+            Some(Ok(e)) => e,
+            Some(Err(_)) | None => {
+                report.model_note = Some("the transient model could not be built for this wall");
+                return;
+            }
+        };
+        let step = match est.step(dt, samples) {
+            Ok(s) => s,
+            Err(_) => return,
+        };
+        if !est.is_initialised() || samples.is_empty() {
+            return;
+        }
+        let (hot, s_hot) = est.hot_face_c();
+        let (shell, s_shell) = est.shell_c();
+        let (q0, s_q0) = est.flux_hot_face_w_m2();
+        let (ql, s_ql) = est.flux_shell_w_m2();
+        let (stored, _) = est.stored_w_m2();
+        let l = zone.thickness_m();
+        report.status = if samples.len() == zone.probes.len() && !step.reset {
+            ZoneStatus::Ok
+        } else {
+            ZoneStatus::Degraded
+        };
+        report.hot_face_c = Some(hot);
+        report.shell_c = Some(shell);
+        report.flux_hot_face_w_m2 = Some(q0);
+        report.flux_shell_w_m2 = Some(ql);
+        report.heat_loss_w = Some(heat_loss_w(ql, zone.area_m2));
+        report.source_w_m3 = Some((ql - q0) / l);
+        report.stored_w_m2 = Some(stored);
+        report.hot_face_rate_c_per_h = Some(est.hot_face_rate_c_per_h().0);
+        report.filter_nis = Some(est.nis());
+        if step.reset {
+            report.model_note = Some("the estimator was reset: it had diverged from the readings (check the materials and probe depths)");
+        }
+        let interfaces = est.interface_c();
+        if !interfaces.is_empty() {
+            report.interface_c = Some(interfaces.iter().map(|&(t, _)| t).collect());
+        }
+        let mut sq = 0.0;
+        for p in report.probes.iter_mut() {
+            let x = p.depth_mm / 1000.0;
+            let fitted = est.temperature_at(x);
+            p.fitted_c = Some(fitted);
+            p.rate_model_c_per_h = Some(est.rate_c_per_h_at(x));
+            if let (Some(m), Health::Ok) = (p.measured_c, p.status) {
+                sq += (m - fitted) * (m - fitted);
+            }
+        }
+        report.fit_rms_c = Some((sq / samples.len() as f64).sqrt());
+        let surface = shell_surface(zone, shell);
+        report.flux_surface_w_m2 = Some(surface.flux_w_m2);
+        report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
+        report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
+        report.balance_mismatch_pct = mismatch_pct(ql, surface.flux_w_m2);
+        report.uncertainty = Some(Uncertainty {
+            hot_face_c: s_hot,
+            shell_c: s_shell,
+            flux_hot_face_w_m2: s_q0,
+            flux_shell_w_m2: s_ql,
+            heat_loss_w: s_ql * zone.area_m2,
+            interface_c: (!interfaces.is_empty())
+                .then(|| interfaces.iter().map(|&(_, s)| s).collect()),
+            thermal_resistance_m2k_w: None,
+        });
+        // Forecasts under the current hot-face trend, capped at the hot
+        // layer's service limit and the firing set-point.
+        let cap = zone
+            .layers
+            .first()
+            .and_then(|l| settings.materials[l.material].material.max_service_c)
+            .into_iter()
+            .chain(zone.firing_setpoint_c)
+            .fold(f64::INFINITY, f64::min);
+        let mut forecast: HVec<ForecastReport, 8> = HVec::new();
+        for &h in zone.forecast_h.iter().take(8) {
+            if let Some(f) = est.forecast(h * 3600.0, cap) {
+                let _ = forecast.push(ForecastReport {
+                    horizon_h: h,
+                    shell_c: f.shell_c,
+                    hot_face_c: f.hot_face_c,
+                    interface_c: f.interface_c.clone(),
+                });
+            }
+        }
+        report.forecast = Some(forecast);
+        let longest_s = zone.forecast_h.iter().copied().fold(0.0, f64::max) * 3600.0;
+        let mut limits: HVec<LimitReport, 9> = HVec::new();
+        let touch = settings
+            .alarms
+            .iter()
+            .find(|a| {
+                a.builtin
+                    && a.spec.kind == crate::monitor::alarm::AlarmKind::High
+                    && a.target
+                        == (crate::config::AlarmTarget::Zone {
+                            zone: self.index,
+                            quantity: crate::config::ZoneQuantity::ShellC,
+                        })
+            })
+            .map_or(crate::config::DEFAULT_SHELL_TOUCH_C, |a| a.spec.setpoint);
+        let _ = limits.push(LimitReport {
+            limit: "shell_touch",
+            index: None,
+            limit_c: touch,
+            hours: est.time_to_limit_h(Limit::ShellC(touch), longest_s, cap),
+        });
+        for (i, layer) in zone.layers.iter().enumerate().skip(1) {
+            if let Some(limit_c) = settings.materials[layer.material].material.max_service_c {
+                let _ = limits.push(LimitReport {
+                    limit: "interface_service",
+                    index: Some(i - 1),
+                    limit_c,
+                    hours: est.time_to_limit_h(
+                        Limit::InterfaceC {
+                            index: i - 1,
+                            limit_c,
+                        },
+                        longest_s,
+                        cap,
+                    ),
+                });
+            }
+        }
+        report.time_to_limit_h = Some(limits);
+    }
+}
+
+/// One forecast of the transient model.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct ForecastReport {
+    pub horizon_h: f64,
+    pub shell_c: f64,
+    pub hot_face_c: f64,
+    pub interface_c: HVec<f64, MAX_LAYERS>,
+}
+
+/// When a limit is reached under the forecast (None: not within the
+/// longest horizon).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct LimitReport {
+    /// `shell_touch` or `interface_service`.
+    pub limit: &'static str,
+    /// The interface (0 = between the first two layers).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub index: Option<usize>,
+    pub limit_c: f64,
+    pub hours: Option<f64>,
 }
 
 /// A probe is stuck when it repeated exactly the same value over the
