@@ -172,6 +172,7 @@ fn simulate(
     let mut rng = SplitMix64(0x2545_F491_4F6C_DD1D);
     let mut seq: u32 = 0;
     let mut t_sim = 0.0;
+    let mut finished = false;
     let mut line = heapless::String::<{ MAX_LINE_BYTES + 2 }>::new();
     let mut values: heapless::Vec<(u8, Value), 64> = heapless::Vec::new();
     while !stop.load(Ordering::Relaxed) {
@@ -226,16 +227,12 @@ fn simulate(
             }
         }
         seq = seq.wrapping_add(1);
-        if t_sim >= schedule.duration_s() {
-            // Let the daemon publish the last interval, then end.
-            std::thread::sleep(clock.real_duration(120.0).min(Duration::from_secs(2)));
+        // Two more minutes of scans after the firing, so the daemon
+        // publishes its last interval; the line stays up (and scanning)
+        // until the daemon has stopped, so it reports no lost port.
+        if !finished && t_sim >= schedule.duration_s() + 120.0 {
+            finished = true;
             done.notify_one();
-            // Keep the line up until the daemon has stopped, so it does not
-            // report a lost port on the way out.
-            while !stop.load(Ordering::Relaxed) {
-                std::thread::sleep(Duration::from_millis(20));
-            }
-            return;
         }
     }
 }
