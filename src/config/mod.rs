@@ -74,10 +74,13 @@ pub enum ZoneQuantity {
     FluxSurfaceWM2,
     BalanceMismatchPct,
     StoredWM2,
+    ThermalResistanceM2KW,
+    /// `interface_c[i]`: interface `i` (0 = between the first two layers).
+    InterfaceC(u8),
 }
 
 impl ZoneQuantity {
-    pub const ALL: [(ZoneQuantity, &'static str, &'static str); 10] = [
+    pub const ALL: [(ZoneQuantity, &'static str, &'static str); 11] = [
         (ZoneQuantity::HotFaceC, "hot_face_c", "°C"),
         (ZoneQuantity::ShellC, "shell_c", "°C"),
         (ZoneQuantity::FluxHotFaceWM2, "flux_hot_face_w_m2", "W/m²"),
@@ -92,9 +95,25 @@ impl ZoneQuantity {
             "%",
         ),
         (ZoneQuantity::StoredWM2, "stored_w_m2", "W/m²"),
+        (
+            ZoneQuantity::ThermalResistanceM2KW,
+            "thermal_resistance_m2k_w",
+            "m²K/W",
+        ),
     ];
 
+    /// A field name of the zone state, or `interface_c[i]`.
     pub fn from_name(s: &str) -> Option<Self> {
+        if let Some(i) = s
+            .strip_prefix("interface_c[")
+            .and_then(|r| r.strip_suffix(']'))
+        {
+            return i
+                .parse::<u8>()
+                .ok()
+                .filter(|&i| usize::from(i) < MAX_LAYERS - 1)
+                .map(ZoneQuantity::InterfaceC);
+        }
         Self::ALL
             .iter()
             .find(|(_, n, _)| *n == s)
@@ -102,17 +121,23 @@ impl ZoneQuantity {
     }
 
     pub fn name(self) -> &'static str {
-        Self::ALL
-            .iter()
-            .find(|(q, _, _)| *q == self)
-            .map_or("", |(_, n, _)| n)
+        match self {
+            ZoneQuantity::InterfaceC(_) => "interface_c",
+            _ => Self::ALL
+                .iter()
+                .find(|(q, _, _)| *q == self)
+                .map_or("", |(_, n, _)| n),
+        }
     }
 
     pub fn unit(self) -> &'static str {
-        Self::ALL
-            .iter()
-            .find(|(q, _, _)| *q == self)
-            .map_or("", |(_, _, u)| u)
+        match self {
+            ZoneQuantity::InterfaceC(_) => "°C",
+            _ => Self::ALL
+                .iter()
+                .find(|(q, _, _)| *q == self)
+                .map_or("", |(_, _, u)| u),
+        }
     }
 }
 

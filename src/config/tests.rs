@@ -183,3 +183,57 @@ fn not_toml_is_an_error_with_a_line() {
     assert_eq!(p.len(), 1);
     assert!(p[0].message.contains("site"), "{}", p[0].message);
 }
+
+#[test]
+fn alarms_are_validated_and_built_in_ones_tuned() {
+    let s = parse(DEMO, "demo.toml", None).unwrap();
+    let names: Vec<&str> = s.alarms.iter().map(|a| a.name.as_str()).collect();
+    for n in [
+        "side-wall-shell-touch",
+        "side-wall-interface-0-service",
+        "door-30-fault",
+        "tcbox-1-silent",
+    ] {
+        assert!(names.contains(&n), "{n} missing from {names:?}");
+    }
+    let iface = s
+        .alarms
+        .iter()
+        .find(|a| a.name == "side-wall-interface-0-service")
+        .unwrap();
+    assert_eq!(
+        iface.spec.setpoint, 1430.0,
+        "the insulating brick's max_service_c"
+    );
+    // Tune one, disable one, add one; refuse bad ones with their keys.
+    let text = format!(
+        "{DEMO}\n[[alarm]]\nname = \"roof-shell-touch\"\nsetpoint = 70.0\n\
+         [[alarm]]\nname = \"door-30-fault\"\nenabled = false\n\
+         [[alarm]]\nname = \"roof-hot\"\nzone = \"roof\"\nquantity = \"hot_face_c\"\nkind = \"high\"\nsetpoint = 1300.0\npriority = \"critical\"\n"
+    );
+    let s = parse(&text, "t", None).unwrap();
+    assert_eq!(
+        s.alarms
+            .iter()
+            .find(|a| a.name == "roof-shell-touch")
+            .unwrap()
+            .spec
+            .setpoint,
+        70.0
+    );
+    assert!(!s.alarms.iter().any(|a| a.name == "door-30-fault"));
+    assert!(s.alarms.iter().any(|a| a.name == "roof-hot" && !a.builtin));
+    for (bad, path) in [
+        ("name = \"x\"\nzone = \"door\"\nquantity = \"interface_c[0]\"\nkind = \"high\"\nsetpoint = 1.0", "alarm[0].quantity"),
+        ("name = \"x\"\nzone = \"side-wall\"\nquantity = \"interface_c[4]\"\nkind = \"high\"\nsetpoint = 1.0", "alarm[0].quantity"),
+        ("name = \"x\"\nzone = \"nowhere\"\nquantity = \"shell_c\"\nkind = \"high\"\nsetpoint = 1.0", "alarm[0].zone"),
+        ("name = \"x\"\nzone = \"door\"\nquantity = \"shell_c\"\nkind = \"hot\"\nsetpoint = 1.0", "alarm[0].kind"),
+        ("name = \"x\"\nzone = \"door\"\nquantity = \"shell_c\"\nkind = \"high\"", "alarm[0].setpoint"),
+        ("name = \"x\"\nzone = \"door\"\nquantity = \"shell_c\"\nkind = \"high\"\nsetpoint = 1.0\non_delay_s = -5.0", "alarm[0].on_delay_s"),
+        ("name = \"roof-shell-touch\"\nzone = \"roof\"", "alarm[0].zone"),
+        ("name = \"x\"\nzone = \"door\"\nquantity = \"heat_loss_w\"\nkind = \"deviation\"\nsetpoint = 20.0", "alarm[0].baseline"),
+    ] {
+        let p = problems(&format!("{DEMO}\n[[alarm]]\n{bad}\n"));
+        assert!(p.iter().any(|x| x.path == path && x.line.is_some()), "{bad}: {p:#?}");
+    }
+}

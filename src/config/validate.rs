@@ -458,6 +458,27 @@ impl Validator<'_> {
                     ),
                 });
             }
+            if z.model != Model::Quadratic {
+                for (i, next) in z.layers.iter().enumerate().skip(1) {
+                    let Some(limit) = materials
+                        .get(next.material)
+                        .and_then(|m| m.material.max_service_c)
+                    else {
+                        continue;
+                    };
+                    let k = (i - 1) as u8;
+                    out.push(AlarmConfig {
+                        name: format!("{}-interface-{k}-service", z.name),
+                        target: zone(ZoneQuantity::InterfaceC(k)),
+                        spec: spec(AlarmKind::High, limit, 10.0, 300.0, Priority::High),
+                        baseline: None,
+                        builtin: true,
+                        message: format!("Interface {k} of zone {} above the service limit of the layer behind it", z.name),
+                        consequence: text("The backup layer degrades: shrinkage, loss of insulation, a hotter shell"),
+                        action: text("Check the lining in front of it for wear or cracks; plan an inspection"),
+                    });
+                }
+            }
             if let Some(ramp) = z.max_ramp_c_per_h {
                 out.push(AlarmConfig {
                     name: format!("{}-ramp", z.name),
@@ -743,8 +764,25 @@ impl Validator<'_> {
                 );
                 return None;
             };
+            if let Some(ZoneQuantity::InterfaceC(k)) = ZoneQuantity::from_name(q.get_ref()) {
+                let z = &zones[zone];
+                if z.model == Model::Quadratic || usize::from(k) + 1 >= z.layers.len() {
+                    let n = if z.model == Model::Quadratic {
+                        0
+                    } else {
+                        z.layers.len().saturating_sub(1)
+                    };
+                    self.problem(
+                        q.span(),
+                        p("quantity"),
+                        format!("zone {:?} has {n} interface(s) (interface_c[0] is the first; the quadratic model has none)", z.name),
+                    );
+                    return None;
+                }
+            }
             let Some(quantity) = ZoneQuantity::from_name(q.get_ref()) else {
-                let names: Vec<&str> = ZoneQuantity::ALL.iter().map(|(_, n, _)| *n).collect();
+                let mut names: Vec<&str> = ZoneQuantity::ALL.iter().map(|(_, n, _)| *n).collect();
+                names.push("interface_c[i]");
                 self.problem(
                     q.span(),
                     p("quantity"),

@@ -507,6 +507,11 @@ fn zone_quantity(r: &ZoneReport, q: ZoneQuantity) -> Option<f64> {
         ZoneQuantity::FluxSurfaceWM2 => r.flux_surface_w_m2,
         ZoneQuantity::BalanceMismatchPct => r.balance_mismatch_pct,
         ZoneQuantity::StoredWM2 => r.stored_w_m2,
+        ZoneQuantity::ThermalResistanceM2KW => r.thermal_resistance_m2k_w,
+        ZoneQuantity::InterfaceC(i) => r
+            .interface_c
+            .as_ref()
+            .and_then(|v| v.get(usize::from(i)).copied()),
     }
 }
 
