@@ -103,5 +103,86 @@ fn zone_cycle(c: &mut Criterion) {
     });
 }
 
-criterion_group!(benches, thermocouple, line, zone_cycle);
+fn wall_models(c: &mut Criterion) {
+    use wallflux::physics::layered::{LayerSpec, LayeredWall};
+    use wallflux::physics::material::{Material, Property};
+    use wallflux::physics::profile::ProbeSample;
+    use wallflux::physics::surface::{Orientation, SurfaceParams};
+    use wallflux::physics::transient::{TransientEstimator, TransientLayer, TransientSettings};
+
+    let mat = |k: Property, rho: f64| Material {
+        conductivity_w_mk: k,
+        density_kg_m3: rho,
+        specific_heat_j_kgk: Property::Constant(1000.0),
+        max_service_c: None,
+    };
+    let dense = mat(
+        Property::table("k", &[(200.0, 1.05), (1200.0, 1.25)]).unwrap(),
+        2150.0,
+    );
+    let ifb = mat(
+        Property::table("k", &[(200.0, 0.14), (1200.0, 0.22)]).unwrap(),
+        500.0,
+    );
+    let steel = mat(Property::Constant(50.0), 7800.0);
+    let layers = [(&dense, 0.23), (&ifb, 0.115), (&steel, 0.01)];
+    let samples: Vec<ProbeSample> = [
+        (0.04, 1010.0),
+        (0.12, 820.0),
+        (0.25, 480.0),
+        (0.30, 260.0),
+        (0.355, 95.0),
+    ]
+    .iter()
+    .map(|&(d, t)| ProbeSample {
+        depth_m: d,
+        temp_c: t,
+        sigma_c: 1.0,
+    })
+    .collect();
+
+    let specs: Vec<LayerSpec<'_>> = layers
+        .iter()
+        .map(|&(m, t)| LayerSpec {
+            material: m,
+            thickness_m: t,
+            contact_m2k_w: 0.0,
+        })
+        .collect();
+    let wall = LayeredWall::new(&specs).unwrap();
+    c.bench_function("layered fit, 3 layers with k(T), 5 probes", |b| {
+        b.iter(|| wall.solve(black_box(&samples)))
+    });
+
+    let surface = SurfaceParams {
+        orientation: Orientation::Vertical,
+        length_m: 2.0,
+        emissivity: 0.8,
+        ambient_c: 25.0,
+        surroundings_c: 25.0,
+        wind_m_s: None,
+    };
+    let tl: Vec<TransientLayer<'_>> = layers
+        .iter()
+        .map(|&(m, t)| TransientLayer {
+            material: m,
+            thickness_m: t,
+        })
+        .collect();
+    // 20 cells per layer: 61 nodes.
+    let settings = TransientSettings {
+        cells_per_layer: 20,
+        ..TransientSettings::default()
+    };
+    let mut est = TransientEstimator::new(&tl, surface, settings).unwrap();
+    est.step(0.0, &samples).unwrap();
+    c.bench_function("transient assimilation step, 61 nodes, 5 probes", |b| {
+        b.iter(|| est.step(black_box(60.0), black_box(&samples)))
+    });
+    c.bench_function("transient 12 h forecast, 61 nodes", |b| {
+        b.iter(|| est.forecast(black_box(12.0 * 3600.0), 1300.0))
+    });
+}
+
+criterion_group!(benches, thermocouple, line, zone_cycle, wall_models);
 criterion_main!(benches);
