@@ -17,7 +17,8 @@ pub struct Feeder {
 }
 
 impl Feeder {
-    /// `values(probe index, seconds since start)`; inputs are 1..=n.
+    /// `values(probe index, seconds since start)`; inputs are 1..=n; None
+    /// sends `open`, NaN leaves the input out.
     pub fn start(mut pty: Pty, n: usize, values: Values) -> Feeder {
         let stop = Arc::new(AtomicBool::new(false));
         let s = stop.clone();
@@ -30,6 +31,8 @@ impl Feeder {
                 let mut v: heapless::Vec<(u8, Value), 64> = heapless::Vec::new();
                 for i in 0..n {
                     let x = match values(i, t) {
+                        // NaN: the input is left out of the frame.
+                        Some(c) if c.is_nan() => continue,
                         Some(c) => Value::Reading {
                             value: (c * 100.0).round() / 100.0,
                             unit: Unit::Celsius,

@@ -1,0 +1,193 @@
+//! Channel diagnostics through the real serial path: the binary reads a
+//! pseudo-terminal, publishes to a real broker. Each fault is injected into
+//! a live zone: it is flagged on the channel topic, left out of the fit
+//! (the zone degrades, its numbers stay within their uncertainty), and the
+//! flag clears when the fault goes.
+//!
+//! Wall: steady slab without source, constant k (Fourier's law, Incropera
+//! ch. 3): T(x) = 900 − (q/k) x with q = 3000 W/m², k = 1.5 W/mK.
+
+mod common;
+
+use std::process::Stdio;
+use std::sync::{Arc, Mutex};
+use std::time::Duration;
+
+use common::feeder::Feeder;
+use common::mqtt::{free_port, subscribe, wait_for, Broker, Msg};
+use common::*;
+use wallflux::sim::pty::Pty;
+
+const DEPTHS_MM: [f64; 5] = [20.0, 70.0, 130.0, 190.0, 250.0];
+const ROOT: &str = "wf/test-plant/k1";
+const Q: f64 = 3000.0;
+
+#[derive(Clone, Copy, PartialEq)]
+enum Fault {
+    None,
+    Open(usize),
+    OutOfRange(usize),
+    SpikeOnce(usize, f64),
+    Offset(usize, f64),
+    Frozen(usize, f64),
+    Silent(usize),
+}
+
+struct Scene {
+    fault: Fault,
+    /// Uniform rise of the whole wall, °C/s, since `since_s` (keeps the
+    /// gradient, hence q, unchanged).
+    rise_c_per_s: f64,
+    since_s: f64,
+    base_s: f64,
+}
+
+fn temp(i: usize, t: f64, s: &Scene) -> f64 {
+    let noise = 0.02 * (t * 1.7 + i as f64 * 2.3).sin();
+    let rise = s.base_s * s.rise_c_per_s + s.rise_c_per_s * (t - s.since_s).max(0.0);
+    900.0 - Q / 1.5 * DEPTHS_MM[i] / 1000.0 + noise + rise
+}
+
+fn values(scene: Arc<Mutex<Scene>>) -> common::feeder::Values {
+    Arc::new(move |i, t| {
+        let mut s = scene.lock().unwrap();
+        let v = temp(i, t, &s);
+        match s.fault {
+            Fault::Open(j) if j == i => None,
+            Fault::OutOfRange(j) if j == i => Some(1500.0),
+            Fault::SpikeOnce(j, dv) if j == i => {
+                s.fault = Fault::None;
+                Some(v + dv)
+            }
+            Fault::Offset(j, dv) if j == i => Some(v + dv),
+            Fault::Frozen(j, c) if j == i => Some(c),
+            Fault::Silent(j) if j == i => Some(f64::NAN),
+            _ => Some(v),
+        }
+    })
+}
+
+fn channel(m: &Msg, i: usize, status: &str) -> bool {
+    m.topic == format!("{ROOT}/channel/p{i}") && m.json["status"] == status
+}
+
+fn zone(m: &Msg, status: &str) -> bool {
+    m.topic == format!("{ROOT}/zone/wall/state") && m.json["status"] == status
+}
+
+/// The zone's shell flux within 3σ of its own uncertainty of the truth.
+fn within_uncertainty(m: &Msg) {
+    let q = m.json["flux_shell_w_m2"].as_f64().unwrap();
+    let s = m.json["uncertainty"]["flux_shell_w_m2"].as_f64().unwrap();
+    assert!((q - Q).abs() <= 3.0 * s, "q_shell {q} vs {Q} ± 3×{s}");
+}
+
+#[test]
+fn each_fault_is_flagged_excluded_and_cleared() {
+    let dir = temp_dir("diag-live");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, &format!("{ROOT}/#"));
+    let pty = Pty::open().unwrap();
+    // A 30 s rate window: measured rates steady enough for the outlier test
+    // (it waits for the jump to leave the window).
+    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0)
+        .replace("rate_window_s = 10", "rate_window_s = 30");
+    assert!(text.contains("rate_window_s = 30"));
+    let cfg = write(&dir, "w.toml", &text);
+    let scene = Arc::new(Mutex::new(Scene {
+        fault: Fault::None,
+        rise_c_per_s: 0.0,
+        since_s: 0.0,
+        base_s: 0.0,
+    }));
+    let t0 = std::time::Instant::now();
+    let _feed = Feeder::start(pty, DEPTHS_MM.len(), values(scene.clone()));
+    let mut daemon = bin()
+        .args(["run", "--config", cfg.to_str().unwrap()])
+        .stdout(Stdio::null())
+        .stderr(std::fs::File::create(dir.join("d.log")).unwrap())
+        .spawn()
+        .unwrap();
+    let long = Duration::from_secs(60);
+    let set = |f: Fault| scene.lock().unwrap().fault = f;
+
+    within_uncertainty(&wait_for(&rx, long, "zone ok", |m| zone(m, "ok")));
+
+    // Open thermocouple.
+    set(Fault::Open(1));
+    wait_for(&rx, long, "p1 open", |m| channel(m, 1, "open"));
+    let z = wait_for(&rx, long, "degraded", |m| {
+        zone(m, "degraded") && m.json["probes"][1]["status"] == "open"
+    });
+    assert_eq!(z.json["probes_used"], 4);
+    within_uncertainty(&z);
+    set(Fault::None);
+    wait_for(&rx, long, "p1 ok", |m| channel(m, 1, "ok"));
+
+    // Outside the type's range (K ends at 1372 °C).
+    set(Fault::OutOfRange(2));
+    wait_for(&rx, long, "p2 out of range", |m| {
+        channel(m, 2, "out_of_range")
+    });
+    within_uncertainty(&wait_for(&rx, long, "degraded", |m| zone(m, "degraded")));
+    set(Fault::None);
+    wait_for(&rx, long, "p2 ok", |m| channel(m, 2, "ok"));
+    wait_for(&rx, long, "zone ok", |m| zone(m, "ok"));
+
+    // One reading 300 °C high: held back as a spike, then ok again.
+    set(Fault::SpikeOnce(2, 300.0));
+    wait_for(&rx, long, "p2 spike", |m| channel(m, 2, "spike"));
+    wait_for(&rx, long, "p2 ok after the spike", |m| channel(m, 2, "ok"));
+
+    // A junction reading 40 °C high: an outlier once its jump has left the
+    // 30 s rate window.
+    set(Fault::Offset(3, 40.0));
+    wait_for(&rx, long, "p3 outlier", |m| channel(m, 3, "outlier"));
+    let z = wait_for(&rx, long, "degraded by the outlier", |m| {
+        zone(m, "degraded") && m.json["probes"][3]["status"] == "outlier"
+    });
+    within_uncertainty(&z);
+    set(Fault::None);
+    wait_for(&rx, long, "p3 ok", |m| channel(m, 3, "ok"));
+
+    // The wall heats at 0.6 °C/s; input 1 freezes at its last value.
+    {
+        let t = t0.elapsed().as_secs_f64();
+        let mut s = scene.lock().unwrap();
+        s.rise_c_per_s = 0.6;
+        s.since_s = t;
+    }
+    std::thread::sleep(Duration::from_secs(2));
+    let frozen = {
+        let s = scene.lock().unwrap();
+        (temp(1, t0.elapsed().as_secs_f64(), &s) * 100.0).round() / 100.0
+    };
+    set(Fault::Frozen(1, frozen));
+    wait_for(&rx, long, "p1 stuck", |m| channel(m, 1, "stuck"));
+    let z = wait_for(&rx, long, "degraded by the stuck probe", |m| {
+        zone(m, "degraded") && m.json["probes"][1]["status"] == "stuck"
+    });
+    within_uncertainty(&z);
+    set(Fault::None);
+    wait_for(&rx, long, "p1 moving again", |m| channel(m, 1, "ok"));
+    {
+        let t = t0.elapsed().as_secs_f64();
+        let mut s = scene.lock().unwrap();
+        s.base_s += t - s.since_s;
+        s.rise_c_per_s = 0.6;
+        s.since_s = t;
+    }
+
+    // Input 4 left out of the frames: stale after three intervals.
+    set(Fault::Silent(4));
+    wait_for(&rx, long, "p4 stale", |m| channel(m, 4, "stale"));
+    set(Fault::None);
+    wait_for(&rx, long, "p4 ok", |m| channel(m, 4, "ok"));
+
+    // SAFETY: kill(2) on our own child's pid.
+    unsafe {
+        libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);
+    }
+    assert_eq!(daemon.wait().unwrap().code(), Some(0));
+}
