@@ -173,3 +173,91 @@ fn transient_data_contradict_the_steady_model() {
     assert_eq!(v["status"], "degraded");
     assert!(v["model_note"].as_str().unwrap().contains("disagree"));
 }
+
+/// Lining wear, sized and seen against the commissioning baseline. Two
+/// layers with constant k (series thermal circuit, Incropera ch. 3): a
+/// 230 mm lining (k 1.30) and 115 mm insulating brick (k 0.17), the hot face
+/// read by a thermocouple at 1200 °C. Commissioning (the first 0.005 days)
+/// with the full lining at q = 1300 W/m²; then the lining worn to 160 mm
+/// (its face 70 mm deeper than built) at q = 1400 W/m². Expected: the
+/// remaining thickness 160 mm within its reported uncertainty, and the
+/// measured resistance (T_hot − T_shell)/q down from
+/// 0.23/1.3 + 0.115/0.17 = 0.853394 to 0.16/1.3 + 0.115/0.17 = 0.799548 m²K/W:
+/// −6.31 %.
+#[test]
+fn worn_lining_is_sized_and_seen_against_its_baseline() {
+    let mats = "[[material]]\nname = \"lining\"\nconductivity_w_mk = 1.30\ndensity_kg_m3 = 2150.0\nspecific_heat_j_kgk = 1000.0\n\
+                [[material]]\nname = \"ifb\"\nconductivity_w_mk = 0.17\ndensity_kg_m3 = 490.0\nspecific_heat_j_kgk = 1000.0\n";
+    let layers =
+        "{ material = \"lining\", thickness_mm = 230 }, { material = \"ifb\", thickness_mm = 115 }";
+    let depths = [100.0, 180.0, 260.0, 330.0];
+    let probes: Vec<(usize, f64)> = depths.iter().enumerate().map(|(i, d)| (i, *d)).collect();
+    let cfg = config(layers, mats, &probes)
+        .replace("[[zone]]", "[[channel]]\nname = \"hf\"\nsource = \"box\"\ninput = 20\ntype = \"B\"\nuncertainty_c = 2.0\n\n[[zone]]")
+        .replace("model = \"layered\"", "model = \"layered\"\nhot_face_channel = \"hf\"\nbaseline_days = 0.005\nlining_min_mm = 180");
+    // Temperature at depth d (from the face as built) for a lining of
+    // `lining_m` and flux q, hot face 1200 °C.
+    let t_at = |d: f64, lining_m: f64, q: f64| {
+        let worn = 0.23 - lining_m;
+        if d <= 0.23 {
+            1200.0 - q * (d - worn) / 1.30
+        } else {
+            1200.0 - q * lining_m / 1.30 - q * (d - 0.23) / 0.17
+        }
+    };
+    let dir = temp_dir("layered-wear");
+    let c = write(&dir, "w.toml", &cfg);
+    let mut csv = String::from("time,channel,value\n");
+    for s in 0..=150 {
+        let (lining, q) = if s < 60 {
+            (0.23, 1300.0)
+        } else {
+            (0.16, 1400.0)
+        };
+        let t = 1_800_000_000 + s * 10;
+        for (i, d) in depths.iter().enumerate() {
+            csv += &format!("{t},p{i},{:.3}\n", t_at(d / 1000.0, lining, q));
+        }
+        csv += &format!("{t},hf,1200.0\n");
+    }
+    let samples = write(&dir, "s.csv", &csv);
+    let o = run(&[
+        "analyze",
+        "--config",
+        c.to_str().unwrap(),
+        "--samples",
+        samples.to_str().unwrap(),
+    ]);
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let states: Vec<serde_json::Value> = String::from_utf8_lossy(&o.stdout)
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    let commissioning = &states[30];
+    close(
+        &commissioning["lining_remaining_mm"],
+        230.0,
+        0.01,
+        "full lining",
+    );
+    assert!(
+        commissioning["resistance_change_pct"].is_null(),
+        "still learning"
+    );
+    let last = states.last().unwrap();
+    let remaining = last["lining_remaining_mm"].as_f64().unwrap();
+    let sigma = last["uncertainty"]["lining_remaining_mm"].as_f64().unwrap();
+    assert!(
+        (remaining - 160.0).abs() <= 2.0 * sigma + 0.5,
+        "{remaining} ± {sigma} mm vs 160"
+    );
+    assert!(sigma < 20.0, "σ {sigma} mm");
+    let change = last["resistance_change_pct"].as_f64().unwrap();
+    let want = (0.799548 - 0.853394) / 0.853394 * 100.0;
+    assert!((change - want).abs() < 0.5, "{change} % vs {want:.2} %");
+}

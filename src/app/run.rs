@@ -42,6 +42,8 @@ const FLOOD_SUMMARY_EVERY: Duration = Duration::from_secs(60);
 pub const ENERGY_FILE: &str = "energy.json";
 /// File of the alarm flags in the state directory.
 pub const ALARMS_FILE: &str = "alarms.json";
+/// File of the lining baselines in the state directory.
+pub const BASELINES_FILE: &str = "baselines.json";
 
 /// Runs the daemon until `shutdown` completes; then publishes `offline` and
 /// disconnects. Returns when everything has stopped.
@@ -170,7 +172,13 @@ impl Engine {
         let totals = load_or_default::<EnergyTotals>(&settings, ENERGY_FILE, "energy totals");
         let flags =
             load_or_default::<BTreeMap<String, AlarmFlags>>(&settings, ALARMS_FILE, "alarm states");
-        let monitor = Monitor::with_alarm_flags(settings.clone(), clock.now(), &flags);
+        let mut monitor = Monitor::with_alarm_flags(settings.clone(), clock.now(), &flags);
+        let baselines = load_or_default::<BTreeMap<String, crate::monitor::lining::Baseline>>(
+            &settings,
+            BASELINES_FILE,
+            "lining baselines",
+        );
+        monitor.restore_baselines(&baselines);
         let meter = EnergyMeter::new(settings.zones.len(), settings.site.firing_start_c, totals);
         Engine {
             settings,
@@ -472,9 +480,18 @@ impl Engine {
         self.drain();
     }
 
+    /// Energy totals and lining baselines (slow-moving state), every few
+    /// minutes and at shutdown.
     fn save_energy(&self) {
         if let Err(e) = state::save(&self.settings.state_dir, ENERGY_FILE, &self.meter.totals) {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the energy totals");
+        }
+        if let Err(e) = state::save(
+            &self.settings.state_dir,
+            BASELINES_FILE,
+            &self.monitor.baselines(),
+        ) {
+            warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the lining baselines");
         }
     }
 

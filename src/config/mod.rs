@@ -75,12 +75,14 @@ pub enum ZoneQuantity {
     BalanceMismatchPct,
     StoredWM2,
     ThermalResistanceM2KW,
+    ResistanceChangePct,
+    LiningRemainingMm,
     /// `interface_c[i]`: interface `i` (0 = between the first two layers).
     InterfaceC(u8),
 }
 
 impl ZoneQuantity {
-    pub const ALL: [(ZoneQuantity, &'static str, &'static str); 11] = [
+    pub const ALL: [(ZoneQuantity, &'static str, &'static str); 13] = [
         (ZoneQuantity::HotFaceC, "hot_face_c", "°C"),
         (ZoneQuantity::ShellC, "shell_c", "°C"),
         (ZoneQuantity::FluxHotFaceWM2, "flux_hot_face_w_m2", "W/m²"),
@@ -100,6 +102,12 @@ impl ZoneQuantity {
             "thermal_resistance_m2k_w",
             "m²K/W",
         ),
+        (
+            ZoneQuantity::ResistanceChangePct,
+            "resistance_change_pct",
+            "%",
+        ),
+        (ZoneQuantity::LiningRemainingMm, "lining_remaining_mm", "mm"),
     ];
 
     /// A field name of the zone state, or `interface_c[i]`.
@@ -363,6 +371,14 @@ pub struct Zone {
     pub firing_setpoint_c: Option<f64>,
     /// Finite-volume cells per layer of the transient model.
     pub cells_per_layer: usize,
+    /// Commissioning period over which the thermal-resistance baseline is
+    /// learned (layered model), days.
+    pub baseline_days: f64,
+    /// A channel reading the hot face itself (or the kiln atmosphere at
+    /// it): with it the layered model sizes the remaining hot layer.
+    pub hot_face_channel: Option<usize>,
+    /// Built-in alarm when `lining_remaining_mm` falls below this, mm.
+    pub lining_min_mm: Option<f64>,
     /// Window of the measured-rate regression, s.
     pub rate_window_s: f64,
     pub layers: Vec<ZoneLayer>,

@@ -479,6 +479,21 @@ impl Validator<'_> {
                     });
                 }
             }
+            if let (Some(min), true) = (z.lining_min_mm, z.hot_face_channel.is_some()) {
+                out.push(AlarmConfig {
+                    name: format!("{}-lining-thin", z.name),
+                    target: zone(ZoneQuantity::LiningRemainingMm),
+                    spec: spec(AlarmKind::Low, min, 5.0, 3600.0, Priority::Medium),
+                    baseline: None,
+                    builtin: true,
+                    message: format!(
+                        "Hot-side lining of zone {} thinner than its minimum",
+                        z.name
+                    ),
+                    consequence: text("Hot spots, shell overheating, a burn-through if it goes on"),
+                    action: text("Plan a reline or repair; watch the shell temperature"),
+                });
+            }
             if let Some(ramp) = z.max_ramp_c_per_h {
                 out.push(AlarmConfig {
                     name: format!("{}-ramp", z.name),
@@ -1265,6 +1280,25 @@ impl Validator<'_> {
             .firing_setpoint_c
             .as_ref()
             .map(|f| self.finite(f, &p("firing_setpoint_c")));
+        let baseline_days = z
+            .baseline_days
+            .as_ref()
+            .map_or(7.0, |d| self.positive(d, &p("baseline_days"), "days"));
+        let hot_face_channel = z.hot_face_channel.as_ref().and_then(|c| {
+            let i = channels.iter().position(|x| x.name.as_str() == c.get_ref());
+            if i.is_none() {
+                self.problem(
+                    c.span(),
+                    p("hot_face_channel"),
+                    format!("no [[channel]] is named {:?}", c.get_ref()),
+                );
+            }
+            i
+        });
+        let lining_min_mm = z
+            .lining_min_mm
+            .as_ref()
+            .map(|m| self.positive(m, &p("lining_min_mm"), "mm"));
         let cells_per_layer = match &z.cells_per_layer {
             Some(c) if (2..=32).contains(c.get_ref()) => *c.get_ref() as usize,
             Some(c) => {
@@ -1437,6 +1471,9 @@ impl Validator<'_> {
             forecast_h,
             firing_setpoint_c,
             cells_per_layer,
+            baseline_days,
+            hot_face_channel,
+            lining_min_mm,
             rate_window_s,
             layers,
             probes,

@@ -508,6 +508,8 @@ fn zone_quantity(r: &ZoneReport, q: ZoneQuantity) -> Option<f64> {
         ZoneQuantity::BalanceMismatchPct => r.balance_mismatch_pct,
         ZoneQuantity::StoredWM2 => r.stored_w_m2,
         ZoneQuantity::ThermalResistanceM2KW => r.thermal_resistance_m2k_w,
+        ZoneQuantity::ResistanceChangePct => r.resistance_change_pct,
+        ZoneQuantity::LiningRemainingMm => r.lining_remaining_mm,
         ZoneQuantity::InterfaceC(i) => r
             .interface_c
             .as_ref()

@@ -9,6 +9,7 @@ pub mod alarm_engine;
 pub mod channel;
 pub mod command;
 pub mod energy;
+pub mod lining;
 pub mod trend;
 pub mod wall;
 pub mod zone;
@@ -230,6 +231,27 @@ impl Monitor {
             self.alarms.on_channel(p.channel, h, c, due);
         }
         Some(report)
+    }
+
+    /// Every zone's learned lining baseline, by zone name (to persist).
+    pub fn baselines(&self) -> std::collections::BTreeMap<String, lining::Baseline> {
+        self.zones
+            .iter()
+            .zip(&self.settings.zones)
+            .map(|(e, z)| (z.name.to_string(), e.baseline.clone()))
+            .collect()
+    }
+
+    /// Restores saved baselines by zone name.
+    pub fn restore_baselines(
+        &mut self,
+        saved: &std::collections::BTreeMap<String, lining::Baseline>,
+    ) {
+        for (e, z) in self.zones.iter_mut().zip(&self.settings.zones) {
+            if let Some(b) = saved.get(z.name.as_str()) {
+                e.baseline = b.clone();
+            }
+        }
     }
 
     /// Number of cycles zone `i` has run.

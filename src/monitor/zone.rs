@@ -6,11 +6,12 @@ use heapless::{HistoryBuf, Vec as HVec};
 use serde::Serialize;
 
 use super::channel::{ChannelState, Health, Reading};
+use super::lining::Baseline;
 use super::wall::Wall;
 use crate::config::{Model, NamedMaterial};
 use crate::config::{Name, Settings, Zone, MAX_PROBES};
 use crate::physics::fit::linear_slope;
-use crate::physics::layered::{ModelCheck, MAX_LAYERS};
+use crate::physics::layered::{HotFaceReading, ModelCheck, MAX_LAYERS};
 use crate::physics::profile::{heat_loss_w, ProbeSample};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
 use crate::physics::transient::{
@@ -60,6 +61,8 @@ pub struct Uncertainty {
     pub interface_c: Option<HVec<f64, MAX_LAYERS>>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub thermal_resistance_m2k_w: Option<f64>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub lining_remaining_mm: Option<f64>,
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -128,6 +131,16 @@ pub struct ZoneReport {
     /// longest forecast horizon.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub time_to_limit_h: Option<HVec<LimitReport, 9>>,
+    /// Layered model with a hot-face reading: the measured thermal
+    /// resistance (T_hot − T_shell)/q against its baseline learned over
+    /// `baseline_days` at comparable hot-face temperature, % (negative: less
+    /// insulation than at commissioning: wear, cracks, wet insulation).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub resistance_change_pct: Option<f64>,
+    /// Layered model with a hot-face reading: the hot-side layer's
+    /// remaining thickness that best explains the probes, mm.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub lining_remaining_mm: Option<f64>,
     pub probes_used: u8,
     pub uncertainty: Option<Uncertainty>,
     pub probes: HVec<ProbeReport, MAX_PROBES>,
@@ -155,6 +168,8 @@ pub struct ZoneEngine {
     /// could not be built.
     transient: Option<Result<Box<TransientEstimator>, TransientError>>,
     last_step: Option<Timestamp>,
+    /// Learned thermal-resistance baseline (layered model).
+    pub baseline: Baseline,
 }
 
 impl ZoneEngine {
@@ -193,6 +208,7 @@ impl ZoneEngine {
             diagnosis: HVec::new(),
             transient,
             last_step: None,
+            baseline: Baseline::default(),
         }
     }
 
@@ -325,6 +341,8 @@ impl ZoneEngine {
             filter_nis: None,
             forecast: None,
             time_to_limit_h: None,
+            resistance_change_pct: None,
+            lining_remaining_mm: None,
             probes_used: samples.len() as u8,
             uncertainty: None,
             probes,
@@ -380,6 +398,34 @@ impl ZoneEngine {
             report.interface_c = Some(sol.interface_c.iter().map(|&(t, _)| t).collect());
         }
         report.thermal_resistance_m2k_w = sol.resistance_m2k_w.map(|(r, _)| r);
+        // Lining condition needs a reading at the hot face: steady probes
+        // alone cannot tell a thinner lining from a hotter face (see
+        // `LayeredWall::remaining_hot_layer`). With one, the measured
+        // resistance (T_hot,measured − T_shell) / q is compared with its
+        // commissioning baseline, and the hot layer is sized.
+        let mut lining_sigma_mm = None;
+        if let (Wall::Layered(l), Some(hf)) = (&wall, zone.hot_face_channel) {
+            if let Some(reading) = channels.get(hf).and_then(|c| c.fresh(now, max_age_s)) {
+                if sol.flux_shell_w_m2.abs() > 1.0 {
+                    let r = (reading.celsius - sol.shell_c) / sol.flux_shell_w_m2;
+                    if sol.check == ModelCheck::Consistent {
+                        self.baseline
+                            .record(now, zone.baseline_days, reading.celsius, r);
+                    }
+                    report.resistance_change_pct =
+                        self.baseline
+                            .change_pct(now, zone.baseline_days, reading.celsius, r);
+                }
+                let hot = HotFaceReading {
+                    temp_c: reading.celsius,
+                    sigma_c: reading.sigma_c,
+                };
+                if let Ok(w) = l.remaining_hot_layer(&samples, hot) {
+                    report.lining_remaining_mm = Some(w.remaining_mm);
+                    lining_sigma_mm = Some(w.sigma_mm);
+                }
+            }
+        }
         let surface = shell_surface(zone, sol.shell_c);
         report.flux_surface_w_m2 = Some(surface.flux_w_m2);
         report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
@@ -394,6 +440,7 @@ impl ZoneEngine {
             interface_c: (!sol.interface_c.is_empty())
                 .then(|| sol.interface_c.iter().map(|&(_, s)| s).collect()),
             thermal_resistance_m2k_w: sol.resistance_m2k_w.map(|(_, s)| s),
+            lining_remaining_mm: lining_sigma_mm,
         });
         for p in report.probes.iter_mut() {
             let x = p.depth_mm / 1000.0;
@@ -544,6 +591,7 @@ impl ZoneEngine {
             interface_c: (!interfaces.is_empty())
                 .then(|| interfaces.iter().map(|&(_, s)| s).collect()),
             thermal_resistance_m2k_w: None,
+            lining_remaining_mm: None,
         });
         // Forecasts under the current hot-face trend, capped at the hot
         // layer's service limit and the firing set-point.
