@@ -11,19 +11,22 @@
 //! the edges (`acquire::serial`, `publish::mqtt`, `app`) own the IO.
 //!
 //! - [`physics`]: thermocouples (ITS-90), tolerances, materials, the profile
-//!   fit, the single-layer wall solution, surface heat loss.
+//!   fit, the single-layer wall solution, the steady layered wall, the
+//!   transient wall model and its Kalman estimator, surface heat loss.
 //! - [`acquire`]: line protocol v1 (sans-IO parser and encoder), the serial
 //!   edge (open, read, reopen).
 //! - [`monitor`]: per-channel signal chain and health, per-zone engine
-//!   (fit schedule, rate histories, zone reports). Driven by `handle_*`,
-//!   read by `poll_*`, every call given `now`.
+//!   (fit schedule, rate histories, diagnostics, zone reports), alarm state
+//!   machines and the alarm engine, commands, trend alerts, energy and
+//!   lining accounting. Driven by `handle_*`, read by `poll_*`, every call
+//!   given `now`.
 //! - [`publish`]: the bounded queue to the MQTT task and the MQTT edge.
 //! - [`config`]: the TOML file and its validated settings.
 //! - [`sim`]: a finite-difference wall model, the demo's firing schedule and
 //!   a pseudo-terminal pair, for the demo and the tests.
 //! - [`time`]: UTC timestamps and RFC 3339.
 //! - [`app`]: command line, start-up, signals, `run`, `demo`, `check`,
-//!   `analyze`, `tc`.
+//!   `analyze`, `tc`, the embedded broker, persistent state files.
 
 pub mod acquire;
 pub mod app;

@@ -60,5 +60,29 @@ pub fn check(path: &Path) -> Result<(), Failure> {
             );
         }
     }
+    let builtin = s.alarms.iter().filter(|a| a.builtin).count();
+    println!(
+        "  alarms    {} ({} built-in, {} configured)",
+        s.alarms.len(),
+        builtin,
+        s.alarms.len() - builtin
+    );
+    for a in &s.alarms {
+        let (zone, channel, source, quantity) =
+            crate::monitor::alarm_engine::target_names(&s, a.target);
+        let setpoint = match a.spec.kind {
+            crate::monitor::alarm::AlarmKind::Diagnostic => String::new(),
+            _ => format!(" {} {}", a.spec.setpoint, a.unit()),
+        };
+        println!(
+            "    alarm   {:<32} {:?} {}.{}{} ({:?})",
+            a.name,
+            a.spec.kind,
+            zone.or(channel).or(source).unwrap_or(""),
+            quantity,
+            setpoint,
+            a.spec.priority
+        );
+    }
     Ok(())
 }
