@@ -233,8 +233,11 @@ pub struct Source {
     pub port: String,
     pub baud: u32,
     /// Fixed cold-junction temperature for millivolt channels when a frame
-    /// carries no `cj=`.
+    /// carries no `cj=` and no cold-junction channel has a value.
     pub cj_c: Option<f64>,
+    /// A channel of this source measuring its terminals (an RTD or
+    /// thermistor sent as °C), used when a frame carries no `cj=`.
+    pub cj_channel: Option<usize>,
     /// No valid frame for this long: the source is reported silent.
     pub silence_s: f64,
 }

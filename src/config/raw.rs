@@ -96,6 +96,7 @@ pub struct RawSource {
     pub port: S<String>,
     pub baud: Option<S<i64>>,
     pub cj_c: Option<S<f64>>,
+    pub cj_channel: Option<S<String>>,
     pub silence_s: Option<S<f64>>,
 }
 

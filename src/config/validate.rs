@@ -271,7 +271,7 @@ impl Validator<'_> {
             },
         };
 
-        let sources: Vec<Source> = raw
+        let mut sources: Vec<Source> = raw
             .source
             .iter()
             .enumerate()
@@ -326,6 +326,28 @@ impl Validator<'_> {
                         channels[first].name
                     ),
                 );
+            }
+        }
+
+        // Cold-junction channels resolve once the channels are known.
+        for (i, rs) in raw.source.iter().enumerate() {
+            let Some(c) = &rs.get_ref().cj_channel else {
+                continue;
+            };
+            match channels.iter().position(|x| x.name.as_str() == c.get_ref()) {
+                Some(ci) if channels[ci].source == i && channels[ci].signal == Signal::Celsius => {
+                    sources[i].cj_channel = Some(ci);
+                }
+                Some(_) => self.problem(
+                    c.span(),
+                    format!("source[{i}].cj_channel"),
+                    "the cold-junction channel must be a celsius channel of this same source",
+                ),
+                None => self.problem(
+                    c.span(),
+                    format!("source[{i}].cj_channel"),
+                    format!("no [[channel]] is named {:?}", c.get_ref()),
+                ),
             }
         }
 
@@ -991,6 +1013,7 @@ impl Validator<'_> {
             port: s.port.get_ref().clone(),
             baud,
             cj_c,
+            cj_channel: None,
             silence_s,
         }
     }

@@ -135,10 +135,29 @@ impl Monitor {
     }
 
     /// A line-protocol frame from source `source`, received at `now`.
+    /// The cold junction: the frame's `cj=`, else the source's
+    /// cold-junction channel (its value in this frame, or its latest valid
+    /// reading no older than the source's silence limit), else the
+    /// source's fixed `cj_c`.
     pub fn handle_frame(&mut self, source: usize, frame: &Frame, now: Timestamp) {
-        let cj = frame.cj_c.or(self.settings.sources[source].cj_c);
+        let src = &self.settings.sources[source];
+        let cj_channel = src.cj_channel;
+        let mut cj = frame.cj_c;
+        if let Some(cc) = cj_channel {
+            let input = self.settings.channels[cc].input;
+            if let Some(&(_, v)) = frame.values.iter().find(|(i, _)| *i == input) {
+                self.handle_value(cc, v, None, now);
+            }
+            let limit = self.settings.sources[source].silence_s;
+            cj = cj.or(self.channels[cc].fresh(now, limit).map(|r| r.celsius));
+        }
+        let cj = cj.or(self.settings.sources[source].cj_c);
         for &(input, value) in &frame.values {
-            match self.settings.channel_for(source, input) {
+            let channel = self.settings.channel_for(source, input);
+            if channel.is_some() && channel == cj_channel {
+                continue; // handled first, above
+            }
+            match channel {
                 Some(ch) => self.handle_value(ch, value, cj, now),
                 None => {
                     self.unknown_inputs += 1;
