@@ -118,11 +118,17 @@ pub struct RawChannel {
     pub spike_c_per_min: Option<S<f64>>,
 }
 
-/// A number, or a table of `[t_c, value]` points.
+/// A number, a table of `[t_c, value]` points, or a polynomial
+/// `{ polynomial = [a0, a1, …], from_c, to_c }` in °C.
 #[derive(Debug)]
 pub enum RawProperty {
     Constant(f64),
     Table(Vec<[f64; 2]>),
+    Polynomial {
+        coefficients: Vec<f64>,
+        from_c: f64,
+        to_c: f64,
+    },
 }
 
 impl<'de> Deserialize<'de> for RawProperty {
@@ -132,7 +138,7 @@ impl<'de> Deserialize<'de> for RawProperty {
             type Value = RawProperty;
             fn expecting(&self, f: &mut std::fmt::Formatter) -> std::fmt::Result {
                 f.write_str(
-                    "a number or a table of [t_c, value] pairs, e.g. [[200.0, 1.1], [1000.0, 1.3]]",
+                    "a number, a table of [t_c, value] pairs (e.g. [[200.0, 1.1], [1000.0, 1.3]]), or { polynomial = [a0, a1, a2], from_c = 20.0, to_c = 1400.0 }",
                 )
             }
             fn visit_f64<E: serde::de::Error>(self, v: f64) -> Result<RawProperty, E> {
@@ -140,6 +146,36 @@ impl<'de> Deserialize<'de> for RawProperty {
             }
             fn visit_i64<E: serde::de::Error>(self, v: i64) -> Result<RawProperty, E> {
                 Ok(RawProperty::Constant(v as f64))
+            }
+            fn visit_map<M: serde::de::MapAccess<'de>>(
+                self,
+                mut map: M,
+            ) -> Result<RawProperty, M::Error> {
+                use serde::de::Error;
+                let (mut coefficients, mut from_c, mut to_c) = (None, None, None);
+                while let Some(key) = map.next_key::<String>()? {
+                    match key.as_str() {
+                        "polynomial" => coefficients = Some(map.next_value::<Vec<f64>>()?),
+                        "from_c" => from_c = Some(map.next_value::<f64>()?),
+                        "to_c" => to_c = Some(map.next_value::<f64>()?),
+                        other => {
+                            return Err(M::Error::unknown_field(
+                                other,
+                                &["polynomial", "from_c", "to_c"],
+                            ))
+                        }
+                    }
+                }
+                match (coefficients, from_c, to_c) {
+                    (Some(coefficients), Some(from_c), Some(to_c)) => Ok(RawProperty::Polynomial {
+                        coefficients,
+                        from_c,
+                        to_c,
+                    }),
+                    _ => Err(M::Error::custom(
+                        "a polynomial needs `polynomial = [a0, a1, ...]`, `from_c` and `to_c`",
+                    )),
+                }
             }
             fn visit_seq<A: serde::de::SeqAccess<'de>>(
                 self,

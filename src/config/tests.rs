@@ -237,3 +237,40 @@ fn alarms_are_validated_and_built_in_ones_tuned() {
         assert!(p.iter().any(|x| x.path == path && x.line.is_some()), "{bad}: {p:#?}");
     }
 }
+
+/// The shipped material classes load, with their published values
+/// (config/materials.toml: VDI Heat Atlas via `ht.insulation`; EN 1993-1-2
+/// for steel, k = 54 − 0.0333 θ: 47.34 W/mK at 200 °C).
+#[test]
+fn shipped_materials_load() {
+    let materials = include_str!("../../config/materials.toml");
+    let text = format!("{EXAMPLE}\n{materials}");
+    let s = parse(&text, "t", None).unwrap();
+    let m = |n: &str| {
+        &s.materials
+            .iter()
+            .find(|m| m.name.as_str() == n)
+            .unwrap()
+            .material
+    };
+    assert_eq!(s.materials.len(), 8);
+    assert!((m("dense-fireclay").conductivity_w_mk.at(800.0) - 1.135).abs() < 1e-9);
+    assert!((m("insulating-firebrick-1260").conductivity_w_mk.at(400.0) - 0.14).abs() < 1e-12);
+    let steel = &m("mild-steel").conductivity_w_mk;
+    assert!(
+        (steel.at(200.0) - (54.0 - 0.0333 * 200.0)).abs() < 1e-9,
+        "{}",
+        steel.at(200.0)
+    );
+    assert!(
+        (steel.at(555.5) - (54.0 - 0.0333 * 555.5)).abs() < 1e-9,
+        "linear: the table is exact"
+    );
+    // A polynomial with an unknown key or an empty range is refused.
+    let bad = text.replace("from_c = 20.0, to_c = 800.0", "from_c = 800.0, to_c = 20.0");
+    assert!(problems(&bad)
+        .iter()
+        .any(|p| p.path.ends_with("conductivity_w_mk")));
+    let bad = text.replace("from_c = 20.0, to_c = 800.0", "from = 20.0, to_c = 800.0");
+    assert!(!problems(&bad).is_empty());
+}

@@ -1152,6 +1152,37 @@ impl Validator<'_> {
                 let pts: Vec<(f64, f64)> = points.iter().map(|p| (p[0], p[1])).collect();
                 Property::table(what, &pts)
             }
+            RawProperty::Polynomial {
+                coefficients,
+                from_c,
+                to_c,
+            } => {
+                if coefficients.is_empty()
+                    || coefficients.len() > 5
+                    || from_c >= to_c
+                    || !from_c.is_finite()
+                    || !to_c.is_finite()
+                {
+                    self.problem(
+                        s.span(),
+                        path,
+                        "a polynomial needs 1 to 5 coefficients and from_c < to_c",
+                    );
+                    return Property::Constant(1.0);
+                }
+                // Sampled into the largest table: every model then handles
+                // it exactly as a table (piecewise linear between 16 points;
+                // a quadratic term a2 is off by at most a2·h²/8 between
+                // points, h = (to_c − from_c)/15; clamped outside the range).
+                let n = crate::physics::material::MAX_TABLE_POINTS;
+                let pts: Vec<(f64, f64)> = (0..n)
+                    .map(|i| {
+                        let t = from_c + (to_c - from_c) * i as f64 / (n - 1) as f64;
+                        (t, coefficients.iter().rev().fold(0.0, |acc, a| acc * t + a))
+                    })
+                    .collect();
+                Property::table(what, &pts)
+            }
         };
         match result {
             Ok(p) => p,
