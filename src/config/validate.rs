@@ -501,6 +501,18 @@ impl Validator<'_> {
                     });
                 }
             }
+            if z.model == Model::Layered && z.hot_face_channel.is_some() {
+                out.push(AlarmConfig {
+                    name: format!("{}-resistance-fall", z.name),
+                    target: zone(ZoneQuantity::ResistanceChangePct),
+                    spec: spec(AlarmKind::Low, -10.0, 2.0, 3600.0, Priority::Low),
+                    baseline: None,
+                    builtin: true,
+                    message: format!("Thermal resistance of zone {} 10 % below its commissioning baseline", z.name),
+                    consequence: text("The wall insulates less: wear, cracks or wet insulation; a hotter shell follows"),
+                    action: text("Compare with the shell temperature and plan an inspection"),
+                });
+            }
             if let (Some(min), true) = (z.lining_min_mm, z.hot_face_channel.is_some()) {
                 out.push(AlarmConfig {
                     name: format!("{}-lining-thin", z.name),
