@@ -3,9 +3,10 @@
 //!
 //! Samples CSV: header `time,channel,value`; `time` RFC 3339 or epoch
 //! seconds; `value` in the channel's signal unit (°C, or mV), or `open`.
-//! A row whose channel is `<source>.cj` gives that source's cold-junction
-//! temperature (°C) for the millivolt channels that follow; otherwise the
-//! source's `cj_c` applies. Rows must be in time order.
+//! A row whose channel is `<source>.cj`, or the source's `cj_channel`,
+//! gives that source's cold-junction temperature (°C) for the millivolt
+//! channels that follow; otherwise the source's `cj_c` applies. Rows must be
+//! in time order.
 
 use std::collections::HashMap;
 use std::io::{BufRead, BufReader, BufWriter, Write};
@@ -170,6 +171,13 @@ pub fn replay(
         };
         stats.rows += 1;
         mon.handle_value(idx, value, cj[c.source], time);
+        // A source's cold-junction channel sets its junction for the
+        // millivolt rows after it (as in the daemon).
+        if settings.sources[c.source].cj_channel == Some(idx) {
+            if let Value::Reading { value, .. } = value {
+                cj[c.source] = Some(value);
+            }
+        }
     }
     if let (Some(mon), Some(t)) = (monitor.as_mut(), last) {
         while let Some(r) = mon.poll_zone(t) {
