@@ -306,6 +306,9 @@ impl Calibration {
 pub struct NamedMaterial {
     pub name: Name,
     pub material: Material,
+    /// Surface emissivity, the default of a zone whose shell (last layer)
+    /// is this material.
+    pub emissivity: Option<f64>,
 }
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]

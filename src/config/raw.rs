@@ -200,6 +200,7 @@ pub struct RawMaterial {
     pub density_kg_m3: S<f64>,
     pub specific_heat_j_kgk: S<RawProperty>,
     pub max_service_c: Option<S<f64>>,
+    pub emissivity: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]

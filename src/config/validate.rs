@@ -1223,6 +1223,17 @@ impl Validator<'_> {
             .max_service_c
             .as_ref()
             .map(|v| self.finite(v, &p("max_service_c")));
+        let emissivity = m.emissivity.as_ref().map(|e| {
+            let v = *e.get_ref();
+            if !(0.0..=1.0).contains(&v) {
+                self.problem(
+                    e.span(),
+                    p("emissivity"),
+                    format!("must be between 0 and 1, got {v}"),
+                );
+            }
+            v
+        });
         NamedMaterial {
             name,
             material: Material {
@@ -1231,6 +1242,7 @@ impl Validator<'_> {
                 specific_heat_j_kgk,
                 max_service_c,
             },
+            emissivity,
         }
     }
 
@@ -1291,7 +1303,19 @@ impl Validator<'_> {
                 }
                 v
             }
-            None => 0.8,
+            // The shell material's emissivity, else 0.8 (oxidised steel is
+            // 0.74 to 0.82 in handbook emissivity tables).
+            None => z
+                .layers
+                .get_ref()
+                .last()
+                .and_then(|l| {
+                    materials
+                        .iter()
+                        .find(|m| m.name.as_str() == l.get_ref().material.get_ref())
+                })
+                .and_then(|m| m.emissivity)
+                .unwrap_or(0.8),
         };
         let ambient_c = z
             .ambient_c
