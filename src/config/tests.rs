@@ -266,6 +266,12 @@ fn shipped_materials_load() {
         (steel.at(555.5) - (54.0 - 0.0333 * 555.5)).abs() < 1e-9,
         "linear: the table is exact"
     );
+    let steel = s
+        .materials
+        .iter()
+        .find(|m| m.name.as_str() == "mild-steel")
+        .unwrap();
+    assert_eq!(steel.emissivity, Some(0.8));
     // A polynomial with an unknown key or an empty range is refused.
     let bad = text.replace("from_c = 20.0, to_c = 800.0", "from_c = 800.0, to_c = 20.0");
     assert!(problems(&bad)
