@@ -26,21 +26,7 @@ fn analyze(cfg: &str, temps: &[f64], name: &str) -> serde_json::Value {
             csv += &format!("{},p{i},{:.3}\n", 1_800_000_000 + s * 10, t);
         }
     }
-    let samples = write(&dir, "s.csv", &csv);
-    let o = run(&[
-        "analyze",
-        "--config",
-        c.to_str().unwrap(),
-        "--samples",
-        samples.to_str().unwrap(),
-    ]);
-    assert_eq!(
-        o.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    let out = String::from_utf8_lossy(&o.stdout).into_owned();
+    let out = analyze_csv(&dir, &c, &csv);
     serde_json::from_str(out.lines().last().expect("a zone state")).unwrap()
 }
 
@@ -220,21 +206,7 @@ fn worn_lining_is_sized_and_seen_against_its_baseline() {
         }
         csv += &format!("{t},hf,1200.0\n");
     }
-    let samples = write(&dir, "s.csv", &csv);
-    let o = run(&[
-        "analyze",
-        "--config",
-        c.to_str().unwrap(),
-        "--samples",
-        samples.to_str().unwrap(),
-    ]);
-    assert_eq!(
-        o.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    let states: Vec<serde_json::Value> = String::from_utf8_lossy(&o.stdout)
+    let states: Vec<serde_json::Value> = analyze_csv(&dir, &c, &csv)
         .lines()
         .map(|l| serde_json::from_str(l).unwrap())
         .collect();

@@ -121,21 +121,7 @@ fn transient_model_estimates_an_unmeasured_hot_face() {
     let (csv, truth) = simulate(12);
     let dir = temp_dir("transient");
     let cfg = write(&dir, "t.toml", &config());
-    let samples = write(&dir, "s.csv", &csv);
-    let o = run(&[
-        "analyze",
-        "--config",
-        cfg.to_str().unwrap(),
-        "--samples",
-        samples.to_str().unwrap(),
-    ]);
-    assert_eq!(
-        o.status.code(),
-        Some(0),
-        "{}",
-        String::from_utf8_lossy(&o.stderr)
-    );
-    let out = String::from_utf8_lossy(&o.stdout).into_owned();
+    let out = analyze_csv(&dir, &cfg, &csv);
     let states: Vec<serde_json::Value> = out
         .lines()
         .map(|l| serde_json::from_str(l).unwrap())

@@ -90,3 +90,23 @@ specific_heat_j_kgk = 1000.0
     s += "]\n";
     s
 }
+
+/// Runs `wallflux analyze` on a config file and samples text; returns the
+/// JSON lines it printed (exit 0 asserted, stderr shown on failure).
+pub fn analyze_csv(dir: &std::path::Path, config: &std::path::Path, csv: &str) -> String {
+    let samples = write(dir, "samples.csv", csv);
+    let o = run(&[
+        "analyze",
+        "--config",
+        config.to_str().unwrap(),
+        "--samples",
+        samples.to_str().unwrap(),
+    ]);
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    String::from_utf8_lossy(&o.stdout).into_owned()
+}
