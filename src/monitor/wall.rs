@@ -154,10 +154,9 @@ impl<'a> Wall<'a> {
     /// The fitted temperature at `depth_m` and its standard uncertainty.
     pub fn fitted(&self, fit: &Fit, depth_m: f64) -> Option<(f64, f64)> {
         match (self, &fit.solution) {
-            (Wall::Quadratic(_), Solution::Quadratic(s)) => Some((
-                s.fitted_c(depth_m),
-                s.fit.value_variance(depth_m).max(0.0).sqrt(),
-            )),
+            (Wall::Quadratic(q), Solution::Quadratic(s)) => {
+                Some((q.fitted_c(s, depth_m)?, q.fitted_sigma_c(s, depth_m)?))
+            }
             (Wall::Layered(l), Solution::Layered(s)) => {
                 let t = l.temperature_at(s.hot_face_c, s.flux_w_m2, depth_m).ok()?;
                 let sd = l.sigma_temperature_at(s, depth_m).ok()?;

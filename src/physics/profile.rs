@@ -7,10 +7,12 @@
 //! # Model
 //!
 //! `x` runs from the hot face (`x = 0`) to the shell (`x = L`), in metres.
-//! The probe readings are fitted with `T(x) ≈ c0 + c1 x + c2 x²` (weights
-//! `1/σ²`, [`crate::physics::fit`]); the face temperatures are the fit
-//! extrapolated to `x = 0` and `x = L`. Heat flux is Fourier's law,
-//! `q(x) = −k(T(x)) dT/dx`, positive toward the shell. The steady-state
+//! The readings are turned into the Kirchhoff potential
+//! `Θ(T) = ∫_{0 °C}^{T} k dT` and fitted with `Θ(x) ≈ c0 + c1 x + c2 x²`
+//! (weights `1/σ_Θ²`, `σ_Θ = k σ_T`; [`crate::physics::fit`]); the face
+//! temperatures are the fit extrapolated to `x = 0` and `x = L` and turned
+//! back into °C. Heat flux is Fourier's law, `q(x) = −k dT/dx = −dΘ/dx`,
+//! positive toward the shell. The steady-state
 //! energy balance of the slab, `dq/dx = q‴`, averaged over the wall gives the
 //! equivalent volumetric source `q‴ = (q(L) − q(0)) / L` (negative: a sink,
 //! e.g. moisture being driven off, or heat still being stored during a
@@ -19,24 +21,18 @@
 //!
 //! # Temperature-dependent conductivity
 //!
-//! With `k = k(T)` the true steady profile is **not** a polynomial in `T`:
-//! without a source it is the Kirchhoff potential `Θ(T) = ∫k dT` that is
-//! linear in `x`, so `T(x)` bends (for `k` rising with `T` it is flatter at
-//! the hot face). The quadratic model still fits a quadratic in `T` and takes
-//! `k` at the local fitted temperature at each face. For a lining whose `k`
-//! changes by tens of percent across the wall this biases both face fluxes a
-//! few percent low (about 3 % for `k = 0.9 (1 + 5e-4 T)` from 1200 to 300 °C;
-//! see the tests) and shows a spurious small source. The `layered` model
-//! solves `k(T)` exactly through the Kirchhoff transform; use it where `k`
-//! varies strongly.
+//! With `k = k(T)` the steady profile is not a polynomial in `T`: it bends
+//! (for `k` rising with `T`, flatter at the hot face). The Kirchhoff
+//! potential straightens it: `d/dx(k dT/dx) = Θ''`, so a homogeneous slab
+//! with a uniform source has `Θ'' = −q‴` and Θ is exactly a quadratic in
+//! `x` (a line without source), whatever `k(T)` (Incropera §3.2, variable
+//! conductivity). Fitting Θ makes the model exact for that whole family,
+//! where fitting `T` and taking `k` at each face read about 3 % low for
+//! `k = 0.9 (1 + 5e-4 T)` from 1200 to 300 °C (see the tests).
 //!
-//! With only two distinct depths the fit is a straight line, which has one
-//! gradient: the model then reads the wall as steady without a source and
-//! reports one flux through it, `q = −k_m dT/dx` with the Kirchhoff mean
-//! `k_m = ∫k dT / ΔT` between the fitted temperatures at the shallowest and
-//! deepest probe. That is exact for a steady slab without source over the
-//! probed span (Incropera §3.2, variable conductivity), where `k` at each
-//! face would instead report a large spurious source.
+//! With only two distinct depths the fit is a straight line: one flux
+//! through the wall and no source (exact for a steady slab without source
+//! over the probed span).
 //!
 //! # Uncertainties
 //!
@@ -48,6 +44,9 @@
 
 use crate::physics::fit::{fit_points, FitError, PolyFit};
 use crate::physics::material::Material;
+
+/// Reference temperature of the Kirchhoff potential Θ, °C.
+pub const THETA_REF_C: f64 = 0.0;
 
 /// Depths closer than this count as one depth when choosing the degree, m.
 pub const DEPTH_TOLERANCE_M: f64 = 1e-6;
@@ -91,7 +90,9 @@ pub struct WallSolution {
     pub source_w_m3: f64,
     /// Unweighted RMS residual of the fit, °C.
     pub fit_rms_c: f64,
-    /// The fitted profile, `x` in metres from the hot face, `T` in °C.
+    /// The fitted Kirchhoff potential `Θ(x) = ∫_{0 °C}^{T(x)} k dT`, W/m,
+    /// `x` in metres from the hot face ([`QuadraticWall::fitted_c`] turns
+    /// it back into °C).
     pub fit: PolyFit,
     /// Standard uncertainty of `hot_face_c`, °C.
     pub sigma_hot_face_c: f64,
@@ -108,11 +109,6 @@ pub struct WallSolution {
 }
 
 impl WallSolution {
-    /// Fitted temperature at `depth_m` below the hot face, °C.
-    pub fn fitted_c(&self, depth_m: f64) -> f64 {
-        self.fit.value(depth_m)
-    }
-
     /// Heat leaving the zone through the shell, W (see [`heat_loss_w`]).
     pub fn heat_loss_w(&self, area_m2: f64) -> f64 {
         heat_loss_w(self.flux_shell_w_m2, area_m2)
@@ -175,7 +171,15 @@ impl QuadraticWall<'_> {
             });
         }
 
-        let points = samples.iter().map(|s| (s.depth_m, s.temp_c, s.sigma_c));
+        // Fit in the Kirchhoff potential Θ(T) = ∫_{0 °C}^{T} k dT: for a
+        // homogeneous slab with k(T) and a uniform source, k T' = Θ', so
+        // Θ'' = −q‴ and Θ is exactly a quadratic in x (a line without a
+        // source). σ_Θ = k(T) σ_T to first order.
+        let k = &self.material.conductivity_w_mk;
+        let theta = |t: f64| k.integral(THETA_REF_C, t);
+        let points = samples
+            .iter()
+            .map(|s| (s.depth_m, theta(s.temp_c), k.at(s.temp_c) * s.sigma_c));
         let fit = if distinct >= 3 {
             match fit_points(points.clone(), 2) {
                 Err(FitError::Singular) => fit_points(points, 1)?,
@@ -185,37 +189,32 @@ impl QuadraticWall<'_> {
             fit_points(points, 1)?
         };
 
-        let k = &self.material.conductivity_w_mk;
-        let hot_face_c = fit.value(0.0);
-        let shell_c = fit.value(l);
-        let sd_slope_0 = fit.slope_variance(0.0).sqrt();
-        let sd_slope_l = fit.slope_variance(l).sqrt();
-
-        let (q0, ql, source, sd_q0, sd_ql, sd_source) = if fit.degree >= 2 {
-            // Fourier's law at each face with k at the local temperature.
-            let (k0, kl) = (k.at(hot_face_c), k.at(shell_c));
-            let q0 = -k0 * fit.slope(0.0);
-            let ql = -kl * fit.slope(l);
-            // Var((q(L) − q(0))/L) with q = −k T': the two slopes are
-            // correlated through the shared coefficients.
-            let var_diff = kl * kl * fit.slope_variance(l) + k0 * k0 * fit.slope_variance(0.0)
-                - 2.0 * k0 * kl * fit.slope_covariance(0.0, l);
-            let sd_source = var_diff.max(0.0).sqrt() / l;
-            (
-                q0,
-                ql,
-                (ql - q0) / l,
-                k0 * sd_slope_0,
-                kl * sd_slope_l,
-                sd_source,
-            )
-        } else {
-            // One gradient: the steady, source-free reading with the
-            // Kirchhoff mean conductivity over the probed span.
-            let k_m = k.mean_between(fit.value(shallowest_m), fit.value(deepest_m));
-            let q = -k_m * fit.slope(0.0);
-            (q, q, 0.0, k_m * sd_slope_0, k_m * sd_slope_l, 0.0)
+        let to_t = |th: f64| {
+            k.inverse_integral(THETA_REF_C, th)
+                .ok_or(FitError::NonFinite)
         };
+        let hot_face_c = to_t(fit.value(0.0))?;
+        let shell_c = to_t(fit.value(l))?;
+        // Fourier's law, q = −k dT/dx = −dΘ/dx: the slope of the fit is the
+        // flux itself, with no conductivity to pick at the faces.
+        let q0 = -fit.slope(0.0);
+        let ql = -fit.slope(l);
+        let sd_q0 = fit.slope_variance(0.0).max(0.0).sqrt();
+        let sd_ql = fit.slope_variance(l).max(0.0).sqrt();
+        let (source, sd_source) = if fit.degree >= 2 {
+            // Var(q(L) − q(0)): the two slopes share coefficients.
+            let var_diff = fit.slope_variance(l) + fit.slope_variance(0.0)
+                - 2.0 * fit.slope_covariance(0.0, l);
+            ((ql - q0) / l, var_diff.max(0.0).sqrt() / l)
+        } else {
+            (0.0, 0.0)
+        };
+        let mut sq = 0.0;
+        for s in samples {
+            let r = s.temp_c - to_t(fit.value(s.depth_m))?;
+            sq += r * r;
+        }
+        let fit_rms_c = (sq / samples.len() as f64).sqrt();
 
         let solution = WallSolution {
             degree: fit.degree,
@@ -224,10 +223,10 @@ impl QuadraticWall<'_> {
             flux_hot_face_w_m2: q0,
             flux_shell_w_m2: ql,
             source_w_m3: source,
-            fit_rms_c: fit.rms,
+            fit_rms_c,
             fit,
-            sigma_hot_face_c: fit.value_variance(0.0).sqrt(),
-            sigma_shell_c: fit.value_variance(l).sqrt(),
+            sigma_hot_face_c: fit.value_variance(0.0).max(0.0).sqrt() / k.at(hot_face_c),
+            sigma_shell_c: fit.value_variance(l).max(0.0).sqrt() / k.at(shell_c),
             sigma_flux_hot_face_w_m2: sd_q0,
             sigma_flux_shell_w_m2: sd_ql,
             sigma_source_w_m3: sd_source,
@@ -255,17 +254,15 @@ impl QuadraticWall<'_> {
 
     /// The heat-equation rate at `depth_m`, °C/s: from
     /// `ρ c_p ∂T/∂t = ∂/∂x (k ∂T/∂x)` (1-D conduction without source,
-    /// Incropera ch. 2, the heat diffusion equation),
+    /// Incropera ch. 2, the heat diffusion equation) and `k ∂T/∂x = ∂Θ/∂x`,
     ///
-    /// `∂T/∂t = (k T'' + (dk/dT) T'²) / (ρ c_p)`,
+    /// `∂T/∂t = Θ'' / (ρ c_p)`,
     ///
-    /// evaluated on the fit at `depth_m` with `k`, `dk/dT` and `ρ c_p` at the
-    /// local fitted temperature. The `dk/dT` term matters: on a steady wall
-    /// with `k(T)` the profile bends (`T'' ≠ 0`) while the rate is zero, and
-    /// `α T''` alone would report a false cooling. Because the quadratic is
-    /// only an approximation of that bent profile, the pointwise rate near
-    /// the faces can still be off; its wall average equals
-    /// `−source_w_m3 / (ρ c_p)` for constant `ρ c_p` (the balance).
+    /// with `ρ c_p` at the local fitted temperature. On a steady wall with
+    /// `k(T)` the temperature profile bends while Θ stays straight, so the
+    /// rate is zero, as it must be; `α T''` would report a false cooling.
+    /// Its value is the same everywhere (Θ is a quadratic): the wall's
+    /// equivalent source read as a heating rate, `−source_w_m3 / (ρ c_p)`.
     ///
     /// `None` at degree 1 (a straight line carries no curvature, so the model
     /// cannot tell a transient) or if the result is not finite (e.g. a
@@ -274,12 +271,25 @@ impl QuadraticWall<'_> {
         if sol.fit.degree < 2 {
             return None;
         }
-        let t_c = sol.fit.value(depth_m);
-        let slope = sol.fit.slope(depth_m);
-        let k = &self.material.conductivity_w_mk;
-        let div_k_grad = k.at(t_c) * sol.fit.curvature() + k.slope_at(t_c) * slope * slope;
-        let rate = div_k_grad / self.material.heat_capacity_j_m3k(t_c);
+        let t_c = self.fitted_c(sol, depth_m)?;
+        let rate = sol.fit.curvature() / self.material.heat_capacity_j_m3k(t_c);
         rate.is_finite().then_some(rate)
+    }
+
+    /// Fitted temperature at `depth_m` below the hot face, °C (the fitted
+    /// potential turned back into a temperature); None if out of reach.
+    pub fn fitted_c(&self, sol: &WallSolution, depth_m: f64) -> Option<f64> {
+        self.material
+            .conductivity_w_mk
+            .inverse_integral(THETA_REF_C, sol.fit.value(depth_m))
+    }
+
+    /// Standard uncertainty of [`Self::fitted_c`], °C: σ_Θ / k(T).
+    pub fn fitted_sigma_c(&self, sol: &WallSolution, depth_m: f64) -> Option<f64> {
+        let t = self.fitted_c(sol, depth_m)?;
+        Some(
+            sol.fit.value_variance(depth_m).max(0.0).sqrt() / self.material.conductivity_w_mk.at(t),
+        )
     }
 }
 
@@ -382,7 +392,7 @@ mod tests {
                 sol.source_w_m3
             );
             assert!(sol.fit_rms_c < 1e-9);
-            assert!(close(sol.fitted_c(0.115), 750.0, 1e-12));
+            assert!(close(wall.fitted_c(&sol, 0.115).unwrap(), 750.0, 1e-12));
         }
     }
 
@@ -417,9 +427,9 @@ mod tests {
             assert!(close(sol.hot_face_c, ts, 1e-12) && close(sol.shell_c, ts, 1e-12));
             let t_max = ts + q3 * w * w / (8.0 * k);
             assert!(
-                close(sol.fitted_c(w / 2.0), t_max, 1e-12),
+                close(wall.fitted_c(&sol, w / 2.0).unwrap(), t_max, 1e-12),
                 "Tmax {}",
-                sol.fitted_c(w / 2.0)
+                wall.fitted_c(&sol, w / 2.0).unwrap()
             );
         }
     }
@@ -454,36 +464,43 @@ mod tests {
     }
 
     /// The quadratic model on the exact k(T) profile (five equally spaced
-    /// probes, faces included). The profile is not a quadratic: its cubic
-    /// part, which the fit cannot represent, makes the fitted end slopes too
-    /// shallow at both faces, so both fluxes come out low. numpy 2.4.6
-    /// (`numpy.polyfit` on the same samples, then −k(T)T' at each face) gives
-    /// q(0) = 4703.0876 and q(L) = 4704.4909 W/m², 2.88 % and 2.85 % below
-    /// 4842.39: not the 1–2 % one might hope. The honest bound asserted is
-    /// 3.5 % low at most, and low (not high), plus agreement with numpy.
-    /// The spurious source is (q(L) − q(0))/L ≈ 6.1 W/m³, tiny next to q/L.
+    /// probes, faces included): fitting the Kirchhoff potential, which is a
+    /// straight line for this steady slab, recovers the closed form exactly
+    /// (q = 4842.39 W/m², faces 1200 and 300 °C, no source). For contrast, a
+    /// quadratic fitted to T itself with −k(T)T' at each face (the naive
+    /// reading) is 2.88 % low at the hot face: numpy 2.4.6 (`numpy.polyfit`
+    /// on the same samples) gives q(0) = 4703.0876 W/m², reproduced here.
     #[test]
-    fn linear_k_quadratic_model_is_a_few_percent_low() {
+    fn linear_k_quadratic_model_is_exact() {
         let material = linear_k_material();
         let wall = QuadraticWall {
             thickness_m: 0.23,
             material: &material,
         };
         let depths = [0.0, 0.0575, 0.115, 0.1725, 0.23];
-        let sol = wall
-            .solve(&samples_of(&depths, linear_k_profile, 1.0))
-            .unwrap();
+        let samples = samples_of(&depths, linear_k_profile, 1.0);
+        let sol = wall.solve(&samples).unwrap();
         let q = 4842.391304347826; // k0 (Θ1 − Θ2) / L, as above
-        for flux in [sol.flux_hot_face_w_m2, sol.flux_shell_w_m2] {
-            let rel = flux / q - 1.0;
-            assert!((-0.035..0.0).contains(&rel), "relative error {rel}");
-        }
-        assert!(close(sol.flux_hot_face_w_m2, 4703.087607426539, 1e-8));
-        assert!(close(sol.flux_shell_w_m2, 4704.490893854016, 1e-8));
-        assert!(close(sol.source_w_m3, 6.1012453368557145, 1e-5));
-        // Extrapolated faces: numpy 1199.1297 and 300.9219 °C.
-        assert!((sol.hot_face_c - 1199.1296735063609).abs() < 1e-8);
-        assert!((sol.shell_c - 300.9219216954576).abs() < 1e-8);
+        assert!(
+            close(sol.flux_hot_face_w_m2, q, 1e-9),
+            "{}",
+            sol.flux_hot_face_w_m2
+        );
+        assert!(
+            close(sol.flux_shell_w_m2, q, 1e-9),
+            "{}",
+            sol.flux_shell_w_m2
+        );
+        assert!(sol.source_w_m3.abs() < 1e-6, "{}", sol.source_w_m3);
+        assert!((sol.hot_face_c - 1200.0).abs() < 1e-8);
+        assert!((sol.shell_c - 300.0).abs() < 1e-8);
+        assert!((wall.fitted_c(&sol, 0.115).unwrap() - 786.5749586185547).abs() < 1e-8);
+        assert!(sol.fit_rms_c < 1e-9);
+        // The naive T-space reading, for the record.
+        let naive =
+            fit_points(samples.iter().map(|s| (s.depth_m, s.temp_c, s.sigma_c)), 2).unwrap();
+        let q0_naive = -material.conductivity_w_mk.at(naive.value(0.0)) * naive.slope(0.0);
+        assert!(close(q0_naive, 4703.087607426539, 1e-8), "{q0_naive}");
     }
 
     /// With two probes the line's single gradient is read with the Kirchhoff
@@ -536,16 +553,12 @@ mod tests {
         }
     }
 
-    /// The steady k(T) wall has ∂T/∂t = 0 although T'' ≠ 0. With the dk/dT
-    /// term the model rate at mid-wall is near zero (numpy on the same fit:
-    /// 1.4 % of the α T'' term alone), and its wall average is exactly
-    /// −source/(ρc_p): ∫₀ᴸ ∂/∂x(k T') dx = k T'|₀ᴸ = −(q(L) − q(0))
-    /// (fundamental theorem of calculus). With k linear in T and T quadratic,
-    /// (kT')' is a quadratic in x, so Simpson's rule integrates it exactly.
-    /// Near the faces the quadratic's error shows (numpy: 40 % and 62 % of the
-    /// α T'' term), which is why only mid-wall and the average are asserted.
+    /// The steady k(T) wall has ∂T/∂t = 0 although T'' ≠ 0: the model rate
+    /// (Θ''/ρc_p) is zero, while α T'' alone (k at the local temperature
+    /// times the curvature of the temperature profile, here the closed
+    /// form's) would report a cooling of about 0.5 °C/h at mid-wall.
     #[test]
-    fn model_rate_of_a_steady_k_of_t_wall_is_near_zero() {
+    fn model_rate_of_a_steady_k_of_t_wall_is_zero() {
         let material = linear_k_material();
         let l = 0.23;
         let wall = QuadraticWall {
@@ -557,34 +570,23 @@ mod tests {
             .solve(&samples_of(&depths, linear_k_profile, 1.0))
             .unwrap();
         let rho_c = 2150.0 * 1000.0;
-        let alpha_only = |x: f64| {
-            let t = sol.fitted_c(x);
-            material.conductivity_w_mk.at(t) * sol.fit.curvature() / rho_c
-        };
-        let full = |x: f64| wall.model_rate_c_per_s(&sol, x).unwrap();
-        let mid = full(l / 2.0);
+        let h = 1e-3;
+        let curvature = (linear_k_profile(l / 2.0 + h) - 2.0 * linear_k_profile(l / 2.0)
+            + linear_k_profile(l / 2.0 - h))
+            / (h * h);
+        let alpha_only =
+            material.conductivity_w_mk.at(linear_k_profile(l / 2.0)) * curvature / rho_c;
         assert!(
-            mid.abs() < 0.03 * alpha_only(l / 2.0).abs(),
-            "{mid} vs {}",
-            alpha_only(l / 2.0)
+            alpha_only.abs() * 3600.0 > 0.1,
+            "the naive term is not small: {alpha_only}"
         );
-
-        let simpson = |f: &dyn Fn(f64) -> f64| {
-            let n = 20;
-            let h = l / n as f64;
-            let mut s = f(0.0) + f(l);
-            for i in 1..n {
-                s += if i % 2 == 1 { 4.0 } else { 2.0 } * f(i as f64 * h);
-            }
-            s * h / 3.0 / l
-        };
-        let mean_full = simpson(&full);
-        let mean_alpha = simpson(&alpha_only);
-        assert!(
-            close(mean_full, -sol.source_w_m3 / rho_c, 1e-9),
-            "{mean_full}"
-        );
-        assert!(mean_full.abs() < 0.01 * mean_alpha.abs());
+        for x in [0.0, l / 2.0, l] {
+            let rate = wall.model_rate_c_per_s(&sol, x).unwrap();
+            assert!(
+                rate.abs() < 1e-9 * alpha_only.abs().max(1e-12) + 1e-15,
+                "x {x}: {rate}"
+            );
+        }
     }
 
     /// Propagated σ versus Monte-Carlo scatter (constant k, so the flux is
