@@ -121,3 +121,53 @@ fn cold_junction_sources_in_order() {
         "{t} vs {want}"
     );
 }
+
+/// A calibration certificate's correction, t = gain × t_raw + offset
+/// (1.001 × 500 + 1.5 = 502.0 °C), and its expiry carried to the channel
+/// topic: dated 2025-01-01 with a 365-day interval, it is current on
+/// 2025-06-01 and overdue on 2026-06-01.
+#[test]
+fn calibration_is_applied_and_its_expiry_reported() {
+    let text = CONFIG.replace(
+        "signal = \"millivolts\"",
+        "signal = \"celsius\"\ncalibration_offset_c = 1.5\ncalibration_gain = 1.001\ncalibration_date = \"2025-01-01\"\ncalibration_interval_days = 365",
+    );
+    let s = Arc::new(config::parse(&text, "t", None).unwrap());
+    let june_2025 = Timestamp::parse("2025-06-01T00:00:00Z").unwrap();
+    let june_2026 = Timestamp::parse("2026-06-01T00:00:00Z").unwrap();
+    for (now, overdue) in [(june_2025, false), (june_2026, true)] {
+        let mut m = Monitor::new(s.clone(), now);
+        m.handle_frame(
+            0,
+            &frame(
+                &[(
+                    1,
+                    Value::Reading {
+                        value: 500.0,
+                        unit: Unit::Celsius,
+                    },
+                )],
+                None,
+            ),
+            now,
+        );
+        let mut seen = false;
+        while let Some(c) = m.poll_channel(now) {
+            if c.channel.as_str() == "tc" {
+                assert!((c.celsius.unwrap() - 502.0).abs() < 1e-9, "{:?}", c.celsius);
+                assert_eq!(c.calibration_overdue, overdue);
+                assert_eq!(
+                    c.calibration_date,
+                    Timestamp::parse("2025-01-01T00:00:00Z").ok()
+                );
+                seen = true;
+            }
+        }
+        assert!(seen);
+    }
+    let bad = CONFIG.replace(
+        "signal = \"millivolts\"",
+        "signal = \"celsius\"\ncalibration_date = \"01/01/2025\"",
+    );
+    assert!(config::parse(&bad, "t", None).is_err());
+}
