@@ -232,3 +232,35 @@ fn daemon_end_to_end() {
         "{text}"
     );
 }
+
+/// A daemon that dies without a word (SIGKILL, a power cut): the broker
+/// publishes its last will, `offline` with the reason and no time.
+#[test]
+fn abrupt_death_publishes_the_last_will() {
+    let dir = temp_dir("daemon-will");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, "wf/test-plant/k1/status");
+    let pty = Pty::open().unwrap();
+    let cfg = write(
+        &dir,
+        "wallflux.toml",
+        &one_zone_config(&pty.path, port, K, 250.0, &DEPTHS_MM, 1.0),
+    );
+    let mut daemon = start_daemon(&cfg, &dir.join("daemon.log"));
+    wait_for(&rx, Duration::from_secs(20), "online", |m| {
+        m.json["state"] == "online"
+    });
+    daemon.kill().unwrap();
+    let _ = daemon.wait();
+    let will = wait_for(&rx, Duration::from_secs(20), "last will", |m| {
+        m.json["state"] == "offline"
+    });
+    assert!(
+        will.json["reason"].as_str().unwrap().contains("last will"),
+        "{}",
+        will.json
+    );
+    assert!(will.json.get("time").is_none());
+    drop(pty);
+}

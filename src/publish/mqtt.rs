@@ -45,7 +45,12 @@ pub struct LinkHealth {
 struct StatusPayload<'a> {
     schema: &'static str,
     state: &'a str,
-    time: Timestamp,
+    /// Absent in the last will: the broker sends it when the link dies, a
+    /// time we cannot know when registering it.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    time: Option<Timestamp>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    reason: Option<&'static str>,
     version: &'static str,
 }
 
@@ -54,7 +59,20 @@ pub fn status_payload(state: &str, time: Timestamp) -> Vec<u8> {
     serde_json::to_vec(&StatusPayload {
         schema: "wallflux.status/1",
         state,
-        time,
+        time: Some(time),
+        reason: None,
+        version: env!("CARGO_PKG_VERSION"),
+    })
+    .unwrap_or_default()
+}
+
+/// The last will: `offline`, without a time, with the reason.
+fn will_payload() -> Vec<u8> {
+    serde_json::to_vec(&StatusPayload {
+        schema: "wallflux.status/1",
+        state: "offline",
+        time: None,
+        reason: Some("connection lost (last will)"),
         version: env!("CARGO_PKG_VERSION"),
     })
     .unwrap_or_default()
@@ -81,7 +99,7 @@ pub async fn run(
     opts.set_max_packet_size(MAX_PACKET_BYTES, MAX_PACKET_BYTES);
     opts.set_last_will(LastWill::new(
         status_topic.clone(),
-        status_payload("offline", clock.now()),
+        will_payload(),
         QoS::AtLeastOnce,
         true,
     ));
