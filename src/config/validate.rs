@@ -12,6 +12,27 @@ use super::*;
 use crate::monitor::alarm::{AlarmKind, AlarmSpec, Priority};
 use crate::physics::material::{Material, Property};
 
+/// A built-in alarm (no baseline; its operator texts given).
+fn builtin(
+    name: String,
+    target: AlarmTarget,
+    spec: AlarmSpec,
+    message: String,
+    consequence: &str,
+    action: &str,
+) -> AlarmConfig {
+    AlarmConfig {
+        name,
+        target,
+        spec,
+        baseline: None,
+        builtin: true,
+        message,
+        consequence: consequence.to_string(),
+        action: action.to_string(),
+    }
+}
+
 /// Default shell touch limit, °C: a common personnel-protection target (ASTM
 /// C1055 guides the design of heated surfaces for contact and fixes no
 /// value; ISO 13732-1 gives burn thresholds by material and contact time).
@@ -441,22 +462,17 @@ impl Validator<'_> {
         let touch_on = defaults
             .and_then(|d| d.shell_touch_enabled.as_ref())
             .is_none_or(|e| *e.get_ref());
-        let text = |s: &str| s.to_string();
         for (zi, z) in zones.iter().enumerate() {
             let zone = |quantity| AlarmTarget::Zone { zone: zi, quantity };
             if touch_on {
-                out.push(AlarmConfig {
-                    name: format!("{}-shell-touch", z.name),
-                    target: zone(ZoneQuantity::ShellC),
-                    spec: spec(AlarmKind::High, touch_c, 2.0, 60.0, Priority::High),
-                    baseline: None,
-                    builtin: true,
-                    message: format!("Shell of zone {} is above the touch limit", z.name),
-                    consequence: text("Burns on contact with the shell"),
-                    action: text(
-                        "Keep people clear, guard or sign the area, check the insulation behind it",
-                    ),
-                });
+                out.push(builtin(
+                    format!("{}-shell-touch", z.name),
+                    zone(ZoneQuantity::ShellC),
+                    spec(AlarmKind::High, touch_c, 2.0, 60.0, Priority::High),
+                    format!("Shell of zone {} is above the touch limit", z.name),
+                    "Burns on contact with the shell",
+                    "Keep people clear, guard or sign the area, check the insulation behind it",
+                ));
             }
             if let Some(limit) = z
                 .layers
@@ -464,21 +480,17 @@ impl Validator<'_> {
                 .and_then(|l| materials.get(l.material))
                 .and_then(|m| m.material.max_service_c)
             {
-                out.push(AlarmConfig {
-                    name: format!("{}-hot-face-service", z.name),
-                    target: zone(ZoneQuantity::HotFaceC),
-                    spec: spec(AlarmKind::High, limit, 10.0, 120.0, Priority::High),
-                    baseline: None,
-                    builtin: true,
-                    message: format!(
+                out.push(builtin(
+                    format!("{}-hot-face-service", z.name),
+                    zone(ZoneQuantity::HotFaceC),
+                    spec(AlarmKind::High, limit, 10.0, 120.0, Priority::High),
+                    format!(
                         "Hot face of zone {} above the lining's service limit",
                         z.name
                     ),
-                    consequence: text("Lining damage: softening, shrinkage, spalling"),
-                    action: text(
-                        "Check the firing against the lining's limit; reduce the set-point",
-                    ),
-                });
+                    "Lining damage: softening, shrinkage, spalling",
+                    "Check the firing against the lining's limit; reduce the set-point",
+                ));
             }
             if z.model != Model::Quadratic {
                 for (i, next) in z.layers.iter().enumerate().skip(1) {
@@ -489,79 +501,58 @@ impl Validator<'_> {
                         continue;
                     };
                     let k = (i - 1) as u8;
-                    out.push(AlarmConfig {
-                        name: format!("{}-interface-{k}-service", z.name),
-                        target: zone(ZoneQuantity::InterfaceC(k)),
-                        spec: spec(AlarmKind::High, limit, 10.0, 300.0, Priority::High),
-                        baseline: None,
-                        builtin: true,
-                        message: format!("Interface {k} of zone {} above the service limit of the layer behind it", z.name),
-                        consequence: text("The backup layer degrades: shrinkage, loss of insulation, a hotter shell"),
-                        action: text("Check the lining in front of it for wear or cracks; plan an inspection"),
-                    });
+                    out.push(builtin(format!("{}-interface-{k}-service", z.name), zone(ZoneQuantity::InterfaceC(k)), spec(AlarmKind::High, limit, 10.0, 300.0, Priority::High), format!("Interface {k} of zone {} above the service limit of the layer behind it", z.name), "The backup layer degrades: shrinkage, loss of insulation, a hotter shell", "Check the lining in front of it for wear or cracks; plan an inspection"));
                 }
             }
             if z.model == Model::Layered && z.hot_face_channel.is_some() {
-                out.push(AlarmConfig {
-                    name: format!("{}-resistance-fall", z.name),
-                    target: zone(ZoneQuantity::ResistanceChangePct),
-                    spec: spec(AlarmKind::Low, -10.0, 2.0, 3600.0, Priority::Low),
-                    baseline: None,
-                    builtin: true,
-                    message: format!("Thermal resistance of zone {} 10 % below its commissioning baseline", z.name),
-                    consequence: text("The wall insulates less: wear, cracks or wet insulation; a hotter shell follows"),
-                    action: text("Compare with the shell temperature and plan an inspection"),
-                });
+                out.push(builtin(format!("{}-resistance-fall", z.name), zone(ZoneQuantity::ResistanceChangePct), spec(AlarmKind::Low, -10.0, 2.0, 3600.0, Priority::Low), format!("Thermal resistance of zone {} 10 % below its commissioning baseline", z.name), "The wall insulates less: wear, cracks or wet insulation; a hotter shell follows", "Compare with the shell temperature and plan an inspection"));
             }
             if let (Some(min), true) = (z.lining_min_mm, z.hot_face_channel.is_some()) {
-                out.push(AlarmConfig {
-                    name: format!("{}-lining-thin", z.name),
-                    target: zone(ZoneQuantity::LiningRemainingMm),
-                    spec: spec(AlarmKind::Low, min, 5.0, 3600.0, Priority::Medium),
-                    baseline: None,
-                    builtin: true,
-                    message: format!(
+                out.push(builtin(
+                    format!("{}-lining-thin", z.name),
+                    zone(ZoneQuantity::LiningRemainingMm),
+                    spec(AlarmKind::Low, min, 5.0, 3600.0, Priority::Medium),
+                    format!(
                         "Hot-side lining of zone {} thinner than its minimum",
                         z.name
                     ),
-                    consequence: text("Hot spots, shell overheating, a burn-through if it goes on"),
-                    action: text("Plan a reline or repair; watch the shell temperature"),
-                });
+                    "Hot spots, shell overheating, a burn-through if it goes on",
+                    "Plan a reline or repair; watch the shell temperature",
+                ));
             }
             if let Some(ramp) = z.max_ramp_c_per_h {
-                out.push(AlarmConfig {
-                    name: format!("{}-ramp", z.name),
-                    target: zone(ZoneQuantity::HotFaceC),
-                    spec: spec(
+                out.push(builtin(
+                    format!("{}-ramp", z.name),
+                    zone(ZoneQuantity::HotFaceC),
+                    spec(
                         AlarmKind::RateHigh,
                         ramp,
                         0.1 * ramp,
                         300.0,
                         Priority::Medium,
                     ),
-                    baseline: None,
-                    builtin: true,
-                    message: format!(
+                    format!(
                         "Hot face of zone {} heating or cooling faster than the ramp limit",
                         z.name
                     ),
-                    consequence: text("Thermal shock; in a wet lining, steam spalling"),
-                    action: text("Slow the ramp to the refractory supplier's schedule"),
-                });
+                    "Thermal shock; in a wet lining, steam spalling",
+                    "Slow the ramp to the refractory supplier's schedule",
+                ));
             }
             if let Some(base) = z.heat_loss_baseline_w {
                 out.push(AlarmConfig {
-                    name: format!("{}-heat-loss", z.name),
-                    target: zone(ZoneQuantity::HeatLossW),
-                    spec: spec(AlarmKind::Deviation, 20.0, 2.0, 1800.0, Priority::Low),
                     baseline: Some(base),
-                    builtin: true,
-                    message: format!(
-                        "Heat loss of zone {} more than 20 % from its baseline",
-                        z.name
-                    ),
-                    consequence: text("Energy cost; possibly a worn or wet lining"),
-                    action: text("Compare with earlier firings; plan an inspection"),
+                    ..builtin(
+                        format!("{}-heat-loss", z.name),
+                        zone(ZoneQuantity::HeatLossW),
+                        spec(AlarmKind::Deviation, 20.0, 2.0, 1800.0, Priority::Low),
+                        format!(
+                            "Heat loss of zone {} more than 20 % from its baseline",
+                            z.name
+                        ),
+                        "Energy cost; possibly a worn or wet lining",
+                        "Compare with earlier firings; plan an inspection",
+                    )
                 });
             }
         }
@@ -572,30 +563,30 @@ impl Validator<'_> {
             {
                 continue;
             }
-            out.push(AlarmConfig {
-                name: format!("{}-fault", c.name),
-                target: AlarmTarget::Channel { channel: ci, health: true },
-                spec: spec(AlarmKind::Diagnostic, 0.5, 0.0, 30.0, Priority::Medium),
-                baseline: None,
-                builtin: true,
-                message: format!("Thermocouple {} faulty (open, out of range, stuck, outlier or stale)", c.name),
-                consequence: text("The zone's numbers rest on fewer probes; alarms depending on it are suppressed"),
-                action: text("Check the thermocouple, its wiring and its input"),
-            });
+            out.push(builtin(
+                format!("{}-fault", c.name),
+                AlarmTarget::Channel {
+                    channel: ci,
+                    health: true,
+                },
+                spec(AlarmKind::Diagnostic, 0.5, 0.0, 30.0, Priority::Medium),
+                format!(
+                    "Thermocouple {} faulty (open, out of range, stuck, outlier or stale)",
+                    c.name
+                ),
+                "The zone's numbers rest on fewer probes; alarms depending on it are suppressed",
+                "Check the thermocouple, its wiring and its input",
+            ));
         }
         for (si, s) in sources.iter().enumerate() {
-            out.push(AlarmConfig {
-                name: format!("{}-silent", s.name),
-                target: AlarmTarget::Source { source: si },
-                spec: spec(AlarmKind::Diagnostic, 0.5, 0.0, 0.0, Priority::High),
-                baseline: None,
-                builtin: true,
-                message: format!("No valid frame from {} within its silence limit", s.name),
-                consequence: text(
-                    "No readings from its thermocouples: no numbers, no process alarms",
-                ),
-                action: text("Check the serial cable, the box's power and the port"),
-            });
+            out.push(builtin(
+                format!("{}-silent", s.name),
+                AlarmTarget::Source { source: si },
+                spec(AlarmKind::Diagnostic, 0.5, 0.0, 0.0, Priority::High),
+                format!("No valid frame from {} within its silence limit", s.name),
+                "No readings from its thermocouples: no numbers, no process alarms",
+                "Check the serial cable, the box's power and the port",
+            ));
         }
         out
     }
