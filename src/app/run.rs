@@ -169,7 +169,10 @@ impl Engine {
         clock: Clock,
         observer: Option<Observer>,
     ) -> Self {
-        let totals = load_or_default::<EnergyTotals>(&settings, ENERGY_FILE, "energy totals");
+        let mut totals = load_or_default::<EnergyTotals>(&settings, ENERGY_FILE, "energy totals");
+        if let Some(note) = totals.upgrade() {
+            info!(file = ENERGY_FILE, "{note}");
+        }
         let flags =
             load_or_default::<BTreeMap<String, AlarmFlags>>(&settings, ALARMS_FILE, "alarm states");
         let mut monitor = Monitor::with_alarm_flags(settings.clone(), clock.now(), &flags);
@@ -179,7 +182,12 @@ impl Engine {
             "lining baselines",
         );
         monitor.restore_baselines(&baselines);
-        let meter = EnergyMeter::new(settings.zones.len(), settings.site.firing_start_c, totals);
+        let meter = EnergyMeter::new(
+            settings.zones.len(),
+            settings.site.firing_start_c,
+            settings.site.operation,
+            totals,
+        );
         Engine {
             settings,
             root,

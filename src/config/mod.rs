@@ -199,6 +199,8 @@ pub struct Site {
     pub energy_price: Option<(f64, String)>,
     /// A firing is under way while a zone's hot face is above this, °C.
     pub firing_start_c: f64,
+    /// Batch firings, or a kiln that is always hot (`[site] operation`).
+    pub operation: Operation,
 }
 
 #[derive(Debug, Clone)]
@@ -413,6 +415,17 @@ impl Settings {
             .iter()
             .position(|c| c.source == source && c.input == input)
     }
+}
+
+/// How a kiln is run (`[site] operation`), for its energy books.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Operation {
+    /// Batch firings (a periodic kiln): energy per firing as well as per day.
+    #[default]
+    Periodic,
+    /// Always hot (a tunnel or roller kiln): per day and rolling 24 h, no firings.
+    Continuous,
 }
 
 #[cfg(test)]

@@ -258,11 +258,24 @@ impl Validator<'_> {
                 .firing_start_c
                 .as_ref()
                 .map_or(150.0, |f| self.finite(f, "site.firing_start_c"));
+            let operation = match s.operation.as_ref().map(|o| (o, o.get_ref().as_str())) {
+                None | Some((_, "periodic")) => Operation::Periodic,
+                Some((_, "continuous")) => Operation::Continuous,
+                Some((o, other)) => {
+                    self.problem(
+                        o.span(),
+                        "site.operation",
+                        format!("{other:?} is not an operation; use \"periodic\" (batch firings) or \"continuous\" (always hot)"),
+                    );
+                    Operation::Periodic
+                }
+            };
             Site {
                 plant: self.name(&s.plant, "site.plant"),
                 kiln: self.name(&s.kiln, "site.kiln"),
                 energy_price,
                 firing_start_c,
+                operation,
             }
         };
         let state_dir = match &raw.state_dir {
