@@ -181,7 +181,16 @@ impl Engine {
             BASELINES_FILE,
             "lining baselines",
         );
-        monitor.restore_baselines(&baselines);
+        for (zone, note) in monitor.restore_baselines(&baselines) {
+            info!(file = BASELINES_FILE, zone, "{note}");
+        }
+        for z in settings.zones.iter() {
+            if let Some(b) = monitor.baseline(&z.name) {
+                let r = b.report(clock.now(), z.baseline_days);
+                info!(zone = %z.name, state = r.state, started = %r.started.map_or("-".to_string(), |t| t.rfc3339().to_string()), reference_bins = r.reference_bins,
+                    "lining baseline (commands baseline_start, baseline_stop, baseline_reset on {{root}}/cmd)");
+            }
+        }
         let meter = EnergyMeter::new(
             settings.zones.len(),
             settings.site.firing_start_c,
@@ -462,6 +471,22 @@ impl Engine {
         let now = self.clock.now();
         let reply_topic = format!("{}/cmd/reply", self.root);
         let (id, result) = match parse_command(payload) {
+            Ok(cmd) if cmd.action.is_baseline() => {
+                let r = self.monitor.command(&cmd, now);
+                match &r {
+                    Ok(_) => {
+                        info!(id = %cmd.id, action = cmd.action.name(), zone = %cmd.alarm, by = %cmd.by, "operator command")
+                    }
+                    Err(e) => {
+                        warn!(id = %cmd.id, action = cmd.action.name(), zone = %cmd.alarm, by = %cmd.by, error = %e, "operator command refused")
+                    }
+                }
+                if r.is_ok() {
+                    // A commissioning step must survive a power cut.
+                    self.save_baselines();
+                }
+                (Some(cmd.id.clone()), r.map(|_| ()))
+            }
             Ok(cmd) => {
                 let r = self.monitor.command(&cmd, now);
                 match &r {
@@ -494,6 +519,10 @@ impl Engine {
         if let Err(e) = state::save(&self.settings.state_dir, ENERGY_FILE, &self.meter.totals) {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the energy totals");
         }
+        self.save_baselines();
+    }
+
+    fn save_baselines(&self) {
         if let Err(e) = state::save(
             &self.settings.state_dir,
             BASELINES_FILE,

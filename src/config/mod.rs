@@ -391,6 +391,8 @@ pub struct Zone {
     pub rate_window_s: f64,
     pub layers: Vec<ZoneLayer>,
     pub probes: Vec<Probe>,
+    /// When the lining baseline begins learning (`baseline_start`).
+    pub baseline_start: BaselineStart,
 }
 
 impl Zone {
@@ -426,6 +428,16 @@ pub enum Operation {
     Periodic,
     /// Always hot (a tunnel or roller kiln): per day and rolling 24 h, no firings.
     Continuous,
+}
+
+/// When a zone's lining baseline begins to learn (`[[zone]] baseline_start`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum BaselineStart {
+    /// At the first consistent state after the first run (a wall in service).
+    #[default]
+    FirstRun,
+    /// Only on the `baseline_start` command (a new or relined wall, after dry-out).
+    Command,
 }
 
 #[cfg(test)]

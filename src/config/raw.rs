@@ -244,4 +244,5 @@ pub struct RawZone {
     pub rate_window_s: Option<S<f64>>,
     pub layers: S<Vec<S<RawLayer>>>,
     pub probes: S<Vec<S<RawProbe>>>,
+    pub baseline_start: Option<S<String>>,
 }

@@ -1389,6 +1389,18 @@ impl Validator<'_> {
             }
             i
         });
+        let baseline_start = match z.baseline_start.as_ref().map(|b| (b, b.get_ref().as_str())) {
+            None | Some((_, "first_run")) => BaselineStart::FirstRun,
+            Some((_, "command")) => BaselineStart::Command,
+            Some((b, other)) => {
+                self.problem(
+                    b.span(),
+                    p("baseline_start"),
+                    format!("{other:?} is not a baseline start; use \"first_run\" or \"command\""),
+                );
+                BaselineStart::FirstRun
+            }
+        };
         let lining_min_mm = z
             .lining_min_mm
             .as_ref()
@@ -1571,6 +1583,7 @@ impl Validator<'_> {
             rate_window_s,
             layers,
             probes,
+            baseline_start,
         }
     }
 }

@@ -19,7 +19,7 @@ use std::sync::Arc;
 use heapless::Deque;
 
 use crate::acquire::line::{Frame, Value};
-use crate::config::Settings;
+use crate::config::{BaselineStart, Model, Settings, Zone};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
 use alarm_engine::{AlarmEngine, AlarmOutput, AlarmReport};
@@ -102,7 +102,13 @@ impl Monitor {
             .zones
             .iter()
             .enumerate()
-            .map(|(i, z)| ZoneEngine::new(i, z, &settings.materials, start))
+            .map(|(i, z)| {
+                let mut e = ZoneEngine::new(i, z, &settings.materials, start);
+                if has_baseline(z) && z.baseline_start == BaselineStart::FirstRun {
+                    e.baseline = lining::Baseline::learning_from_first_state();
+                }
+                e
+            })
             .collect();
         Monitor {
             channels: vec![ChannelState::default(); n],
@@ -228,7 +234,11 @@ impl Monitor {
             self.check_health(ch, due);
         }
         let interval = self.settings.zones[i].interval_s;
-        let report = self.zones[i].cycle(&self.settings, &self.channels, due);
+        let mut report = self.zones[i].cycle(&self.settings, &self.channels, due);
+        let zone = &self.settings.zones[i];
+        if has_baseline(zone) {
+            report.lining_baseline = Some(self.zones[i].baseline.report(due, zone.baseline_days));
+        }
         self.zones[i].next_due = due.plus_s(interval);
         // Zone-level faults (stuck, outlier) become the channels' health.
         let settings = self.settings.clone();
@@ -261,16 +271,55 @@ impl Monitor {
             .collect()
     }
 
-    /// Restores saved baselines by zone name.
+    /// Restores saved baselines by zone name; returns, per zone, a note
+    /// for the log when a saved baseline came from an earlier version.
     pub fn restore_baselines(
         &mut self,
         saved: &std::collections::BTreeMap<String, lining::Baseline>,
-    ) {
+    ) -> Vec<(String, &'static str)> {
+        let mut notes = Vec::new();
         for (e, z) in self.zones.iter_mut().zip(&self.settings.zones) {
             if let Some(b) = saved.get(z.name.as_str()) {
                 e.baseline = b.clone();
+                if let Some(note) = e.baseline.upgrade() {
+                    notes.push((z.name.to_string(), note));
+                }
             }
         }
+        notes
+    }
+
+    /// The lining baseline of zone `zone` (by name), when it has one.
+    pub fn baseline(&self, zone: &str) -> Option<&lining::Baseline> {
+        let i = self
+            .settings
+            .zones
+            .iter()
+            .position(|z| z.name.as_str() == zone)?;
+        has_baseline(&self.settings.zones[i]).then(|| &self.zones[i].baseline)
+    }
+
+    /// A baseline command (`baseline_start`, `baseline_stop`,
+    /// `baseline_reset`) for the zone named in `cmd.alarm`; `Ok(zone index)`.
+    fn baseline_command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+        let i = self
+            .settings
+            .zones
+            .iter()
+            .position(|z| z.name.as_str() == cmd.alarm)
+            .ok_or_else(|| CommandError::UnknownZone(cmd.alarm.clone()))?;
+        let zone = &self.settings.zones[i];
+        if !has_baseline(zone) {
+            return Err(CommandError::NoBaseline(cmd.alarm.clone()));
+        }
+        let days = zone.baseline_days;
+        let b = &mut self.zones[i].baseline;
+        match cmd.action {
+            command::Action::BaselineStart => b.start(&cmd.by, now, days)?,
+            command::Action::BaselineStop => b.stop(&cmd.by, now, days)?,
+            _ => b.reset(&cmd.by, now, days)?,
+        }
+        Ok(i)
     }
 
     /// Number of cycles zone `i` has run.
@@ -342,8 +391,12 @@ impl Monitor {
         self.alarms.poll()
     }
 
-    /// An operator command; `Ok(alarm index)` when accepted.
+    /// An operator command; `Ok(alarm index)` when accepted (for the
+    /// baseline actions, `Ok(zone index)`).
     pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+        if cmd.action.is_baseline() {
+            return self.baseline_command(cmd, now);
+        }
         self.alarms.command(cmd, now)
     }
 
@@ -372,4 +425,10 @@ impl Monitor {
             .map(|z| z.next_due)
             .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
     }
+}
+
+/// Whether a zone keeps a lining baseline: the layered model with a
+/// reading at the hot face (`hot_face_channel`).
+pub fn has_baseline(zone: &Zone) -> bool {
+    zone.model == Model::Layered && zone.hot_face_channel.is_some()
 }
