@@ -315,6 +315,7 @@ impl Engine {
                         "priority": c.spec.priority,
                         "by": transition.by.as_ref().map(|b| b.as_str()),
                         "message": c.message,
+                        "reason": self.monitor.alarm_reason(alarm, transition.time),
                     });
                     self.push_json(format!("{root}/events"), &event, Kind::Event);
                 }
@@ -338,9 +339,18 @@ impl Engine {
         }
     }
 
+    /// The alarm's retained state; a channel-fault alarm carries its
+    /// channel's `reason` in words while the channel is faulty.
     fn publish_alarm(&self, i: usize, now: Timestamp) {
         let r = self.monitor.alarm_report(i, now);
-        self.push_json(format!("{}/alarm/{}", self.root, r.name), &r, Kind::Alarm);
+        let topic = format!("{}/alarm/{}", self.root, r.name);
+        match (self.monitor.alarm_reason(i, now), serde_json::to_value(&r)) {
+            (Some(reason), Ok(serde_json::Value::Object(mut v))) => {
+                v.insert("reason".into(), reason.into());
+                self.push_json(topic, &v, Kind::Alarm);
+            }
+            _ => self.push_json(topic, &r, Kind::Alarm),
+        }
     }
 
     fn publish_all_alarms(&self) {
@@ -381,7 +391,8 @@ impl Engine {
                 warn!(alarm = %c.name, priority, value = %value, unit = c.unit(), setpoint = c.spec.setpoint, "ALARM: {text}")
             }
             (Cause::Activated, true) => {
-                warn!(alarm = %c.name, priority, value = %value, unit = c.unit(), "alarm: {text}")
+                let reason = self.monitor.alarm_reason(i, t.time).unwrap_or("");
+                warn!(alarm = %c.name, priority, value = %value, unit = c.unit(), reason, "alarm: {text}")
             }
             (_, false) if !operator => {
                 info!(alarm = %c.name, to = t.to.name(), cause = ?t.cause, value = %value, "alarm change not announced (shelved, suppressed or out of service)")

@@ -268,6 +268,8 @@ pub struct Channel {
     pub calibration: Calibration,
     /// A change faster than this between two readings is a spike, °C/min.
     pub spike_c_per_min: f64,
+    /// A thermocouple, or a terminal sensor (`type = "terminal"`).
+    pub kind: ChannelKind,
 }
 
 /// A channel's calibration correction, `t = gain × t_raw + offset`, from a
@@ -438,6 +440,18 @@ pub enum BaselineStart {
     FirstRun,
     /// Only on the `baseline_start` command (a new or relined wall, after dry-out).
     Command,
+}
+
+/// What a channel measures (`[[channel]] type`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum ChannelKind {
+    /// A thermocouple of the channel's `type` letter.
+    #[default]
+    Thermocouple,
+    /// `type = "terminal"`: the temperature of a box's thermocouple
+    /// terminals (an RTD or thermistor sent as °C), the cold junction of
+    /// its millivolt channels. No thermocouple type; its own plausible range.
+    Terminal,
 }
 
 #[cfg(test)]
