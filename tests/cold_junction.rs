@@ -147,7 +147,8 @@ fn cold_junction_sources_in_order() {
     let r = report(&mut m, 80.0, "tc");
     assert_eq!((r.status, r.celsius), (Health::Invalid, None));
     assert!(
-        r.reason.contains("cold-junction (terminal) sensor"),
+        r.reason
+            .contains("no fresh reading from the cold-junction (terminal) sensor"),
         "{}",
         r.reason
     );
