@@ -8,6 +8,7 @@ use std::sync::Arc;
 
 use wallflux::acquire::line::{Frame, Unit, Value};
 use wallflux::config;
+use wallflux::monitor::channel::{ChannelReport, Health};
 use wallflux::monitor::Monitor;
 use wallflux::time::Timestamp;
 
@@ -22,6 +23,11 @@ name = "box"
 kind = "line"
 port = "/dev/null"
 cj_channel = "terminals"
+silence_s = 10
+[[source]]
+name = "box2"
+kind = "line"
+port = "/dev/null"
 cj_c = 20.0
 [[channel]]
 name = "tc"
@@ -33,7 +39,18 @@ signal = "millivolts"
 name = "terminals"
 source = "box"
 input = 2
+type = "terminal"
+[[channel]]
+name = "tc-deep"
+source = "box"
+input = 3
 type = "K"
+[[channel]]
+name = "tc2"
+source = "box2"
+input = 1
+type = "K"
+signal = "millivolts"
 [[material]]
 name = "m"
 conductivity_w_mk = 1.0
@@ -45,7 +62,7 @@ area_m2 = 1.0
 model = "quadratic"
 interval_s = 10
 layers = [{ material = "m", thickness_mm = 200 }]
-probes = [{ channel = "tc", depth_mm = 20 }, { channel = "terminals", depth_mm = 200 }]
+probes = [{ channel = "tc", depth_mm = 20 }, { channel = "tc-deep", depth_mm = 120 }, { channel = "tc2", depth_mm = 200 }]
 "#;
 
 fn frame(values: &[(u8, Value)], cj: Option<f64>) -> Frame {
@@ -58,14 +75,30 @@ fn frame(values: &[(u8, Value)], cj: Option<f64>) -> Frame {
     }
 }
 
-fn celsius(m: &mut Monitor, at: f64) -> f64 {
-    let mut out = None;
+/// Every channel state due at `at`, by name (a state is due once per
+/// period or at a change, so all are taken at once).
+fn reports(m: &mut Monitor, at: f64) -> Vec<ChannelReport> {
+    let mut out = Vec::new();
     while let Some(c) = m.poll_channel(Timestamp::from_epoch_s(at)) {
-        if c.channel.as_str() == "tc" {
-            out = c.celsius;
-        }
+        out.push(c);
     }
-    out.expect("tc has a value")
+    out
+}
+
+fn report(m: &mut Monitor, at: f64, name: &str) -> ChannelReport {
+    pick(&reports(m, at), name)
+}
+
+fn pick(all: &[ChannelReport], name: &str) -> ChannelReport {
+    all.iter()
+        .rev()
+        .find(|c| c.channel.as_str() == name)
+        .cloned()
+        .unwrap_or_else(|| panic!("{name} published"))
+}
+
+fn celsius(m: &mut Monitor, at: f64) -> f64 {
+    report(m, at, "tc").celsius.expect("tc has a value")
 }
 
 #[test]
@@ -107,9 +140,22 @@ fn cold_junction_sources_in_order() {
         "cj 0 °C: 4.096 mV is 100 °C (NIST table), got {t}"
     );
 
-    // Without either for longer than the silence limit: the fixed cj_c.
+    // Without either for longer than the silence limit: no compensation
+    // is possible, and the channel says why (a fixed value no longer
+    // stands in for a configured terminal sensor).
     m.handle_frame(0, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(80.0));
-    let t = celsius(&mut m, 80.0);
+    let r = report(&mut m, 80.0, "tc");
+    assert_eq!((r.status, r.celsius), (Health::Invalid, None));
+    assert!(
+        r.reason
+            .contains("no fresh reading from the cold-junction (terminal) sensor"),
+        "{}",
+        r.reason
+    );
+
+    // A source with only a fixed cj_c uses it.
+    m.handle_frame(1, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(81.0));
+    let t = report(&mut m, 81.0, "tc2").celsius.unwrap();
     let want = wallflux::physics::thermocouple::compensated_c(
         wallflux::physics::thermocouple::TcType::K,
         4.096,
@@ -170,4 +216,187 @@ fn calibration_is_applied_and_its_expiry_reported() {
         "signal = \"celsius\"\ncalibration_date = \"01/01/2025\"",
     );
     assert!(config::parse(&bad, "t", None).is_err());
+}
+
+fn terminal_c(c: f64) -> Value {
+    Value::Reading {
+        value: c,
+        unit: Unit::Celsius,
+    }
+}
+
+const MV: Value = Value::Reading {
+    value: 4.096,
+    unit: Unit::Millivolts,
+};
+
+/// The terminal sensor's own diagnostics, and what each does to the
+/// millivolt channel it compensates: `open`, a value outside the plausible
+/// −40…85 °C of a field box, a spike (a 30 °C jump in 10 s, above the
+/// terminal default of 10 °C/min), and recovery. A terminal channel is
+/// published as `type = "terminal"` with a class-B platinum σ
+/// ((0.30 + 0.005 × 25) / √3 = 0.245 °C at 25 °C).
+#[test]
+fn terminal_sensor_faults_invalidate_the_millivolt_channels() {
+    let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
+    let mut at = 0.0;
+    let mut step = |m: &mut Monitor, terminal: Value| {
+        at += 10.0;
+        m.handle_frame(
+            0,
+            &frame(&[(1, MV), (2, terminal)], None),
+            Timestamp::from_epoch_s(at),
+        );
+        let all = reports(m, at);
+        (pick(&all, "terminals"), pick(&all, "tc"))
+    };
+    let (term, tc) = step(&mut m, terminal_c(25.0));
+    assert_eq!((term.status, term.tc_type), (Health::Ok, "terminal"));
+    assert!((term.sigma_c.unwrap() - 0.425 / 3f64.sqrt()).abs() < 1e-9);
+    assert!((tc.celsius.unwrap() - 124.31).abs() < 0.01);
+
+    let cases: [(Value, Health, &str); 3] = [
+        (Value::Open, Health::Open, "open"),
+        (terminal_c(120.0), Health::OutOfRange, "plausible range"),
+        (terminal_c(-55.0), Health::OutOfRange, "plausible range"),
+    ];
+    for (value, health, words) in cases {
+        let (term, tc) = step(&mut m, value);
+        assert_eq!(term.status, health, "{}", term.reason);
+        assert_eq!(
+            (tc.status, tc.celsius),
+            (Health::Invalid, None),
+            "{}",
+            tc.reason
+        );
+        assert!(
+            tc.reason.contains(words) && tc.reason.contains("cold-junction"),
+            "{}",
+            tc.reason
+        );
+        // Back to normal: compensated again.
+        let (term, tc) = step(&mut m, terminal_c(25.0));
+        assert_eq!((term.status, tc.status), (Health::Ok, Health::Ok));
+    }
+    let (term, tc) = step(&mut m, terminal_c(55.0));
+    assert_eq!(term.status, Health::Spike);
+    assert_eq!(tc.status, Health::Invalid);
+    assert!(tc.reason.contains("spike"), "{}", tc.reason);
+    // A frame's own cj= is the box's measurement: it still compensates.
+    at += 10.0;
+    m.handle_frame(
+        0,
+        &frame(&[(1, MV)], Some(0.0)),
+        Timestamp::from_epoch_s(at),
+    );
+    let tc = report(&mut m, at, "tc");
+    assert!((tc.celsius.unwrap() - 100.0).abs() < 0.01, "{}", tc.reason);
+}
+
+/// A failed cold junction raises the built-in thermocouple-fault alarm of
+/// every millivolt probe it compensates (after its 30 s on-delay), with the
+/// junction's failure as its reason; the celsius probe of the same box is
+/// untouched.
+#[test]
+fn a_failed_cold_junction_raises_the_thermocouple_fault_alarm() {
+    let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
+    let deep = Value::Reading {
+        value: 60.0,
+        unit: Unit::Celsius,
+    };
+    let index = |m: &Monitor, name: &str| {
+        m.alarms()
+            .configs()
+            .iter()
+            .position(|c| c.name == name)
+            .unwrap()
+    };
+    let tc_fault = index(&m, "tc-fault");
+    let deep_fault = index(&m, "tc-deep-fault");
+    let run = |m: &mut Monitor, from: u32, to: u32, terminal: Value| {
+        for k in from..to {
+            let now = Timestamp::from_epoch_s(f64::from(k));
+            m.handle_frame(0, &frame(&[(1, MV), (2, terminal), (3, deep)], None), now);
+            m.handle_frame(1, &frame(&[(1, MV)], None), now);
+            m.tick(now);
+            while m.poll_zone(now).is_some() {}
+            while m.poll_alarm().is_some() {}
+        }
+    };
+    run(&mut m, 1, 60, terminal_c(24.0));
+    let at = |k: f64| Timestamp::from_epoch_s(k);
+    assert!(!m.alarms().configs().is_empty());
+    assert_eq!(m.alarms().state(tc_fault, at(60.0)).name(), "normal");
+    run(&mut m, 60, 120, Value::Open);
+    assert_eq!(
+        m.alarms().state(tc_fault, at(120.0)).name(),
+        "unacknowledged"
+    );
+    let reason = m.alarm_reason(tc_fault, at(120.0)).unwrap();
+    assert!(
+        reason.contains("cold-junction (terminal) sensor open"),
+        "{reason}"
+    );
+    assert_eq!(m.alarms().state(deep_fault, at(120.0)).name(), "normal");
+    assert_eq!(m.alarm_reason(deep_fault, at(120.0)), None);
+    run(&mut m, 120, 180, terminal_c(24.0));
+    assert_eq!(
+        m.alarms().state(tc_fault, at(180.0)).name(),
+        "rtn_unacknowledged"
+    );
+}
+
+/// Configuration: `type = "terminal"` reads °C only, measures a box (not a
+/// wall probe, not the hot face), and excludes a fixed `cj_c` on the same
+/// source; a cold-junction channel written with a thermocouple letter
+/// (older files) is still diagnosed as a terminal sensor.
+#[test]
+fn terminal_channels_in_the_configuration() {
+    let refused = [
+        (
+            CONFIG.replace(
+                "type = \"terminal\"",
+                "type = \"terminal\"\nsignal = \"millivolts\"",
+            ),
+            "channel[1].signal",
+        ),
+        (
+            CONFIG.replace(
+                "cj_channel = \"terminals\"",
+                "cj_channel = \"terminals\"\ncj_c = 22.0",
+            ),
+            "source[0].cj_c",
+        ),
+        (
+            CONFIG.replace(
+                "{ channel = \"tc-deep\", depth_mm = 120 }",
+                "{ channel = \"terminals\", depth_mm = 120 }",
+            ),
+            "zone[0].probes[1].channel",
+        ),
+    ];
+    for (text, path) in refused {
+        let e = config::parse(&text, "t", None).unwrap_err();
+        assert!(
+            e.problems
+                .iter()
+                .any(|p| p.path == path && p.line.is_some()),
+            "{path}: {e}"
+        );
+    }
+    let old = CONFIG.replace("type = \"terminal\"", "type = \"K\"");
+    let s = Arc::new(config::parse(&old, "t", None).unwrap());
+    let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
+    m.handle_frame(
+        0,
+        &frame(&[(1, MV), (2, terminal_c(120.0))], None),
+        Timestamp::from_epoch_s(1.0),
+    );
+    let term = report(&mut m, 1.0, "terminals");
+    assert_eq!(
+        (term.status, term.tc_type),
+        (Health::OutOfRange, "terminal")
+    );
 }

@@ -169,7 +169,10 @@ impl Engine {
         clock: Clock,
         observer: Option<Observer>,
     ) -> Self {
-        let totals = load_or_default::<EnergyTotals>(&settings, ENERGY_FILE, "energy totals");
+        let mut totals = load_or_default::<EnergyTotals>(&settings, ENERGY_FILE, "energy totals");
+        if let Some(note) = totals.upgrade() {
+            info!(file = ENERGY_FILE, "{note}");
+        }
         let flags =
             load_or_default::<BTreeMap<String, AlarmFlags>>(&settings, ALARMS_FILE, "alarm states");
         let mut monitor = Monitor::with_alarm_flags(settings.clone(), clock.now(), &flags);
@@ -178,8 +181,22 @@ impl Engine {
             BASELINES_FILE,
             "lining baselines",
         );
-        monitor.restore_baselines(&baselines);
-        let meter = EnergyMeter::new(settings.zones.len(), settings.site.firing_start_c, totals);
+        for (zone, note) in monitor.restore_baselines(&baselines) {
+            info!(file = BASELINES_FILE, zone, "{note}");
+        }
+        for z in settings.zones.iter() {
+            if let Some(b) = monitor.baseline(&z.name) {
+                let r = b.report(clock.now(), z.baseline_days);
+                info!(zone = %z.name, state = r.state, started = %r.started.map_or("-".to_string(), |t| t.rfc3339().to_string()), reference_bins = r.reference_bins,
+                    "lining baseline (commands baseline_start, baseline_stop, baseline_reset on {{root}}/cmd)");
+            }
+        }
+        let meter = EnergyMeter::new(
+            settings.zones.len(),
+            settings.site.firing_start_c,
+            settings.site.operation,
+            totals,
+        );
         Engine {
             settings,
             root,
@@ -298,6 +315,7 @@ impl Engine {
                         "priority": c.spec.priority,
                         "by": transition.by.as_ref().map(|b| b.as_str()),
                         "message": c.message,
+                        "reason": self.monitor.alarm_reason(alarm, transition.time),
                     });
                     self.push_json(format!("{root}/events"), &event, Kind::Event);
                 }
@@ -321,9 +339,18 @@ impl Engine {
         }
     }
 
+    /// The alarm's retained state; a channel-fault alarm carries its
+    /// channel's `reason` in words while the channel is faulty.
     fn publish_alarm(&self, i: usize, now: Timestamp) {
         let r = self.monitor.alarm_report(i, now);
-        self.push_json(format!("{}/alarm/{}", self.root, r.name), &r, Kind::Alarm);
+        let topic = format!("{}/alarm/{}", self.root, r.name);
+        match (self.monitor.alarm_reason(i, now), serde_json::to_value(&r)) {
+            (Some(reason), Ok(serde_json::Value::Object(mut v))) => {
+                v.insert("reason".into(), reason.into());
+                self.push_json(topic, &v, Kind::Alarm);
+            }
+            _ => self.push_json(topic, &r, Kind::Alarm),
+        }
     }
 
     fn publish_all_alarms(&self) {
@@ -364,7 +391,8 @@ impl Engine {
                 warn!(alarm = %c.name, priority, value = %value, unit = c.unit(), setpoint = c.spec.setpoint, "ALARM: {text}")
             }
             (Cause::Activated, true) => {
-                warn!(alarm = %c.name, priority, value = %value, unit = c.unit(), "alarm: {text}")
+                let reason = self.monitor.alarm_reason(i, t.time).unwrap_or("");
+                warn!(alarm = %c.name, priority, value = %value, unit = c.unit(), reason, "alarm: {text}")
             }
             (_, false) if !operator => {
                 info!(alarm = %c.name, to = t.to.name(), cause = ?t.cause, value = %value, "alarm change not announced (shelved, suppressed or out of service)")
@@ -454,6 +482,22 @@ impl Engine {
         let now = self.clock.now();
         let reply_topic = format!("{}/cmd/reply", self.root);
         let (id, result) = match parse_command(payload) {
+            Ok(cmd) if cmd.action.is_baseline() => {
+                let r = self.monitor.command(&cmd, now);
+                match &r {
+                    Ok(_) => {
+                        info!(id = %cmd.id, action = cmd.action.name(), zone = %cmd.alarm, by = %cmd.by, "operator command")
+                    }
+                    Err(e) => {
+                        warn!(id = %cmd.id, action = cmd.action.name(), zone = %cmd.alarm, by = %cmd.by, error = %e, "operator command refused")
+                    }
+                }
+                if r.is_ok() {
+                    // A commissioning step must survive a power cut.
+                    self.save_baselines();
+                }
+                (Some(cmd.id.clone()), r.map(|_| ()))
+            }
             Ok(cmd) => {
                 let r = self.monitor.command(&cmd, now);
                 match &r {
@@ -486,6 +530,10 @@ impl Engine {
         if let Err(e) = state::save(&self.settings.state_dir, ENERGY_FILE, &self.meter.totals) {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the energy totals");
         }
+        self.save_baselines();
+    }
+
+    fn save_baselines(&self) {
         if let Err(e) = state::save(
             &self.settings.state_dir,
             BASELINES_FILE,

@@ -199,6 +199,8 @@ pub struct Site {
     pub energy_price: Option<(f64, String)>,
     /// A firing is under way while a zone's hot face is above this, °C.
     pub firing_start_c: f64,
+    /// Batch firings, or a kiln that is always hot (`[site] operation`).
+    pub operation: Operation,
 }
 
 #[derive(Debug, Clone)]
@@ -266,6 +268,8 @@ pub struct Channel {
     pub calibration: Calibration,
     /// A change faster than this between two readings is a spike, °C/min.
     pub spike_c_per_min: f64,
+    /// A thermocouple, or a terminal sensor (`type = "terminal"`).
+    pub kind: ChannelKind,
 }
 
 /// A channel's calibration correction, `t = gain × t_raw + offset`, from a
@@ -389,6 +393,8 @@ pub struct Zone {
     pub rate_window_s: f64,
     pub layers: Vec<ZoneLayer>,
     pub probes: Vec<Probe>,
+    /// When the lining baseline begins learning (`baseline_start`).
+    pub baseline_start: BaselineStart,
 }
 
 impl Zone {
@@ -413,6 +419,39 @@ impl Settings {
             .iter()
             .position(|c| c.source == source && c.input == input)
     }
+}
+
+/// How a kiln is run (`[site] operation`), for its energy books.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize)]
+#[serde(rename_all = "snake_case")]
+pub enum Operation {
+    /// Batch firings (a periodic kiln): energy per firing as well as per day.
+    #[default]
+    Periodic,
+    /// Always hot (a tunnel or roller kiln): per day and rolling 24 h, no firings.
+    Continuous,
+}
+
+/// When a zone's lining baseline begins to learn (`[[zone]] baseline_start`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum BaselineStart {
+    /// At the first consistent state after the first run (a wall in service).
+    #[default]
+    FirstRun,
+    /// Only on the `baseline_start` command (a new or relined wall, after dry-out).
+    Command,
+}
+
+/// What a channel measures (`[[channel]] type`).
+#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+pub enum ChannelKind {
+    /// A thermocouple of the channel's `type` letter.
+    #[default]
+    Thermocouple,
+    /// `type = "terminal"`: the temperature of a box's thermocouple
+    /// terminals (an RTD or thermistor sent as °C), the cold junction of
+    /// its millivolt channels. No thermocouple type; its own plausible range.
+    Terminal,
 }
 
 #[cfg(test)]

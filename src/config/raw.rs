@@ -69,6 +69,7 @@ pub struct RawSite {
     pub energy_price_per_kwh: Option<S<f64>>,
     pub currency: Option<S<String>>,
     pub firing_start_c: Option<S<f64>>,
+    pub operation: Option<S<String>>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -243,4 +244,5 @@ pub struct RawZone {
     pub rate_window_s: Option<S<f64>>,
     pub layers: S<Vec<S<RawLayer>>>,
     pub probes: S<Vec<S<RawProbe>>>,
+    pub baseline_start: Option<S<String>>,
 }

@@ -258,11 +258,24 @@ impl Validator<'_> {
                 .firing_start_c
                 .as_ref()
                 .map_or(150.0, |f| self.finite(f, "site.firing_start_c"));
+            let operation = match s.operation.as_ref().map(|o| (o, o.get_ref().as_str())) {
+                None | Some((_, "periodic")) => Operation::Periodic,
+                Some((_, "continuous")) => Operation::Continuous,
+                Some((o, other)) => {
+                    self.problem(
+                        o.span(),
+                        "site.operation",
+                        format!("{other:?} is not an operation; use \"periodic\" (batch firings) or \"continuous\" (always hot)"),
+                    );
+                    Operation::Periodic
+                }
+            };
             Site {
                 plant: self.name(&s.plant, "site.plant"),
                 kiln: self.name(&s.kiln, "site.kiln"),
                 energy_price,
                 firing_start_c,
+                operation,
             }
         };
         let state_dir = match &raw.state_dir {
@@ -319,7 +332,7 @@ impl Validator<'_> {
                 format!("at most {MAX_CHANNELS} channels are supported"),
             );
         }
-        let channels: Vec<Channel> = raw
+        let mut channels: Vec<Channel> = raw
             .channel
             .iter()
             .enumerate()
@@ -358,6 +371,17 @@ impl Validator<'_> {
             match channels.iter().position(|x| x.name.as_str() == c.get_ref()) {
                 Some(ci) if channels[ci].source == i && channels[ci].signal == Signal::Celsius => {
                     sources[i].cj_channel = Some(ci);
+                    // Whatever its `type` says, it measures terminals: it is
+                    // diagnosed as a terminal sensor (older files gave it a
+                    // thermocouple letter, which meant nothing for it).
+                    channels[ci].kind = ChannelKind::Terminal;
+                    if let Some(f) = &rs.get_ref().cj_c {
+                        self.problem(
+                            f.span(),
+                            format!("source[{i}].cj_c"),
+                            "cj_c and cj_channel exclude each other: with a cold-junction sensor, its failure makes the millivolt channels invalid instead of a fixed value silently standing in",
+                        );
+                    }
                 }
                 Some(_) => self.problem(
                     c.span(),
@@ -403,6 +427,38 @@ impl Validator<'_> {
                 path: "zone".into(),
                 message: "at least one [[zone]] is needed".into(),
             });
+        }
+
+        // A terminal sensor measures a box, not a wall.
+        for (zi, (z, rz)) in zones.iter().zip(&raw.zone).enumerate() {
+            let terminal = |c: usize| {
+                channels
+                    .get(c)
+                    .is_some_and(|c| c.kind == ChannelKind::Terminal)
+            };
+            for (pi, (pr, rp)) in z
+                .probes
+                .iter()
+                .zip(rz.get_ref().probes.get_ref())
+                .enumerate()
+            {
+                if terminal(pr.channel) {
+                    self.problem(
+                        rp.get_ref().channel.span(),
+                        format!("zone[{zi}].probes[{pi}].channel"),
+                        format!("{:?} is a terminal (cold-junction) sensor, not a thermocouple in the wall", channels[pr.channel].name),
+                    );
+                }
+            }
+            if let (Some(hf), Some(r)) = (z.hot_face_channel, &rz.get_ref().hot_face_channel) {
+                if terminal(hf) {
+                    self.problem(
+                        r.span(),
+                        format!("zone[{zi}].hot_face_channel"),
+                        "a terminal (cold-junction) sensor cannot read the hot face",
+                    );
+                }
+            }
         }
 
         let defaults = raw.alarm_defaults.as_ref().map(|d| d.get_ref());
@@ -1049,14 +1105,17 @@ impl Validator<'_> {
                 0
             }
         };
+        let terminal = c.tc_type.get_ref() == "terminal";
         let tc_type = match TcType::from_letter(c.tc_type.get_ref()) {
+            // A terminal sensor has no thermocouple type (K only fills the field).
+            _ if terminal => TcType::K,
             Some(t) if c.tc_type.get_ref().len() == 1 => t,
             _ => {
                 self.problem(
                     c.tc_type.span(),
                     p("type"),
                     format!(
-                        "{:?} is not a thermocouple type; use one of B E J K N R S T",
+                        "{:?} is not a thermocouple type; use one of B E J K N R S T, or \"terminal\" for a box's terminal (cold-junction) sensor",
                         c.tc_type.get_ref()
                     ),
                 );
@@ -1131,10 +1190,22 @@ impl Validator<'_> {
         if let Some(i) = &c.calibration_interval_days {
             calibration.interval_days = self.positive(i, &p("calibration_interval_days"), "days");
         }
-        let spike_c_per_min = c
-            .spike_c_per_min
-            .as_ref()
-            .map_or(60.0, |v| self.positive(v, &p("spike_c_per_min"), "°C/min"));
+        let spike_c_per_min = c.spike_c_per_min.as_ref().map_or(
+            if terminal {
+                crate::monitor::channel::TERMINAL_SPIKE_C_PER_MIN
+            } else {
+                60.0
+            },
+            |v| self.positive(v, &p("spike_c_per_min"), "°C/min"),
+        );
+        if terminal && signal == Signal::Millivolts {
+            let span = c.signal.as_ref().map(|s| s.span()).unwrap_or_default();
+            self.problem(
+                span,
+                p("signal"),
+                "a terminal sensor is read in °C: leave signal out or write \"celsius\"",
+            );
+        }
         Channel {
             name,
             source,
@@ -1145,6 +1216,11 @@ impl Validator<'_> {
             uncertainty_c,
             calibration,
             spike_c_per_min,
+            kind: if terminal {
+                ChannelKind::Terminal
+            } else {
+                ChannelKind::Thermocouple
+            },
         }
     }
 
@@ -1376,6 +1452,18 @@ impl Validator<'_> {
             }
             i
         });
+        let baseline_start = match z.baseline_start.as_ref().map(|b| (b, b.get_ref().as_str())) {
+            None | Some((_, "first_run")) => BaselineStart::FirstRun,
+            Some((_, "command")) => BaselineStart::Command,
+            Some((b, other)) => {
+                self.problem(
+                    b.span(),
+                    p("baseline_start"),
+                    format!("{other:?} is not a baseline start; use \"first_run\" or \"command\""),
+                );
+                BaselineStart::FirstRun
+            }
+        };
         let lining_min_mm = z
             .lining_min_mm
             .as_ref()
@@ -1558,6 +1646,7 @@ impl Validator<'_> {
             rate_window_s,
             layers,
             probes,
+            baseline_start,
         }
     }
 }

@@ -332,6 +332,10 @@ impl AlarmEngine {
             Action::Reset => a.reset(&cmd.by, now),
             Action::OutOfService => a.set_out_of_service(true, &cmd.by, now),
             Action::InService => a.set_out_of_service(false, &cmd.by, now),
+            // Zone baseline commands are the monitor's, never an alarm's.
+            Action::BaselineStart | Action::BaselineStop | Action::BaselineReset => {
+                return Err(CommandError::UnknownAlarm(cmd.alarm.clone()))
+            }
         }?;
         self.record(i, Some(t), now);
         Ok(i)

@@ -4,7 +4,7 @@
 use serde::Serialize;
 
 use crate::acquire::line::{Unit, Value};
-use crate::config::{Channel, Name, Signal};
+use crate::config::{Channel, ChannelKind, Name, Signal};
 use crate::physics::thermocouple::{self, TcError};
 use crate::physics::tolerance;
 use crate::time::Timestamp;
@@ -96,6 +96,37 @@ impl Default for ChannelState {
 /// Readings in a row at a new level that make a step real, not a spike.
 pub const SPIKE_CONFIRMATIONS: u8 = 3;
 
+/// Plausible range of a box's terminal temperature, °C: the industrial
+/// temperature grade of electronic components, −40 to +85 °C (common
+/// practice for field enclosures and their input modules). Beyond it the
+/// terminal sensor or its wiring is faulty, or the box is outside its
+/// rating and its readings cannot be trusted either.
+pub const TERMINAL_MIN_C: f64 = -40.0;
+pub const TERMINAL_MAX_C: f64 = 85.0;
+/// Default spike limit of a terminal sensor, °C/min (a choice of ours): a
+/// terminal block is a small thermal mass inside an enclosure, warmed by the
+/// box and the room; a faster move is a wiring or sensor fault, not heat.
+pub const TERMINAL_SPIKE_C_PER_MIN: f64 = 10.0;
+
+/// Why a source's millivolt channels have no valid reading when its
+/// cold-junction (terminal) sensor is not `ok`, in words.
+pub fn cold_junction_reason(terminal: Health) -> &'static str {
+    match terminal {
+        Health::Open => "cold-junction (terminal) sensor open: no compensation possible",
+        Health::OutOfRange => {
+            "cold-junction (terminal) sensor outside its plausible range: no compensation possible"
+        }
+        Health::Spike => {
+            "cold-junction (terminal) sensor jumped (held as a spike): compensation withheld"
+        }
+        Health::Stale => {
+            "no fresh reading from the cold-junction (terminal) sensor: no compensation possible"
+        }
+        Health::NoData => "no reading yet from the cold-junction (terminal) sensor",
+        _ => "cold-junction (terminal) sensor faulty: no compensation possible",
+    }
+}
+
 impl ChannelState {
     /// Health at `now` given the staleness limit.
     pub fn health_at(&self, now: Timestamp, stale_after_s: f64) -> (Health, &'static str) {
@@ -167,6 +198,9 @@ pub fn convert(
     value: Value,
     cj_c: Option<f64>,
 ) -> Result<f64, (Health, &'static str)> {
+    if channel.kind == ChannelKind::Terminal {
+        return convert_terminal(value);
+    }
     let (v, unit) = match value {
         Value::Open => return Err((Health::Open, "the source reports an open thermocouple")),
         Value::Reading { value, unit } => (value, unit),
@@ -212,6 +246,28 @@ pub fn convert(
     }
 }
 
+/// A terminal sensor's value: °C within the plausible terminal range
+/// ([`TERMINAL_MIN_C`] to [`TERMINAL_MAX_C`]).
+fn convert_terminal(value: Value) -> Result<f64, (Health, &'static str)> {
+    match value {
+        Value::Open => Err((Health::Open, "the source reports the terminal sensor open")),
+        Value::Reading {
+            unit: Unit::Millivolts,
+            ..
+        } => Err((
+            Health::Invalid,
+            "millivolts received from a terminal sensor (it is read in °C)",
+        )),
+        Value::Reading { value, .. } if (TERMINAL_MIN_C..=TERMINAL_MAX_C).contains(&value) => {
+            Ok(value)
+        }
+        Value::Reading { .. } => Err((
+            Health::OutOfRange,
+            "terminal temperature outside the plausible -40 to 85 °C of a field box (sensor or wiring fault)",
+        )),
+    }
+}
+
 /// Standard uncertainty of a reading at `t_c`: the measured one if
 /// configured, else the tolerance class as a rectangular bound / √3
 /// (GUM 4.3.7), extended from the nearest end of the class's stated range
@@ -219,6 +275,12 @@ pub fn convert(
 pub fn sigma_c(channel: &Channel, t_c: f64) -> f64 {
     if let Some(u) = channel.uncertainty_c {
         return u;
+    }
+    if channel.kind == ChannelKind::Terminal {
+        // A terminal sensor without a stated uncertainty: the platinum
+        // resistance class B tolerance ±(0.30 + 0.005 |t|) °C (IEC 60751,
+        // from memory) as a rectangular bound.
+        return (0.30 + 0.005 * t_c.abs()) / 3f64.sqrt();
     }
     let bound = tolerance::tolerance_or_nearest_c(channel.tolerance, channel.tc_type, t_c)
         .map(|n| n.tolerance_c)
@@ -243,9 +305,29 @@ pub struct ChannelReport {
     pub reason: &'static str,
     pub source: Name,
     pub input: u8,
+    /// The thermocouple letter, or `terminal`.
     #[serde(rename = "type")]
-    pub tc_type: char,
+    pub tc_type: &'static str,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub calibration_date: Option<Timestamp>,
     pub calibration_overdue: bool,
+}
+
+/// The `type` of a channel as published: its thermocouple letter, or
+/// `terminal`.
+pub fn type_name(channel: &Channel) -> &'static str {
+    use crate::physics::thermocouple::TcType;
+    if channel.kind == ChannelKind::Terminal {
+        return "terminal";
+    }
+    match channel.tc_type {
+        TcType::B => "B",
+        TcType::E => "E",
+        TcType::J => "J",
+        TcType::K => "K",
+        TcType::N => "N",
+        TcType::R => "R",
+        TcType::S => "S",
+        TcType::T => "T",
+    }
 }

@@ -17,6 +17,14 @@
 //! - `minutes` (required for `shelve`, checked wherever present): above 0,
 //!   at most [`MAX_SHELVE_MIN`].
 //!
+//! A zone's lining baseline takes `baseline_start`, `baseline_stop` and
+//! `baseline_reset`, with `zone` (the zone's configured name) in place of
+//! `alarm`:
+//!
+//! ```json
+//! {"id": "c-18", "action": "baseline_start", "zone": "side-wall", "by": "j.smith"}
+//! ```
+//!
 //! Text fields are 1 to [`MAX_TEXT_CHARS`] characters with no control
 //! characters and no invisible bidirectional or zero-width formatting
 //! characters, so an audit line reads as what it says. Unknown keys are
@@ -48,6 +56,12 @@ pub enum Action {
     Reset,
     OutOfService,
     InService,
+    /// A zone's lining baseline: start learning.
+    BaselineStart,
+    /// End learning now and use what is learned.
+    BaselineStop,
+    /// Forget the baseline (after a reline).
+    BaselineReset,
 }
 
 impl Action {
@@ -60,7 +74,19 @@ impl Action {
             Action::Reset => "reset",
             Action::OutOfService => "out_of_service",
             Action::InService => "in_service",
+            Action::BaselineStart => "baseline_start",
+            Action::BaselineStop => "baseline_stop",
+            Action::BaselineReset => "baseline_reset",
         }
+    }
+
+    /// Whether the action addresses a zone's lining baseline (`zone`)
+    /// rather than an alarm (`alarm`).
+    pub fn is_baseline(self) -> bool {
+        matches!(
+            self,
+            Action::BaselineStart | Action::BaselineStop | Action::BaselineReset
+        )
     }
 
     fn from_name(name: &str) -> Option<Self> {
@@ -71,6 +97,9 @@ impl Action {
             "reset" => Action::Reset,
             "out_of_service" => Action::OutOfService,
             "in_service" => Action::InService,
+            "baseline_start" => Action::BaselineStart,
+            "baseline_stop" => Action::BaselineStop,
+            "baseline_reset" => Action::BaselineReset,
             _ => return None,
         })
     }
@@ -81,6 +110,8 @@ impl Action {
 pub struct Command {
     pub id: String,
     pub action: Action,
+    /// What the command addresses: the alarm's name, or for the baseline
+    /// actions ([`Action::is_baseline`]) the zone's name (`zone` on the wire).
     pub alarm: String,
     pub by: String,
     /// The shelve duration (always present for [`Action::Shelve`]).
@@ -115,7 +146,7 @@ pub enum CommandError {
     #[error("field \"{0}\" contains a control or invisible formatting character")]
     ControlCharacter(&'static str),
     /// The action is none of the known ones.
-    #[error("unknown action \"{0}\" (expected ack, shelve, unshelve, reset, out_of_service or in_service)")]
+    #[error("unknown action \"{0}\" (expected ack, shelve, unshelve, reset, out_of_service, in_service, baseline_start, baseline_stop or baseline_reset)")]
     UnknownAction(String),
     /// No alarm of that name is configured.
     #[error("unknown alarm \"{0}\"")]
@@ -144,6 +175,17 @@ pub enum CommandError {
     /// The alarm is already in service.
     #[error("the alarm is already in service")]
     AlreadyInService,
+    /// No zone of that name is configured.
+    #[error("unknown zone \"{0}\"")]
+    UnknownZone(String),
+    /// The zone has no lining baseline (it needs `model = "layered"` and a `hot_face_channel`).
+    #[error(
+        "zone \"{0}\" has no lining baseline (it needs model = \"layered\" and a hot_face_channel)"
+    )]
+    NoBaseline(String),
+    /// The baseline refused the command in its present state.
+    #[error("{0}")]
+    Baseline(#[from] crate::monitor::lining::BaselineError),
 }
 
 impl CommandError {
@@ -168,6 +210,18 @@ impl CommandError {
             CommandError::NotShelved => "not_shelved",
             CommandError::AlreadyOutOfService => "already_out_of_service",
             CommandError::AlreadyInService => "already_in_service",
+            CommandError::UnknownZone(_) => "unknown_zone",
+            CommandError::NoBaseline(_) => "no_baseline",
+            CommandError::Baseline(e) => {
+                use crate::monitor::lining::BaselineError as B;
+                match e {
+                    B::AlreadyLearning => "baseline_already_learning",
+                    B::AlreadyLearned => "baseline_already_learned",
+                    B::NotLearning => "baseline_not_learning",
+                    B::NotReady => "baseline_not_ready",
+                    B::NothingToReset => "baseline_nothing_to_reset",
+                }
+            }
         }
     }
 }
@@ -210,6 +264,7 @@ struct Raw {
     alarm: Option<Value>,
     by: Option<Value>,
     minutes: Option<Value>,
+    zone: Option<Value>,
 }
 
 fn text(value: Option<Value>, field: &'static str) -> Result<String, CommandError> {
@@ -244,7 +299,11 @@ pub fn parse_command(payload: &[u8]) -> Result<Command, CommandError> {
     let id = text(raw.id, "id")?;
     let action_text = text(raw.action, "action")?;
     let action = Action::from_name(&action_text).ok_or(CommandError::UnknownAction(action_text))?;
-    let alarm = text(raw.alarm, "alarm")?;
+    let alarm = if action.is_baseline() {
+        text(raw.zone, "zone")?
+    } else {
+        text(raw.alarm, "alarm")?
+    };
     let by = text(raw.by, "by")?;
     let minutes = match raw.minutes {
         None => None,
@@ -340,6 +399,35 @@ mod tests {
         )
         .unwrap();
         assert_eq!((c.action, c.minutes), (Action::Shelve, Some(30.0)));
+    }
+
+    /// The baseline actions name a `zone`, not an `alarm`: without one
+    /// they are refused, and an `alarm` key does not stand in for it.
+    #[test]
+    fn baseline_actions_take_a_zone() {
+        for (name, action) in [
+            ("baseline_start", Action::BaselineStart),
+            ("baseline_stop", Action::BaselineStop),
+            ("baseline_reset", Action::BaselineReset),
+        ] {
+            let c = parse(&format!(
+                r#"{{"id":"b-1","action":"{name}","zone":"side-wall","by":"j.smith"}}"#
+            ))
+            .unwrap();
+            assert_eq!((c.action, c.alarm.as_str()), (action, "side-wall"));
+            assert!(c.action.is_baseline() && c.action.name() == name);
+            assert_eq!(
+                parse(&format!(
+                    r#"{{"id":"b-1","action":"{name}","alarm":"side-wall","by":"j.smith"}}"#
+                )),
+                Err(CommandError::MissingField("zone"))
+            );
+        }
+        assert_eq!(
+            parse(r#"{"id":"b","action":"baseline_start","zone":7,"by":"x"}"#),
+            Err(CommandError::WrongType("zone"))
+        );
+        assert!(!Action::Ack.is_baseline());
     }
 
     #[test]

@@ -19,7 +19,7 @@ use std::sync::Arc;
 use heapless::Deque;
 
 use crate::acquire::line::{Frame, Value};
-use crate::config::Settings;
+use crate::config::{BaselineStart, Model, Settings, Zone};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
 use alarm_engine::{AlarmEngine, AlarmOutput, AlarmReport};
@@ -102,7 +102,13 @@ impl Monitor {
             .zones
             .iter()
             .enumerate()
-            .map(|(i, z)| ZoneEngine::new(i, z, &settings.materials, start))
+            .map(|(i, z)| {
+                let mut e = ZoneEngine::new(i, z, &settings.materials, start);
+                if has_baseline(z) && z.baseline_start == BaselineStart::FirstRun {
+                    e.baseline = lining::Baseline::learning_from_first_state();
+                }
+                e
+            })
             .collect();
         Monitor {
             channels: vec![ChannelState::default(); n],
@@ -136,29 +142,31 @@ impl Monitor {
 
     /// A line-protocol frame from source `source`, received at `now`.
     /// The cold junction: the frame's `cj=`, else the source's
-    /// cold-junction channel (its value in this frame, or its latest valid
-    /// reading no older than the source's silence limit), else the
-    /// source's fixed `cj_c`.
+    /// cold-junction (terminal) sensor (its value in this frame, or its
+    /// latest reading while it is `ok`), else the source's fixed `cj_c`. A
+    /// terminal sensor that is not `ok` makes the frame's millivolt values
+    /// invalid, with the sensor's fault as their reason.
     pub fn handle_frame(&mut self, source: usize, frame: &Frame, now: Timestamp) {
         let src = &self.settings.sources[source];
         let cj_channel = src.cj_channel;
-        let mut cj = frame.cj_c;
-        if let Some(cc) = cj_channel {
-            let input = self.settings.channels[cc].input;
-            if let Some(&(_, v)) = frame.values.iter().find(|(i, _)| *i == input) {
-                self.handle_value(cc, v, None, now);
+        let cj = match (frame.cj_c, cj_channel) {
+            (Some(c), _) => Ok(Some(c)),
+            (None, Some(cc)) => {
+                let input = self.settings.channels[cc].input;
+                if let Some(&(_, v)) = frame.values.iter().find(|(i, _)| *i == input) {
+                    self.apply_value(cc, v, Ok(None), now);
+                }
+                self.cold_junction_c(cc, now).map(Some)
             }
-            let limit = self.settings.sources[source].silence_s;
-            cj = cj.or(self.channels[cc].fresh(now, limit).map(|r| r.celsius));
-        }
-        let cj = cj.or(self.settings.sources[source].cj_c);
+            (None, None) => Ok(self.settings.sources[source].cj_c),
+        };
         for &(input, value) in &frame.values {
             let channel = self.settings.channel_for(source, input);
             if channel.is_some() && channel == cj_channel {
                 continue; // handled first, above
             }
             match channel {
-                Some(ch) => self.handle_value(ch, value, cj, now),
+                Some(ch) => self.apply_value(ch, value, cj, now),
                 None => {
                     self.unknown_inputs += 1;
                     let seen = &mut self.unknown_inputs_seen[source][usize::from(input.min(64))];
@@ -171,13 +179,61 @@ impl Monitor {
         }
     }
 
+    /// The temperature of cold-junction (terminal) sensor `cc` at `now`,
+    /// or, when it is not `ok`, why not (in words, for the millivolt
+    /// channels it compensates).
+    fn cold_junction_c(&self, cc: usize, now: Timestamp) -> Result<f64, &'static str> {
+        let (health, _) = self.channels[cc].health_at(now, self.stale_after_s[cc]);
+        match self.channels[cc].latest {
+            Some(r) if health == Health::Ok => Ok(r.celsius),
+            _ => Err(channel::cold_junction_reason(health)),
+        }
+    }
+
     /// One value for channel `ch` (from a frame, or a samples file), with
-    /// the cold-junction temperature that applies to it.
+    /// the cold-junction temperature that applies to it. A millivolt
+    /// channel whose source has a cold-junction sensor that is not `ok` is
+    /// invalid whatever `cj_c` says.
     pub fn handle_value(&mut self, ch: usize, value: Value, cj_c: Option<f64>, now: Timestamp) {
         let Some(cfg) = self.settings.channels.get(ch) else {
             return;
         };
-        let result = channel::convert(cfg, value, cj_c);
+        let cj = match self
+            .settings
+            .sources
+            .get(cfg.source)
+            .and_then(|s| s.cj_channel)
+        {
+            Some(cc) if cc != ch && cfg.signal == crate::config::Signal::Millivolts => {
+                self.cold_junction_c(cc, now).map(|_| cj_c)
+            }
+            _ => Ok(cj_c),
+        };
+        self.apply_value(ch, value, cj, now);
+    }
+
+    /// One value for channel `ch` with its cold junction: a temperature (or
+    /// none), or the reason its cold-junction sensor gives none.
+    fn apply_value(
+        &mut self,
+        ch: usize,
+        value: Value,
+        cj: Result<Option<f64>, &'static str>,
+        now: Timestamp,
+    ) {
+        let Some(cfg) = self.settings.channels.get(ch) else {
+            return;
+        };
+        let result = match (value, cj) {
+            (
+                Value::Reading {
+                    unit: crate::acquire::line::Unit::Millivolts,
+                    ..
+                },
+                Err(reason),
+            ) if cfg.signal == crate::config::Signal::Millivolts => Err((Health::Invalid, reason)),
+            (_, cj) => channel::convert(cfg, value, cj.ok().flatten()),
+        };
         if let Some(seen) = self.source_seen.get_mut(cfg.source) {
             *seen = Some(now);
         }
@@ -228,7 +284,11 @@ impl Monitor {
             self.check_health(ch, due);
         }
         let interval = self.settings.zones[i].interval_s;
-        let report = self.zones[i].cycle(&self.settings, &self.channels, due);
+        let mut report = self.zones[i].cycle(&self.settings, &self.channels, due);
+        let zone = &self.settings.zones[i];
+        if has_baseline(zone) {
+            report.lining_baseline = Some(self.zones[i].baseline.report(due, zone.baseline_days));
+        }
         self.zones[i].next_due = due.plus_s(interval);
         // Zone-level faults (stuck, outlier) become the channels' health.
         let settings = self.settings.clone();
@@ -261,16 +321,55 @@ impl Monitor {
             .collect()
     }
 
-    /// Restores saved baselines by zone name.
+    /// Restores saved baselines by zone name; returns, per zone, a note
+    /// for the log when a saved baseline came from an earlier version.
     pub fn restore_baselines(
         &mut self,
         saved: &std::collections::BTreeMap<String, lining::Baseline>,
-    ) {
+    ) -> Vec<(String, &'static str)> {
+        let mut notes = Vec::new();
         for (e, z) in self.zones.iter_mut().zip(&self.settings.zones) {
             if let Some(b) = saved.get(z.name.as_str()) {
                 e.baseline = b.clone();
+                if let Some(note) = e.baseline.upgrade() {
+                    notes.push((z.name.to_string(), note));
+                }
             }
         }
+        notes
+    }
+
+    /// The lining baseline of zone `zone` (by name), when it has one.
+    pub fn baseline(&self, zone: &str) -> Option<&lining::Baseline> {
+        let i = self
+            .settings
+            .zones
+            .iter()
+            .position(|z| z.name.as_str() == zone)?;
+        has_baseline(&self.settings.zones[i]).then(|| &self.zones[i].baseline)
+    }
+
+    /// A baseline command (`baseline_start`, `baseline_stop`,
+    /// `baseline_reset`) for the zone named in `cmd.alarm`; `Ok(zone index)`.
+    fn baseline_command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+        let i = self
+            .settings
+            .zones
+            .iter()
+            .position(|z| z.name.as_str() == cmd.alarm)
+            .ok_or_else(|| CommandError::UnknownZone(cmd.alarm.clone()))?;
+        let zone = &self.settings.zones[i];
+        if !has_baseline(zone) {
+            return Err(CommandError::NoBaseline(cmd.alarm.clone()));
+        }
+        let days = zone.baseline_days;
+        let b = &mut self.zones[i].baseline;
+        match cmd.action {
+            command::Action::BaselineStart => b.start(&cmd.by, now, days)?,
+            command::Action::BaselineStop => b.stop(&cmd.by, now, days)?,
+            _ => b.reset(&cmd.by, now, days)?,
+        }
+        Ok(i)
     }
 
     /// Number of cycles zone `i` has run.
@@ -298,7 +397,7 @@ impl Monitor {
             reason,
             source: self.settings.sources[cfg.source].name.clone(),
             input: cfg.input,
-            tc_type: cfg.tc_type.letter(),
+            tc_type: channel::type_name(cfg),
             calibration_date: cfg.calibration.date,
             calibration_overdue: cfg.calibration.overdue(now),
         })
@@ -332,6 +431,24 @@ impl Monitor {
         self.alarms.tick(now);
     }
 
+    /// For a channel-fault alarm (`{channel}-fault`) whose channel is not
+    /// `ok` at `now`: the channel's reason, in words (e.g. its cold
+    /// junction's failure).
+    pub fn alarm_reason(&self, alarm: usize, now: Timestamp) -> Option<&'static str> {
+        let c = self.alarms.configs().get(alarm)?;
+        let crate::config::AlarmTarget::Channel { channel, health } = c.target else {
+            return None;
+        };
+        if !health && c.spec.kind != alarm::AlarmKind::Diagnostic {
+            return None;
+        }
+        let (h, reason) = self
+            .channels
+            .get(channel)?
+            .health_at(now, self.stale_after_s[channel]);
+        (h != Health::Ok && h != Health::NoData).then_some(reason)
+    }
+
     /// Whether source `s` is silent (no value within its silence limit).
     pub fn source_silent(&self, s: usize) -> bool {
         self.source_silent.get(s).copied().unwrap_or(false)
@@ -342,8 +459,12 @@ impl Monitor {
         self.alarms.poll()
     }
 
-    /// An operator command; `Ok(alarm index)` when accepted.
+    /// An operator command; `Ok(alarm index)` when accepted (for the
+    /// baseline actions, `Ok(zone index)`).
     pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+        if cmd.action.is_baseline() {
+            return self.baseline_command(cmd, now);
+        }
         self.alarms.command(cmd, now)
     }
 
@@ -372,4 +493,10 @@ impl Monitor {
             .map(|z| z.next_due)
             .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
     }
+}
+
+/// Whether a zone keeps a lining baseline: the layered model with a
+/// reading at the hot face (`hot_face_channel`).
+pub fn has_baseline(zone: &Zone) -> bool {
+    zone.model == Model::Layered && zone.hot_face_channel.is_some()
 }

@@ -144,6 +144,10 @@ pub struct ZoneReport {
     pub probes_used: u8,
     pub uncertainty: Option<Uncertainty>,
     pub probes: HVec<ProbeReport, MAX_PROBES>,
+    /// Layered model with a hot-face reading: the lining baseline's state
+    /// and dates (set by the monitor after the cycle).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub lining_baseline: Option<super::lining::BaselineReport>,
 }
 
 /// Per-probe state kept between cycles.
@@ -346,6 +350,7 @@ impl ZoneEngine {
             probes_used: samples.len() as u8,
             uncertainty: None,
             probes,
+            lining_baseline: None,
         };
         if zone.model == Model::Transient {
             self.transient_cycle(settings, &samples, &mut report, now);
