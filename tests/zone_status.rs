@@ -295,3 +295,60 @@ fn quadratic_zone_without_redundancy_is_unconfirmed_when_the_surface_disagrees()
     assert_eq!(r.status, ZoneStatus::Ok, "{r:?}");
     assert!(r.heat_loss_w.unwrap() > 0.0);
 }
+
+/// A withheld number is bad quality for the alarms on it (ISA-18.2: bad
+/// quality holds the state): an active heat-loss alarm stays active and
+/// unacknowledged while the zone is `not_steady` and its loss null, and
+/// does not return to normal by itself; its value reads null.
+#[test]
+fn a_withheld_number_neither_clears_nor_raises_an_alarm() {
+    use wallflux::monitor::alarm::AlarmState;
+    let depths = [40.0, 120.0, 200.0, 290.0, 345.0];
+    let layers =
+        "{ material = \"dense\", thickness_mm = 230 }, { material = \"ifb\", thickness_mm = 115 }";
+    let text = config("layered", layers, &depths)
+        + "[[alarm]]\nname = \"z-loss-high\"\nzone = \"z\"\nquantity = \"heat_loss_w\"\nkind = \"high\"\nsetpoint = 2000.0\n\
+           [[alarm]]\nname = \"z-flux-high\"\nzone = \"z\"\nquantity = \"flux_hot_face_w_m2\"\nkind = \"high\"\nsetpoint = 5000.0\n";
+    let mut rig = Rig::new(&text, 1000.0);
+    let loss = rig
+        .settings
+        .alarms
+        .iter()
+        .position(|a| a.name == "z-loss-high")
+        .unwrap();
+    let flux = rig
+        .settings
+        .alarms
+        .iter()
+        .position(|a| a.name == "z-flux-high")
+        .unwrap();
+    let now = |rig: &Rig| Timestamp::from_epoch_s(T0 + rig.t_s);
+    for _ in 0..20 {
+        rig.minute(1000.0);
+    }
+    while rig.m.poll_alarm().is_some() {}
+    assert_eq!(
+        rig.m.alarms().state(loss, now(&rig)),
+        AlarmState::Unacknowledged
+    );
+    assert_eq!(rig.m.alarms().state(flux, now(&rig)), AlarmState::Normal);
+    // Cut the fire: the hot face drops 300 K and the steady model is
+    // contradicted while the wall cools fast.
+    let mut withheld = 0;
+    for _ in 0..30 {
+        for r in rig.minute(700.0) {
+            if r.status == ZoneStatus::NotSteady {
+                withheld += 1;
+                assert_eq!(r.heat_loss_w, None);
+                assert_eq!(
+                    rig.m.alarms().state(loss, now(&rig)),
+                    AlarmState::Unacknowledged,
+                    "a null does not clear the alarm"
+                );
+                assert_eq!(rig.m.alarm_report(loss, now(&rig)).value, None);
+                assert_eq!(rig.m.alarms().state(flux, now(&rig)), AlarmState::Normal);
+            }
+        }
+    }
+    assert!(withheld > 10, "not_steady in {withheld} of 30 cycles");
+}
