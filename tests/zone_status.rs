@@ -352,3 +352,68 @@ fn a_withheld_number_neither_clears_nor_raises_an_alarm() {
     }
     assert!(withheld > 10, "not_steady in {withheld} of 30 cycles");
 }
+
+/// `fallback = "transient"`: the same layered zone and heat-up as case (a)
+/// publishes, while its steady model is `not_steady`, the transient view's
+/// numbers, saying so in `model_used`; they pass the physical checks and
+/// follow the simulator's wall (heat loss within 2 % of the simulator's
+/// once the shell has warmed 10 K: 0.1 % seen; the margin is for the
+/// estimator's coarser grid).
+#[test]
+fn a_steady_zone_with_a_transient_fallback_publishes_its_numbers_through_a_heat_up() {
+    let depths = [40.0, 120.0, 200.0, 290.0, 345.0];
+    let layers =
+        "{ material = \"dense\", thickness_mm = 230 }, { material = \"ifb\", thickness_mm = 115 }";
+    let text = config("layered", layers, &depths).replace(
+        "model = \"layered\"\n",
+        "model = \"layered\"\nfallback = \"transient\"\n",
+    );
+    let mut rig = Rig::new(&text, 20.0);
+    let mut from_transient = 0;
+    let mut worst_pct: f64 = 0.0;
+    for minute in 1..=(9 * 60) {
+        let hot = (20.0 + 100.0 * minute as f64 / 60.0).min(1000.0);
+        for r in rig.minute(hot) {
+            assert_plausible_while_heating(&rig, &r, Some(4));
+            assert_eq!(r.model, "layered");
+            if r.model_used == Some("transient") {
+                from_transient += 1;
+                assert!(r.status <= ZoneStatus::Degraded, "{:?}", r.status);
+                let loss = r.heat_loss_w.expect("the transient view's loss");
+                let truth = rig.sim.flux_at(0.345) * 4.0;
+                if rig.sim.shell_c() > AMBIENT_C + 10.0 {
+                    worst_pct = worst_pct.max(((loss - truth) / truth * 100.0).abs());
+                }
+                assert!(r.hot_face_c.is_some());
+            } else {
+                assert_eq!(r.model_used, Some("layered"));
+            }
+        }
+    }
+    assert!(
+        from_transient > 300,
+        "{from_transient} of 540 from the transient view"
+    );
+    assert!(worst_pct < 2.0, "heat loss off by {worst_pct:.1} %");
+}
+
+#[test]
+fn fallback_is_checked() {
+    let layers = "{ material = \"ifb\", thickness_mm = 280 }";
+    let base = config("quadratic", layers, &[30.0, 120.0, 200.0]);
+    let bad = base.replace(
+        "model = \"quadratic\"\n",
+        "model = \"quadratic\"\nfallback = \"layered\"\n",
+    );
+    let e = config::parse(&bad, "t", None).unwrap_err().to_string();
+    assert!(
+        e.contains("zone[0].fallback") && e.contains("\"transient\""),
+        "{e}"
+    );
+    let own = config("transient", layers, &[30.0, 120.0, 200.0]).replace(
+        "model = \"transient\"\n",
+        "model = \"transient\"\nfallback = \"transient\"\n",
+    );
+    let e = config::parse(&own, "t", None).unwrap_err().to_string();
+    assert!(e.contains("zone[0].fallback"), "{e}");
+}

@@ -389,6 +389,9 @@ pub struct Zone {
     pub rate_window_s: f64,
     pub layers: Vec<ZoneLayer>,
     pub probes: Vec<Probe>,
+    /// The model whose numbers a steady zone publishes while its own model
+    /// is `not_steady` (only `transient`, for a quadratic or layered zone).
+    pub fallback: Option<Model>,
 }
 
 impl Zone {

@@ -243,4 +243,5 @@ pub struct RawZone {
     pub rate_window_s: Option<S<f64>>,
     pub layers: S<Vec<S<RawLayer>>>,
     pub probes: S<Vec<S<RawProbe>>>,
+    pub fallback: Option<S<String>>,
 }

@@ -180,6 +180,11 @@ pub struct ZoneReport {
     pub probes_used: u8,
     pub uncertainty: Option<Uncertainty>,
     pub probes: HVec<ProbeReport, MAX_PROBES>,
+    /// A zone with a `fallback`: the model that produced these numbers
+    /// (the zone's own, or `transient` while its steady model is
+    /// `not_steady`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub model_used: Option<&'static str>,
 }
 
 /// Per-probe state kept between cycles.
@@ -212,23 +217,24 @@ impl ZoneEngine {
     pub fn new(index: usize, zone: &Zone, materials: &[NamedMaterial], start: Timestamp) -> Self {
         // The transient estimator is built once (its covariance is large):
         // no allocation per cycle.
-        let transient = (zone.model == Model::Transient).then(|| {
-            let layers: Vec<TransientLayer<'_>> = zone
-                .layers
-                .iter()
-                .filter_map(|l| {
-                    materials.get(l.material).map(|m| TransientLayer {
-                        material: &m.material,
-                        thickness_m: l.thickness_m,
+        let transient = (zone.model == Model::Transient || zone.fallback == Some(Model::Transient))
+            .then(|| {
+                let layers: Vec<TransientLayer<'_>> = zone
+                    .layers
+                    .iter()
+                    .filter_map(|l| {
+                        materials.get(l.material).map(|m| TransientLayer {
+                            material: &m.material,
+                            thickness_m: l.thickness_m,
+                        })
                     })
-                })
-                .collect();
-            let settings = TransientSettings {
-                cells_per_layer: zone.cells_per_layer,
-                ..TransientSettings::default()
-            };
-            TransientEstimator::new(&layers, zone.surface, settings).map(Box::new)
-        });
+                    .collect();
+                let settings = TransientSettings {
+                    cells_per_layer: zone.cells_per_layer,
+                    ..TransientSettings::default()
+                };
+                TransientEstimator::new(&layers, zone.surface, settings).map(Box::new)
+            });
         let mut tracks = HVec::new();
         for _ in zone.probes.iter().take(MAX_PROBES) {
             let _ = tracks.push(ProbeTrack {
@@ -256,7 +262,8 @@ impl ZoneEngine {
         channels: &[ChannelState],
         now: Timestamp,
     ) -> ZoneReport {
-        let mut report = self.cycle_models(settings, channels, now);
+        let mut view = None;
+        let mut report = self.cycle_models(settings, channels, now, &mut view);
         let zone = &settings.zones[self.index];
         // Each probe's standard uncertainty, for the checks' tolerances.
         let mut sigma_c: HVec<Option<f64>, MAX_PROBES> = HVec::new();
@@ -270,15 +277,27 @@ impl ZoneEngine {
             );
         }
         vet(&mut report, zone, &sigma_c);
+        if let Some(mut v) = view {
+            vet(&mut v, zone, &sigma_c);
+            report.model_used = Some(zone.model.name());
+            if report.status == ZoneStatus::NotSteady && v.status < ZoneStatus::Unconfirmed {
+                v.model = report.model;
+                v.model_used = Some(Model::Transient.name());
+                v.model_note = Some(NOTE_FALLBACK);
+                report = v;
+            }
+        }
         report
     }
 
-    /// The model's numbers for one cycle, before vetting.
+    /// The model's numbers for one cycle, before vetting; `view`: the
+    /// transient view of a zone whose `fallback` is `transient`.
     fn cycle_models(
         &mut self,
         settings: &Settings,
         channels: &[ChannelState],
         now: Timestamp,
+        view: &mut Option<ZoneReport>,
     ) -> ZoneReport {
         let zone = &settings.zones[self.index];
         self.cycles += 1;
@@ -407,7 +426,16 @@ impl ZoneEngine {
             probes_used: samples.len() as u8,
             uncertainty: None,
             probes,
+            model_used: None,
         };
+        // The fallback's transient view runs every cycle, so that it has
+        // followed the wall when the steady model needs it.
+        if zone.model != Model::Transient && zone.fallback == Some(Model::Transient) {
+            let mut v = report.clone();
+            v.model = Model::Transient.name();
+            self.transient_cycle(settings, &samples, &mut v, now);
+            *view = Some(v);
+        }
         if zone.model == Model::Transient {
             self.transient_cycle(settings, &samples, &mut report, now);
             return report;
@@ -889,6 +917,7 @@ fn measured_rate_c_per_h(
 }
 
 /// Notes of the statuses, in the words a plant engineer reads.
+pub const NOTE_FALLBACK: &str = "the wall is heating or cooling faster than the steady model can follow: these numbers come from the transient model (fallback)";
 pub const NOTE_NOT_STEADY: &str = "the wall is heating or cooling faster than a steady model can follow and the probes disagree with it: hot face, fluxes and heat loss are withheld until the wall settles; measured temperatures are still published";
 pub const NOTE_CONTRADICTED: &str = "the probes disagree with the model although the wall is not changing fast: check the probe depths, the materials and each probe; the model's numbers are withheld";
 pub const NOTE_UNCONFIRMED: &str = "the fit passes exactly through its probes, so they cannot check it, and its shell flux disagrees with the loss expected from the shell temperature beyond their combined uncertainty: hot face, fluxes and heat loss are withheld (a further probe makes the fit checkable)";
