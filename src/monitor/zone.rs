@@ -1154,18 +1154,16 @@ fn implausibility(
     let s_shell = u.map_or(0.0, |u| u.shell_c);
     let air = zone.ambient_c;
     let shell_at = shell_probe(report, zone);
-    // Valid probes inside the wall, by depth.
-    let valid = |p: &&ProbeReport| p.status == Health::Ok && p.measured_c.is_some();
-    let by_depth = |a: &&ProbeReport, b: &&ProbeReport| a.depth_mm.total_cmp(&b.depth_mm);
-    // (probe, its σ) inside the wall (the shell probe aside), by depth.
+    // (valid probe, its σ) inside the wall (the shell probe aside), by depth.
     let mut inner: HVec<(&ProbeReport, f64), MAX_PROBES> = HVec::new();
     for (i, p) in report.probes.iter().enumerate() {
-        if valid(&p) && shell_at.is_none_or(|(_, s)| s != i) {
+        let valid = p.status == Health::Ok && p.measured_c.is_some();
+        if valid && shell_at.is_none_or(|(_, s)| s != i) {
             // Cannot fail: no more than the report's probes.
             let _ = inner.push((p, probe_sigma_c.get(i).copied().flatten().unwrap_or(0.0)));
         }
     }
-    inner.sort_unstable_by(|a, b| by_depth(&&a.0, &&b.0));
+    inner.sort_unstable_by(|a, b| a.0.depth_mm.total_cmp(&b.0.depth_mm));
     let probe_sigma = |i: usize| probe_sigma_c.get(i).copied().flatten().unwrap_or(0.0);
     let not_cooling = |p: &ProbeReport| {
         p.rate_measured_c_per_h
