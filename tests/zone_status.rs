@@ -62,13 +62,21 @@ pub struct Rig {
 
 impl Rig {
     pub fn new(text: &str, start_c: f64) -> Rig {
+        Rig::with_wall(text, text, start_c)
+    }
+
+    /// The engine configured by `text`, the simulated wall built from
+    /// `wall_text` (a wall other than the configured one).
+    pub fn with_wall(text: &str, wall_text: &str, start_c: f64) -> Rig {
         let settings = Arc::new(config::parse(text, "t", None).expect("valid config"));
-        let z = &settings.zones[0];
+        let wall_settings = config::parse(wall_text, "t", None).expect("valid config");
+        let z = &wall_settings.zones[0];
+        let materials = &wall_settings.materials;
         let layers = z
             .layers
             .iter()
             .map(|l| Layer {
-                material: settings.materials[l.material].material.clone(),
+                material: materials[l.material].material.clone(),
                 thickness_m: l.thickness_m,
             })
             .collect();
@@ -416,4 +424,39 @@ fn fallback_is_checked() {
     );
     let e = config::parse(&own, "t", None).unwrap_err().to_string();
     assert!(e.contains("zone[0].fallback"), "{e}");
+}
+
+/// A transient zone whose materials are wrong (the configured lining
+/// conducts a third of the real one's 1.30 W/mK) on a wall that holds at
+/// 1000 °C: its filter diverges from the readings and is reset (in the
+/// first cycles: it then settles on a state that matches the probes and
+/// the loss), which the zone reports as `contradicted`, not `ok` or
+/// `degraded` (the word for a missing probe), with its numbers withheld.
+#[test]
+fn a_transient_filter_that_diverges_is_contradicted() {
+    let depths = [40.0, 120.0, 200.0, 290.0, 345.0];
+    let layers =
+        "{ material = \"dense\", thickness_mm = 230 }, { material = \"ifb\", thickness_mm = 115 }";
+    let real = config("transient", layers, &depths);
+    let wrong = real.replace("conductivity_w_mk = 1.30", "conductivity_w_mk = 0.43");
+    let mut rig = Rig::with_wall(&wrong, &real, 1000.0);
+    let mut counts = std::collections::BTreeMap::new();
+    for _ in 0..240 {
+        for r in rig.minute(1000.0) {
+            *counts.entry(r.status.name()).or_insert(0) += 1;
+            if r.status == ZoneStatus::Contradicted {
+                assert_eq!(r.hot_face_c, None);
+                assert_eq!(r.heat_loss_w, None);
+                assert!(r.model_note.is_some());
+            }
+        }
+    }
+    assert!(
+        counts.get("contradicted").is_some_and(|&n| n > 0),
+        "{counts:?}"
+    );
+    assert!(
+        !counts.contains_key("degraded"),
+        "every probe is valid: {counts:?}"
+    );
 }
