@@ -13,6 +13,11 @@
 //! other on all its probes. A channel-fault alarm is suppressed while its
 //! source is silent (the source's own alarm says why). Suppressed alarms are
 //! still evaluated; their transitions are reported, marked not announced.
+//!
+//! A zone quantity the zone withholds (null under a status such as
+//! `not_steady`) or a channel without a valid value is bad quality: the
+//! alarm keeps its state (an active alarm is neither cleared nor raised by
+//! it, ISA-18.2's handling of a bad-quality input) and no trend is drawn.
 
 use std::collections::{BTreeMap, VecDeque};
 
