@@ -274,6 +274,10 @@ fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> su
             let status = match l.status {
                 ZoneStatus::Ok => "ok",
                 ZoneStatus::Degraded => "DEGRADED",
+                ZoneStatus::Unconfirmed => "UNCONFIRMED",
+                ZoneStatus::NotSteady => "NOT STEADY",
+                ZoneStatus::Contradicted => "CONTRADICTED",
+                ZoneStatus::Implausible => "IMPLAUSIBLE",
                 ZoneStatus::InsufficientData => "NO DATA",
             };
             println!(

@@ -15,7 +15,7 @@ use super::state;
 use crate::acquire::serial::{self, SourceHealth};
 use crate::config::Settings;
 use crate::monitor::alarm::{AlarmFlags, AlarmState, Cause, Priority};
-use crate::monitor::alarm_engine::{event_id, target_names, AlarmOutput, TrendAlert};
+use crate::monitor::alarm_engine::{event_id, target_names, trend_place, AlarmOutput, TrendAlert};
 use crate::monitor::channel::Health;
 use crate::monitor::command::{command_id, parse_command, reply_json};
 use crate::monitor::energy::{EnergyMeter, EnergyTotals};
@@ -439,13 +439,13 @@ impl Engine {
 
     fn trend(&self, t: &TrendAlert) {
         let c = &self.monitor.alarms().configs()[t.alarm];
-        let (zone, channel, source, quantity) = target_names(&self.settings, c.target);
-        let place = zone.or(channel).or(source).unwrap_or("");
+        let (zone, channel, _, quantity) = target_names(&self.settings, c.target);
+        let place = trend_place(&self.settings, c.target);
         let mut line = heapless::String::<256>::new();
         let unit = c.unit();
         if trend_line(
             &mut line,
-            place,
+            &place,
             quantity,
             unit,
             t.value,

@@ -395,6 +395,9 @@ pub struct Zone {
     pub probes: Vec<Probe>,
     /// When the lining baseline begins learning (`baseline_start`).
     pub baseline_start: BaselineStart,
+    /// The model whose numbers a steady zone publishes while its own model
+    /// is `not_steady` (only `transient`, for a quadratic or layered zone).
+    pub fallback: Option<Model>,
 }
 
 impl Zone {

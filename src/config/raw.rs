@@ -245,4 +245,5 @@ pub struct RawZone {
     pub layers: S<Vec<S<RawLayer>>>,
     pub probes: S<Vec<S<RawProbe>>>,
     pub baseline_start: Option<S<String>>,
+    pub fallback: Option<S<String>>,
 }

@@ -1647,6 +1647,34 @@ impl Validator<'_> {
             layers,
             probes,
             baseline_start,
+            fallback: self.zone_fallback(z, model, &p("fallback")),
+        }
+    }
+}
+
+impl Validator<'_> {
+    /// `fallback`: only `"transient"`, for a quadratic or layered zone.
+    fn zone_fallback(&mut self, z: &RawZone, model: Model, key: &str) -> Option<Model> {
+        let f = z.fallback.as_ref()?;
+        match (f.get_ref().as_str(), model) {
+            ("transient", Model::Quadratic | Model::Layered) => Some(Model::Transient),
+            ("transient", Model::Transient) => {
+                self.problem(
+                    f.span(),
+                    key.to_string(),
+                    "a transient zone has no steady model to fall back from; remove fallback"
+                        .to_string(),
+                );
+                None
+            }
+            (other, _) => {
+                self.problem(
+                    f.span(),
+                    key.to_string(),
+                    format!("{other:?} is not a fallback model; use \"transient\" (for a quadratic or layered zone)"),
+                );
+                None
+            }
         }
     }
 }

@@ -13,6 +13,11 @@
 //! other on all its probes. A channel-fault alarm is suppressed while its
 //! source is silent (the source's own alarm says why). Suppressed alarms are
 //! still evaluated; their transitions are reported, marked not announced.
+//!
+//! A zone quantity the zone withholds (null under a status such as
+//! `not_steady`) or a channel without a valid value is bad quality: the
+//! alarm keeps its state (an active alarm is neither cleared nor raised by
+//! it, ISA-18.2's handling of a bad-quality input) and no trend is drawn.
 
 use std::collections::{BTreeMap, VecDeque};
 
@@ -22,7 +27,7 @@ use serde::Serialize;
 use super::alarm::{Alarm, AlarmFlags, AlarmKind, AlarmState, Priority, Transition};
 use super::channel::Health;
 use super::command::{Action, Command, CommandError};
-use super::trend::{time_to_limit_h, FloodMeter, TrendGate};
+use super::trend::{time_to_limit_h, FloodMeter, TrendWatch};
 use super::zone::ZoneReport;
 use crate::config::{AlarmConfig, AlarmTarget, Settings, ZoneQuantity};
 use crate::physics::fit::linear_slope;
@@ -73,7 +78,11 @@ struct Slot {
     /// Latest value of the watched quantity itself.
     raw: Option<f64>,
     rate_per_h: Option<f64>,
-    gate: TrendGate,
+    /// The trend toward the limit (horizon hysteresis and repeat gate).
+    watch: TrendWatch,
+    /// No trend line at all: a hot-face or interface limit above the zone's
+    /// `firing_setpoint_c`, which the kiln's control keeps the face below.
+    no_trend: bool,
 }
 
 pub struct AlarmEngine {
@@ -81,7 +90,6 @@ pub struct AlarmEngine {
     slots: Vec<Slot>,
     /// Channels each alarm depends on (for suppression).
     deps: Vec<HVec<usize, 16>>,
-    trend_horizon_h: f64,
     origin: Timestamp,
     flood: FloodMeter,
     pending: VecDeque<AlarmOutput>,
@@ -116,7 +124,8 @@ impl AlarmEngine {
                 value: None,
                 raw: None,
                 rate_per_h: None,
-                gate: TrendGate::new(settings.trend.repeat_min * 60.0),
+                watch: TrendWatch::new(settings.trend.horizon_h, settings.trend.repeat_min * 60.0),
+                no_trend: beyond_setpoint(settings, c),
             });
             deps.push(dependencies(settings, c));
         }
@@ -124,7 +133,6 @@ impl AlarmEngine {
             configs,
             slots,
             deps,
-            trend_horizon_h: settings.trend.horizon_h,
             origin: start,
             flood: FloodMeter::new(),
             pending: VecDeque::new(),
@@ -213,7 +221,12 @@ impl AlarmEngine {
                 continue;
             }
             let value = zone_quantity(report, quantity);
-            self.evaluate(i, value, now);
+            // A state made while a probe's reading is held back as a spike
+            // stands on fewer probes: a valid value, but a step in the
+            // quantity's history that is not the wall's, so it stays out
+            // of the rate (and the trend).
+            let spiked = report.probes.iter().any(|p| p.status == Health::Spike);
+            self.evaluate_with(i, value, !spiked, now);
         }
     }
 
@@ -256,11 +269,18 @@ impl AlarmEngine {
     }
 
     fn evaluate(&mut self, i: usize, raw: Option<f64>, now: Timestamp) {
+        self.evaluate_with(i, raw, true, now);
+    }
+
+    /// Evaluates alarm `i` on `raw`; `for_rate`: the value also enters the
+    /// history its rate is computed from. A `None` (no valid value, or a
+    /// number the zone withholds) is bad quality: the alarm keeps its state.
+    fn evaluate_with(&mut self, i: usize, raw: Option<f64>, for_rate: bool, now: Timestamp) {
         let t = now.since(self.origin);
         let cfg = &self.configs[i];
         let slot = &mut self.slots[i];
         slot.raw = raw;
-        if let Some(v) = raw {
+        if let (Some(v), true) = (raw, for_rate) {
             slot.history.write((t, v));
         }
         slot.rate_per_h = raw.and_then(|_| rate_per_h(&slot.history, t, slot.window_s));
@@ -276,7 +296,9 @@ impl AlarmEngine {
     }
 
     /// A trend alert when a high or low limit will be reached within the
-    /// horizon at the current rate (and the alarm is not already active).
+    /// horizon at the current rate (and the alarm is not already active):
+    /// at most one per `trend_repeat_min` for the alarm, unless the
+    /// estimate halves (see `TrendWatch`).
     fn trend(&mut self, i: usize, now: Timestamp) {
         let cfg = &self.configs[i];
         if !matches!(cfg.spec.kind, AlarmKind::High | AlarmKind::Low) {
@@ -284,28 +306,23 @@ impl AlarmEngine {
         }
         let slot = &mut self.slots[i];
         let eta = match (slot.raw, slot.rate_per_h) {
-            (Some(v), Some(r)) if !slot.alarm.flags().active => {
-                let eta = time_to_limit_h(v, r, cfg.spec.setpoint);
-                eta.filter(|&e| e <= self.trend_horizon_h)
-                    .map(|e| (v, r, e))
+            (Some(v), Some(r)) if !slot.alarm.flags().active && !slot.no_trend => {
+                time_to_limit_h(v, r, cfg.spec.setpoint).map(|e| (v, r, e))
             }
             _ => None,
         };
-        match eta {
-            Some((value, rate_per_h, eta_h)) => {
-                if slot.gate.should_emit(now, eta_h) {
-                    let limit = cfg.spec.setpoint;
-                    self.push(AlarmOutput::Trend(TrendAlert {
-                        alarm: i,
-                        time: now,
-                        value,
-                        rate_per_h,
-                        limit,
-                        eta_h,
-                    }));
-                }
+        if slot.watch.update(now, eta.map(|(_, _, e)| e)) {
+            if let Some((value, rate_per_h, eta_h)) = eta {
+                let limit = cfg.spec.setpoint;
+                self.push(AlarmOutput::Trend(TrendAlert {
+                    alarm: i,
+                    time: now,
+                    value,
+                    rate_per_h,
+                    limit,
+                    eta_h,
+                }));
             }
-            None => slot.gate.clear(),
         }
     }
 
@@ -574,4 +591,35 @@ fn rate_per_h(h: &HistoryBuf<(f64, f64), RATE_POINTS>, now_s: f64, window_s: f64
         return None;
     }
     linear_slope(&ts, &vs).map(|(s, _)| s * 3600.0)
+}
+
+/// A high alarm on a zone's hot face or an interface whose limit lies above
+/// the zone's `firing_setpoint_c`: the kiln's control stops the ramp at the
+/// set-point, and a wall heated from its hot face is nowhere hotter than
+/// that face, so a trend toward the limit would be a false promise.
+fn beyond_setpoint(settings: &Settings, c: &AlarmConfig) -> bool {
+    let AlarmTarget::Zone { zone, quantity } = c.target else {
+        return false;
+    };
+    let bounded = matches!(
+        quantity,
+        ZoneQuantity::HotFaceC | ZoneQuantity::InterfaceC(_)
+    );
+    c.spec.kind == AlarmKind::High
+        && bounded
+        && settings.zones[zone]
+            .firing_setpoint_c
+            .is_some_and(|sp| c.spec.setpoint > sp)
+}
+
+/// What a trend line names, with its kind: `zone side-wall`, `channel
+/// side-25`, `source tcbox-1`.
+pub fn trend_place(settings: &Settings, t: AlarmTarget) -> String {
+    match t {
+        AlarmTarget::Zone { zone, .. } => format!("zone {}", settings.zones[zone].name),
+        AlarmTarget::Channel { channel, .. } => {
+            format!("channel {}", settings.channels[channel].name)
+        }
+        AlarmTarget::Source { source } => format!("source {}", settings.sources[source].name),
+    }
 }

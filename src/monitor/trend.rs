@@ -77,15 +77,67 @@ impl TrendGate {
         emit
     }
 
-    /// Forgets the last alert (the trend went away): the next one emits at once.
+    /// Forgets the last alert: the next one emits at once. (Not for a trend
+    /// that merely left the horizon: that would break the repeat promise,
+    /// see [`TrendWatch`].)
     pub fn clear(&mut self) {
         self.last = None;
     }
 }
 
+/// An estimate must grow beyond the horizon by this fraction before a trend
+/// counts as gone (hysteresis at the horizon edge, a value of ours: an
+/// estimate wavering around the horizon is one trend, not many).
+pub const HORIZON_HYSTERESIS: f64 = 0.25;
+
+/// One trend's life: it starts when the estimated time to the limit falls
+/// within `horizon_h`, lasts until the estimate exceeds
+/// `horizon_h × (1 + HORIZON_HYSTERESIS)` or the quantity stops moving
+/// toward the limit, and emits through a [`TrendGate`] that is never reset
+/// by the trend coming and going: at most one line per `repeat_s` for the
+/// watched quantity, unless the estimate halves.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TrendWatch {
+    horizon_h: f64,
+    gate: TrendGate,
+    inside: bool,
+}
+
+impl TrendWatch {
+    pub fn new(horizon_h: f64, repeat_s: f64) -> Self {
+        TrendWatch {
+            horizon_h,
+            gate: TrendGate::new(repeat_s),
+            inside: false,
+        }
+    }
+
+    /// The estimate at `now` (None: no trend toward the limit, or no
+    /// valid value): should a line go out?
+    pub fn update(&mut self, now: Timestamp, eta_h: Option<f64>) -> bool {
+        let eta = eta_h.filter(|e| e.is_finite() && *e >= 0.0);
+        self.inside = match eta {
+            None => false,
+            Some(e) if self.inside => e <= self.horizon_h * (1.0 + HORIZON_HYSTERESIS),
+            Some(e) => e <= self.horizon_h,
+        };
+        match eta {
+            Some(e) if self.inside => self.gate.should_emit(now, e),
+            _ => false,
+        }
+    }
+
+    /// Is a trend running (within the horizon, with its hysteresis)?
+    pub fn inside(&self) -> bool {
+        self.inside
+    }
+}
+
 /// Writes the one-line trend alert into `out` (cleared first), e.g.
 /// `zone side-wall: shell_c 58.2 °C rising 3.1 °C/h, reaches the 65.0 °C
-/// limit in about 2.2 h (at 10:42 UTC)`.
+/// limit in about 2.2 h (at 10:42 UTC)`. `place` names what is watched
+/// with its kind: `zone side-wall`, `channel side-25`, `source tcbox-1`
+/// (see `alarm_engine::trend_place`).
 ///
 /// Under an hour the time reads in minutes. The arrival time is
 /// `now + eta_h`, rounded to the minute, with the date when it falls on
@@ -94,7 +146,7 @@ impl TrendGate {
 #[allow(clippy::too_many_arguments)] // one line of text, each argument a part of it
 pub fn trend_line(
     out: &mut heapless::String<256>,
-    zone: &str,
+    place: &str,
     quantity: &str,
     unit: &str,
     value: f64,
@@ -114,7 +166,7 @@ pub fn trend_line(
     };
     write!(
         out,
-        "zone {zone}: {quantity} {value:.1} {unit} {direction} {:.1} {unit}/h, \
+        "{place}: {quantity} {value:.1} {unit} {direction} {:.1} {unit}/h, \
          reaches the {limit:.1} {unit} limit in about ",
         rate_per_h.abs()
     )?;
@@ -265,7 +317,7 @@ mod tests {
         let eta = time_to_limit_h(58.2, 3.1, 65.0).unwrap();
         trend_line(
             &mut out,
-            "side-wall",
+            "zone side-wall",
             "shell_c",
             "°C",
             58.2,
@@ -282,7 +334,7 @@ mod tests {
         // 6.8 / 30 h = 13.6 min → "14 min", at 08:43:36 → 08:44.
         trend_line(
             &mut out,
-            "side-wall",
+            "zone side-wall",
             "shell_c",
             "°C",
             58.2,
@@ -299,7 +351,7 @@ mod tests {
         // Falling toward a low limit: 100 °C at 25 °C/h is 4 h, 12:30.
         trend_line(
             &mut out,
-            "roof",
+            "zone roof",
             "hot_face_c",
             "°C",
             400.0,
@@ -316,7 +368,7 @@ mod tests {
         // From 22:00 plus 3 h is the next UTC day.
         trend_line(
             &mut out,
-            "roof",
+            "zone roof",
             "shell_c",
             "°C",
             50.0,
@@ -335,7 +387,7 @@ mod tests {
     #[test]
     fn trend_line_refuses_what_it_cannot_write() {
         let mut out = heapless::String::<256>::new();
-        let zone = "z".repeat(250);
+        let zone = format!("zone {}", "z".repeat(245));
         assert!(trend_line(
             &mut out,
             &zone,
@@ -350,7 +402,7 @@ mod tests {
         .is_err());
         assert!(trend_line(
             &mut out,
-            "z",
+            "zone z",
             "shell_c",
             "°C",
             58.2,
@@ -361,6 +413,61 @@ mod tests {
         )
         .is_err());
         assert!(out.is_empty());
+    }
+
+    #[test]
+    fn a_trend_wavering_at_the_horizon_edge_is_one_trend() {
+        // Horizon 4 h, repeat 30 min. The estimate wavers between 3.9 and
+        // 4.1 h every minute for 100 minutes: one trend, so a line at the
+        // start and one per 30 min (at 0, 30, 60 and 90 min: 4). A gate
+        // cleared whenever the estimate left the horizon would have
+        // emitted on every return (50 lines).
+        let mut w = TrendWatch::new(4.0, 1800.0);
+        let mut lines = 0;
+        for minute in 0..100 {
+            let eta = if minute % 2 == 0 { 3.9 } else { 4.1 };
+            if w.update(at(60.0 * f64::from(minute)), Some(eta)) {
+                lines += 1;
+            }
+        }
+        assert_eq!(lines, 4);
+        // Beyond the hysteresis (4 × 1.25 = 5 h) the trend ends; coming
+        // back within the repeat time gives no line, after it one.
+        assert!(!w.update(at(6000.0), Some(5.01)));
+        assert!(!w.inside());
+        assert!(
+            !w.update(at(6060.0), Some(3.0)),
+            "11 min after the last line"
+        );
+        assert!(w.inside());
+        assert!(w.update(at(5400.0 + 1800.0), Some(3.0)));
+        // Gone (moving away), then back: still the same promise.
+        assert!(!w.update(at(7260.0), None));
+        assert!(!w.update(at(7320.0), Some(2.9)));
+        // A trend that speeds up beyond half the estimate goes out at once:
+        // 120 s on course from 3.0 h is 2.9667 h, half of it 1.4833 h.
+        assert!(w.update(at(7320.0), Some(1.4)));
+    }
+
+    #[test]
+    fn trend_lines_name_what_they_watch() {
+        let mut out = heapless::String::<256>::new();
+        trend_line(
+            &mut out,
+            "channel side-25",
+            "celsius",
+            "°C",
+            590.0,
+            20.0,
+            600.0,
+            0.5,
+            at(0.0),
+        )
+        .unwrap();
+        assert!(
+            out.starts_with("channel side-25: celsius 590.0 °C rising 20.0 °C/h"),
+            "{out}"
+        );
     }
 
     #[test]

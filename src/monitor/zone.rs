@@ -26,14 +26,35 @@ pub const STALE_INTERVALS: f64 = 3.0;
 /// Points kept per probe for the measured-rate regression.
 pub const RATE_POINTS: usize = 64;
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
+/// How far a zone's numbers can be trusted, in order of severity (each
+/// later status withholds more; see docs/mqtt-topics.md for what each
+/// nulls and what an operator should do). `Ord` follows this order, so the
+/// worse of two is their `max`.
+#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize)]
 #[serde(rename_all = "snake_case")]
 pub enum ZoneStatus {
-    /// Every probe valid and the full model order fitted.
+    /// Every probe valid, the full model order fitted, the model's checks
+    /// passed.
     Ok,
-    /// Numbers published from fewer probes than configured.
+    /// Numbers published from fewer probes than configured (or a reduced
+    /// model order); still vouched for by the checks.
     Degraded,
-    /// Too few valid probes: no numbers.
+    /// The fit has no redundancy (its probes cannot test it) and the
+    /// surface cross-check disagrees beyond the combined uncertainty: the
+    /// extrapolated numbers (hot face, fluxes, loss) are withheld.
+    Unconfirmed,
+    /// A steady model contradicted by its probes while the wall heats or
+    /// cools: the model's numbers are withheld until the wall settles.
+    NotSteady,
+    /// The probes contradict the model while the wall is not changing fast
+    /// (wrong depths, materials or a bad probe), or the transient filter
+    /// diverged and was reset: the model's numbers are withheld.
+    Contradicted,
+    /// A published number failed a physical sanity check (a face outside
+    /// what its neighbouring measurements allow, a heat loss of the wrong
+    /// sign, a flux not finite or beyond any kiln's): withheld.
+    Implausible,
+    /// Too few valid probes: no model numbers at all.
     InsufficientData,
 }
 
@@ -42,8 +63,23 @@ impl ZoneStatus {
         match self {
             ZoneStatus::Ok => "ok",
             ZoneStatus::Degraded => "degraded",
+            ZoneStatus::Unconfirmed => "unconfirmed",
+            ZoneStatus::NotSteady => "not_steady",
+            ZoneStatus::Contradicted => "contradicted",
+            ZoneStatus::Implausible => "implausible",
             ZoneStatus::InsufficientData => "insufficient_data",
         }
+    }
+
+    /// Does this status withhold the model's numbers (published as null)?
+    pub fn withholds(self) -> bool {
+        matches!(
+            self,
+            ZoneStatus::Unconfirmed
+                | ZoneStatus::NotSteady
+                | ZoneStatus::Contradicted
+                | ZoneStatus::Implausible
+        )
     }
 }
 
@@ -148,6 +184,11 @@ pub struct ZoneReport {
     /// and dates (set by the monitor after the cycle).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub lining_baseline: Option<super::lining::BaselineReport>,
+    /// A zone with a `fallback`: the model that produced these numbers
+    /// (the zone's own, or `transient` while its steady model is
+    /// `not_steady`).
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub model_used: Option<&'static str>,
 }
 
 /// Per-probe state kept between cycles.
@@ -180,23 +221,24 @@ impl ZoneEngine {
     pub fn new(index: usize, zone: &Zone, materials: &[NamedMaterial], start: Timestamp) -> Self {
         // The transient estimator is built once (its covariance is large):
         // no allocation per cycle.
-        let transient = (zone.model == Model::Transient).then(|| {
-            let layers: Vec<TransientLayer<'_>> = zone
-                .layers
-                .iter()
-                .filter_map(|l| {
-                    materials.get(l.material).map(|m| TransientLayer {
-                        material: &m.material,
-                        thickness_m: l.thickness_m,
+        let transient = (zone.model == Model::Transient || zone.fallback == Some(Model::Transient))
+            .then(|| {
+                let layers: Vec<TransientLayer<'_>> = zone
+                    .layers
+                    .iter()
+                    .filter_map(|l| {
+                        materials.get(l.material).map(|m| TransientLayer {
+                            material: &m.material,
+                            thickness_m: l.thickness_m,
+                        })
                     })
-                })
-                .collect();
-            let settings = TransientSettings {
-                cells_per_layer: zone.cells_per_layer,
-                ..TransientSettings::default()
-            };
-            TransientEstimator::new(&layers, zone.surface, settings).map(Box::new)
-        });
+                    .collect();
+                let settings = TransientSettings {
+                    cells_per_layer: zone.cells_per_layer,
+                    ..TransientSettings::default()
+                };
+                TransientEstimator::new(&layers, zone.surface, settings).map(Box::new)
+            });
         let mut tracks = HVec::new();
         for _ in zone.probes.iter().take(MAX_PROBES) {
             let _ = tracks.push(ProbeTrack {
@@ -216,12 +258,50 @@ impl ZoneEngine {
         }
     }
 
-    /// Runs one cycle at `now` over the channels' current states.
+    /// Runs one cycle at `now` over the channels' current states: the
+    /// model's numbers, then [`vet`] over every published number.
     pub fn cycle(
         &mut self,
         settings: &Settings,
         channels: &[ChannelState],
         now: Timestamp,
+    ) -> ZoneReport {
+        let mut view = None;
+        let mut report = self.cycle_models(settings, channels, now, &mut view);
+        let zone = &settings.zones[self.index];
+        // Each probe's standard uncertainty, for the checks' tolerances.
+        let mut sigma_c: HVec<Option<f64>, MAX_PROBES> = HVec::new();
+        for p in zone.probes.iter().take(MAX_PROBES) {
+            // Cannot fail: as many as the probes, at most MAX_PROBES.
+            let _ = sigma_c.push(
+                channels
+                    .get(p.channel)
+                    .and_then(|c| c.latest)
+                    .map(|r| r.sigma_c),
+            );
+        }
+        vet(&mut report, zone, &sigma_c);
+        if let Some(mut v) = view {
+            vet(&mut v, zone, &sigma_c);
+            report.model_used = Some(zone.model.name());
+            if report.status == ZoneStatus::NotSteady && v.status < ZoneStatus::Unconfirmed {
+                v.model = report.model;
+                v.model_used = Some(Model::Transient.name());
+                v.model_note = Some(NOTE_FALLBACK);
+                report = v;
+            }
+        }
+        report
+    }
+
+    /// The model's numbers for one cycle, before vetting; `view`: the
+    /// transient view of a zone whose `fallback` is `transient`.
+    fn cycle_models(
+        &mut self,
+        settings: &Settings,
+        channels: &[ChannelState],
+        now: Timestamp,
+        view: &mut Option<ZoneReport>,
     ) -> ZoneReport {
         let zone = &settings.zones[self.index];
         self.cycles += 1;
@@ -351,7 +431,16 @@ impl ZoneEngine {
             uncertainty: None,
             probes,
             lining_baseline: None,
+            model_used: None,
         };
+        // The fallback's transient view runs every cycle, so that it has
+        // followed the wall when the steady model needs it.
+        if zone.model != Model::Transient && zone.fallback == Some(Model::Transient) {
+            let mut v = report.clone();
+            v.model = Model::Transient.name();
+            self.transient_cycle(settings, &samples, &mut v, now);
+            *view = Some(v);
+        }
         if zone.model == Model::Transient {
             self.transient_cycle(settings, &samples, &mut report, now);
             return report;
@@ -372,21 +461,19 @@ impl ZoneEngine {
         // or the model is wrong) degrade the zone, with the reason.
         report.model_check = Some(check_name(sol.check));
         report.model_note = (sol.check == ModelCheck::Contradicted).then(|| {
-            let fast = report
-                .probes
-                .iter()
-                .filter_map(|p| p.rate_measured_c_per_h)
-                .any(|r| r.abs() > FAST_RATE_C_PER_H);
-            if fast {
-                "the probes disagree with the model beyond their uncertainty while heating or cooling fast: the wall is not at steady state"
+            if changing_fast(&report.probes) {
+                NOTE_NOT_STEADY
             } else {
-                "the probes disagree with the model beyond their uncertainty: check the probe depths, the materials, or a probe"
+                NOTE_CONTRADICTED
             }
         });
-        report.status = if samples.len() == zone.probes.len()
-            && full_order
-            && sol.check != ModelCheck::Contradicted
-        {
+        report.status = if sol.check == ModelCheck::Contradicted {
+            if changing_fast(&report.probes) {
+                ZoneStatus::NotSteady
+            } else {
+                ZoneStatus::Contradicted
+            }
+        } else if samples.len() == zone.probes.len() && full_order {
             ZoneStatus::Ok
         } else {
             ZoneStatus::Degraded
@@ -832,4 +919,309 @@ fn measured_rate_c_per_h(
         return None;
     }
     linear_slope(&ts, &vs).map(|(slope, _)| slope * 3600.0)
+}
+
+/// Notes of the statuses, in the words a plant engineer reads.
+pub const NOTE_FALLBACK: &str = "the wall is heating or cooling faster than the steady model can follow: these numbers come from the transient model (fallback)";
+pub const NOTE_NOT_STEADY: &str = "the wall is heating or cooling faster than a steady model can follow and the probes disagree with it: hot face, fluxes and heat loss are withheld until the wall settles; measured temperatures are still published";
+pub const NOTE_CONTRADICTED: &str = "the probes disagree with the model although the wall is not changing fast: check the probe depths, the materials and each probe; the model's numbers are withheld";
+pub const NOTE_UNCONFIRMED: &str = "the fit passes exactly through its probes, so they cannot check it, and its shell flux disagrees with the loss expected from the shell temperature beyond their combined uncertainty: hot face, fluxes and heat loss are withheld (a further probe makes the fit checkable)";
+
+/// Coverage factor of the sanity checks: a published face temperature or
+/// flux is called implausible only beyond this many combined standard
+/// uncertainties (a threshold of ours, chosen so that a correct wall is
+/// never flagged: 4σ is exceeded by chance about once in 16 000 checks)…
+pub const VET_COVERAGE: f64 = 4.0;
+/// …plus this much, K (the readings' resolution and rounding).
+pub const VET_FLOOR_K: f64 = 1.0;
+/// How far below the air a shell may be before its estimate is implausible,
+/// K (a shell radiating to a cold roof or sky can sit a few kelvin below
+/// the air; a threshold of ours, generous).
+pub const SHELL_BELOW_AIR_K: f64 = 10.0;
+/// How far above `firing_setpoint_c` a hot face may be before its estimate
+/// is implausible, K (kilns overshoot their set-point by tens of kelvin;
+/// a threshold of ours).
+pub const HOT_FACE_OVER_SETPOINT_K: f64 = 100.0;
+/// Largest plausible flux through a kiln wall, W/m²: black-body emission at
+/// 2000 °C is σ_SB·(2273 K)⁴ = 1.51 MW/m² (Stefan–Boltzmann), and no hot
+/// face receives more than a fraction of it.
+pub const FLUX_LIMIT_W_M2: f64 = 1.0e6;
+/// A probe falling slower than this, °C/h, counts as heating or holding for
+/// the face checks (while the wall cools, its hot face cools first and may
+/// rightly read below the shallowest probe).
+pub const HOLDING_RATE_C_PER_H: f64 = 1.0;
+/// A probe this close to the shell, mm, measures the shell.
+pub const SHELL_PROBE_MM: f64 = 2.0;
+/// Relative standard uncertainty of the surface-loss estimate from the
+/// shell temperature. Natural-convection correlations (Churchill–Chu and
+/// the like) are commonly quoted as good to ±20–30 %, and the emissivity of
+/// a painted or oxidised shell is rarely known better: common practice,
+/// taken here as 25 % (1σ), also for a configured `surface_h_w_m2k`.
+pub const SURFACE_LOSS_REL_SIGMA: f64 = 0.25;
+/// Coverage factor of the surface cross-check of an uncheckable fit.
+pub const CROSS_CHECK_COVERAGE: f64 = 3.0;
+
+/// Any probe changing faster than [`FAST_RATE_C_PER_H`]?
+fn changing_fast(probes: &[ProbeReport]) -> bool {
+    probes
+        .iter()
+        .filter_map(|p| p.rate_measured_c_per_h)
+        .any(|r| r.abs() > FAST_RATE_C_PER_H)
+}
+
+/// The post-pass over every model's report: the statuses the model's own
+/// code cannot see (an uncheckable fit that the surface contradicts, a
+/// transient filter that was reset), the numbers each status withholds
+/// (published as null, see [`withhold`]), then the physical sanity checks
+/// of [`implausibility`] on what is left, which demote to `implausible`.
+/// The status only ever gets worse here. Allocation-free.
+/// `probe_sigma_c[i]` is probe i's standard uncertainty (None: unknown).
+pub fn vet(report: &mut ZoneReport, zone: &Zone, probe_sigma_c: &[Option<f64>]) {
+    if report.status == ZoneStatus::InsufficientData {
+        return;
+    }
+    // A fact the transient model leaves in its report: the filter had
+    // diverged from the readings and was started afresh.
+    if report.model == Model::Transient.name()
+        && report
+            .model_note
+            .is_some_and(|n| n.contains("reset") || n.contains("diverged"))
+    {
+        report.status = report.status.max(ZoneStatus::Contradicted);
+    }
+    if report.model_check == Some("untested")
+        && !report.status.withholds()
+        && surface_disagrees(report)
+    {
+        report.status = ZoneStatus::Unconfirmed;
+        report.model_note = Some(NOTE_UNCONFIRMED);
+    }
+    withhold(report, zone);
+    if let Some(note) = implausibility(report, zone, probe_sigma_c) {
+        report.status = report.status.max(ZoneStatus::Implausible);
+        report.model_note = Some(note);
+        withhold(report, zone);
+    }
+}
+
+/// Surface cross-check of a fit its probes cannot test: the Fourier flux at
+/// the shell q_F against the surface loss q_s from the shell temperature,
+/// disagreeing when |q_F − q_s| > k·u_c with
+/// u_c² = σ_F² + (0.25·q_s)² + ((h_c + h_r)·σ_shell)²
+/// (GUM combination of the fit's σ, the correlation's uncertainty
+/// [`SURFACE_LOSS_REL_SIGMA`] and the shell temperature's; k = 3).
+fn surface_disagrees(report: &ZoneReport) -> bool {
+    let (Some(q_f), Some(q_s)) = (report.flux_shell_w_m2, report.flux_surface_w_m2) else {
+        return false;
+    };
+    let h = report.h_convection_w_m2k.unwrap_or(0.0) + report.h_radiation_w_m2k.unwrap_or(0.0);
+    let (s_f, s_shell) = report
+        .uncertainty
+        .as_ref()
+        .map_or((0.0, 0.0), |u| (u.flux_shell_w_m2, u.shell_c));
+    let u_c = (s_f * s_f + (SURFACE_LOSS_REL_SIGMA * q_s).powi(2) + (h * s_shell).powi(2)).sqrt();
+    (q_f - q_s).abs() > CROSS_CHECK_COVERAGE * u_c
+}
+
+/// The valid probe at the shell, if any (`(°C, index)`).
+fn shell_probe(report: &ZoneReport, zone: &Zone) -> Option<(f64, usize)> {
+    let shell_mm = zone.thickness_m() * 1000.0;
+    report
+        .probes
+        .iter()
+        .enumerate()
+        .filter(|(_, p)| p.status == Health::Ok && p.depth_mm >= shell_mm - SHELL_PROBE_MM)
+        .find_map(|(i, p)| p.measured_c.map(|t| (t, i)))
+}
+
+/// Publishes as null what a withholding status cannot vouch for:
+///
+/// | number | `unconfirmed` | `not_steady`, `contradicted`, `implausible` |
+/// |---|---|---|
+/// | `hot_face_c`, both fluxes, `heat_loss_w`, `source_w_m3`, `interface_c`, `thermal_resistance_m2k_w`, `resistance_change_pct`, `lining_remaining_mm`, `hot_face_rate_c_per_h`, `forecast`, `time_to_limit_h`, `uncertainty`, each probe's `rate_model_c_per_h` | null | null |
+/// | `shell_c` and the surface loss from it | the shell thermocouple's reading, else null | the same |
+/// | `balance_mismatch_pct` | kept (the evidence) | null |
+/// | `stored_w_m2` | kept from measured rates, null from the transient estimate | the same |
+///
+/// Kept always: the measured values and rates, `fit_rms_c`, `model_check`,
+/// `filter_nis`, each probe's `fitted_c` (the residuals are the evidence).
+fn withhold(report: &mut ZoneReport, zone: &Zone) {
+    if !report.status.withholds() {
+        return;
+    }
+    report.hot_face_c = None;
+    report.flux_hot_face_w_m2 = None;
+    report.flux_shell_w_m2 = None;
+    report.heat_loss_w = None;
+    report.source_w_m3 = None;
+    report.interface_c = None;
+    report.thermal_resistance_m2k_w = None;
+    report.resistance_change_pct = None;
+    report.lining_remaining_mm = None;
+    report.hot_face_rate_c_per_h = None;
+    report.forecast = None;
+    report.time_to_limit_h = None;
+    report.uncertainty = None;
+    if report.model == Model::Transient.name() {
+        report.stored_w_m2 = None;
+    }
+    for p in report.probes.iter_mut() {
+        p.rate_model_c_per_h = None;
+    }
+    if report.status != ZoneStatus::Unconfirmed {
+        report.balance_mismatch_pct = None;
+    }
+    // The shell as its thermocouple reads it (a measured value stays, and
+    // the shell-touch alarm keeps working through a heat-up).
+    match shell_probe(report, zone) {
+        Some((t, _)) => {
+            let s = shell_surface(zone, t);
+            report.shell_c = Some(t);
+            report.flux_surface_w_m2 = Some(s.flux_w_m2);
+            report.h_convection_w_m2k = Some(s.h_convection_w_m2k);
+            report.h_radiation_w_m2k = Some(s.h_radiation_w_m2k);
+        }
+        None => {
+            report.shell_c = None;
+            report.flux_surface_w_m2 = None;
+            report.h_convection_w_m2k = None;
+            report.h_radiation_w_m2k = None;
+        }
+    }
+}
+
+/// `k·√(σa² + σb²) + floor`: how far two estimates may differ by chance.
+fn vet_tolerance(sigma_a: f64, sigma_b: f64) -> f64 {
+    VET_COVERAGE * sigma_a.hypot(sigma_b) + VET_FLOOR_K
+}
+
+/// The physical sanity checks on the numbers a report publishes; the note
+/// of the first that fails. Tolerances come from the stated σ
+/// ([`vet_tolerance`]). The checks, each a consequence of the heat
+/// equation with heat supplied at the hot face:
+///
+/// - every number finite, every flux within [`FLUX_LIMIT_W_M2`];
+/// - the shell not below the air by more than [`SHELL_BELOW_AIR_K`], equal
+///   to a shell thermocouple, and while heat flows outward through the
+///   deepest inner probe (it is above the air and not cooling) not hotter
+///   than that probe;
+/// - while the wall heats or holds (the shallowest probe not falling faster
+///   than [`HOLDING_RATE_C_PER_H`]) and heat flows inward from the hot face
+///   (the shallowest probe hotter than the next), the hot face not below
+///   the shallowest probe: ∂T/∂t ≥ 0 makes T(x) convex, so the face is the
+///   wall's hottest point; when cooling, the face cools first and may
+///   rightly read below it, so no check then;
+/// - the hot face not above `firing_setpoint_c` by more than
+///   [`HOT_FACE_OVER_SETPOINT_K`];
+/// - the shell flux and the heat loss with the sign of T_shell − T_air
+///   (the massless shell surface's balance: q(L) = h·(T_shell − T_air)).
+fn implausibility(
+    report: &ZoneReport,
+    zone: &Zone,
+    probe_sigma_c: &[Option<f64>],
+) -> Option<&'static str> {
+    let numbers = [
+        report.hot_face_c,
+        report.shell_c,
+        report.flux_hot_face_w_m2,
+        report.flux_shell_w_m2,
+        report.heat_loss_w,
+        report.source_w_m3,
+        report.flux_surface_w_m2,
+        report.stored_w_m2,
+        report.thermal_resistance_m2k_w,
+        report.lining_remaining_mm,
+        report.hot_face_rate_c_per_h,
+    ];
+    let interfaces = report.interface_c.iter().flatten().copied().map(Some);
+    if numbers
+        .into_iter()
+        .chain(interfaces)
+        .flatten()
+        .any(|v| !v.is_finite())
+    {
+        return Some("a number of the model came out not finite: the model's numbers are withheld (check the zone's configuration)");
+    }
+    let fluxes = [
+        report.flux_hot_face_w_m2,
+        report.flux_shell_w_m2,
+        report.flux_surface_w_m2,
+    ];
+    if fluxes
+        .into_iter()
+        .flatten()
+        .any(|q| q.abs() > FLUX_LIMIT_W_M2)
+    {
+        return Some("a flux came out above 1 MW/m², more than any kiln wall carries: the model's numbers are withheld (check that thickness_mm and depth_mm are in millimetres, and the conductivity)");
+    }
+    let u = report.uncertainty.as_ref();
+    let s_hot = u.map_or(0.0, |u| u.hot_face_c);
+    let s_shell = u.map_or(0.0, |u| u.shell_c);
+    let air = zone.ambient_c;
+    let shell_at = shell_probe(report, zone);
+    // (valid probe, its σ) inside the wall (the shell probe aside), by depth.
+    let mut inner: HVec<(&ProbeReport, f64), MAX_PROBES> = HVec::new();
+    for (i, p) in report.probes.iter().enumerate() {
+        let valid = p.status == Health::Ok && p.measured_c.is_some();
+        if valid && shell_at.is_none_or(|(_, s)| s != i) {
+            // Cannot fail: no more than the report's probes.
+            let _ = inner.push((p, probe_sigma_c.get(i).copied().flatten().unwrap_or(0.0)));
+        }
+    }
+    inner.sort_unstable_by(|a, b| a.0.depth_mm.total_cmp(&b.0.depth_mm));
+    let probe_sigma = |i: usize| probe_sigma_c.get(i).copied().flatten().unwrap_or(0.0);
+    let not_cooling = |p: &ProbeReport| {
+        p.rate_measured_c_per_h
+            .is_some_and(|r| r >= -HOLDING_RATE_C_PER_H)
+    };
+    if let Some(shell) = report.shell_c {
+        if shell < air - SHELL_BELOW_AIR_K - VET_COVERAGE * s_shell {
+            return Some("the shell estimate lies far below the air temperature, which no kiln shell does: the model's numbers are withheld (check the probe depths and the materials)");
+        }
+        if let Some((m, i)) = shell_at {
+            let s_m = probe_sigma(i);
+            if (shell - m).abs() > vet_tolerance(s_shell, s_m) {
+                return Some("the shell estimate disagrees with the shell thermocouple: the model's numbers are withheld (check the probe depths and the materials)");
+            }
+        }
+        if let Some(&(deep, s_deep)) = inner.last() {
+            let t = deep.measured_c.unwrap_or(f64::NAN);
+            if t > air && not_cooling(deep) && shell > t + vet_tolerance(s_shell, s_deep) {
+                return Some("the shell estimate is hotter than the probe inside it while heat flows outward: the model's numbers are withheld");
+            }
+        }
+    }
+    if let Some(hot) = report.hot_face_c {
+        if let (Some(&(first, s1)), Some(&(second, _))) = (inner.first(), inner.get(1)) {
+            let t1 = first.measured_c.unwrap_or(f64::NAN);
+            let t2 = second.measured_c.unwrap_or(f64::NAN);
+            if not_cooling(first) && t1 > t2 && hot < t1 - vet_tolerance(s_hot, s1) {
+                return Some("the hot face estimate is below the shallowest probe while the wall is heating or holding: the model's numbers are withheld (check the probe depths and the materials)");
+            }
+        }
+        if let Some(sp) = zone.firing_setpoint_c {
+            if hot > sp + HOT_FACE_OVER_SETPOINT_K + VET_COVERAGE * s_hot {
+                return Some("the hot face estimate is far above firing_setpoint_c: the model's numbers are withheld");
+            }
+        }
+    }
+    // Heat loss sign against the shell and the air.
+    let shell_t = shell_at.map(|(t, _)| t).or(report.shell_c);
+    if let Some(ts) = shell_t {
+        let margin = VET_COVERAGE * s_shell + VET_FLOOR_K;
+        let s_q = u.map_or(0.0, |u| u.flux_shell_w_m2);
+        let slack_w_m2 = VET_COVERAGE * s_q + 1.0;
+        let flux = report
+            .flux_shell_w_m2
+            .or(report.heat_loss_w.map(|w| w / zone.area_m2));
+        if let Some(q) = flux {
+            if ts > air + margin && q < -slack_w_m2 {
+                return Some("the heat loss comes out negative although the shell is hotter than the air: the model's numbers are withheld (the wall is far from the state the model assumes, or a probe or the materials are wrong)");
+            }
+            if ts < air - margin && q > slack_w_m2 {
+                return Some("the heat loss comes out positive although the shell is colder than the air: the model's numbers are withheld");
+            }
+        }
+    }
+    None
 }
