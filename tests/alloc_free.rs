@@ -1,4 +1,4 @@
-//! The hot paths allocate nothing in steady state (DESIGN.md quality bar):
+//! The hot paths allocate nothing in steady state (DEVELOPERS.md quality bars):
 //! a counting global allocator around the engine's per-sample and
 //! per-zone-cycle calls, and the line parser's per-byte path.
 

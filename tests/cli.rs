@@ -77,7 +77,7 @@ fn broken_configs_exit_2_naming_the_culprit() {
 
 /// `wallflux tc` against NIST ITS-90 type K table values (NIST SRD 60,
 /// type_K.tab: 500 °C → 20.644 mV) and the cold-junction case of
-/// REFERENCES.md (4.096 mV at 25 °C terminals → 124.31 °C).
+/// docs/references.md (4.096 mV at 25 °C terminals → 124.31 °C).
 #[test]
 fn tc_converts_both_ways() {
     let o = run(&["tc", "--type", "K", "--celsius", "500", "--json"]);

@@ -1,6 +1,6 @@
 //! Cold-junction compensation through the engine: the frame's `cj=`, a
 //! configured cold-junction channel, or the source's fixed value, in that
-//! order. Check value (REFERENCES.md, from the NIST ITS-90 type K function):
+//! order. Check value (docs/references.md, from the NIST ITS-90 type K function):
 //! 4.096 mV with the terminals at 25 °C is 124.31 °C; adding temperatures
 //! (100 °C + 25 °C) would be 0.7 °C off, ignoring the junction 24 °C off.
 

@@ -42,7 +42,7 @@ fn close(v: &serde_json::Value, want: f64, rel: f64, what: &str) {
 /// Fundamentals of Heat and Mass Transfer, ch. 3): q = ΔT / Σ(Lᵢ/kᵢ).
 /// 230 mm k 1.30, 115 mm k 0.17, 10 mm k 50, hot face 1200 °C, shell
 /// 120.09 °C → q = 1265.14 W/m², interfaces 976.17 and 120.34 °C (the
-/// composite-wall case of REFERENCES.md).
+/// composite-wall case of docs/references.md).
 #[test]
 fn three_layer_wall_series_resistance() {
     let mats = "[[material]]\nname = \"fireclay\"\nconductivity_w_mk = 1.30\ndensity_kg_m3 = 2150.0\nspecific_heat_j_kgk = 1000.0\n\

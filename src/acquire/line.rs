@@ -798,7 +798,7 @@ mod tests {
     use super::*;
     use proptest::prelude::*;
 
-    /// The design's example line (docs/line-protocol.md, DESIGN.md "Line
+    /// The design's example line (docs/line-protocol.md, "Line
     /// protocol v1"); its CRC 5A9A was confirmed with crcmod 1.7 (PyPI),
     /// `crcmod.predefined.mkCrcFun('crc-ccitt-false')`.
     const EXAMPLE: &[u8] = b"#1042 1=812.4C 2=640.1C 3=33.275mV cj=24.6C *5A9A\n";

@@ -1,4 +1,4 @@
-//! The command line (DESIGN.md "CLI").
+//! The command line (README.md "Commands").
 
 use std::path::PathBuf;
 

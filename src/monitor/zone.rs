@@ -112,7 +112,7 @@ pub struct ProbeReport {
     pub status: Health,
 }
 
-/// The zone state of DESIGN.md (MQTT payload and `analyze` line).
+/// The zone state of docs/mqtt-topics.md (MQTT payload and `analyze` line).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ZoneReport {
     pub schema: &'static str,

@@ -1475,9 +1475,9 @@ mod tests {
         (at_x.unwrap(), interfaces)
     }
 
-    /// The three-layer wall of REFERENCES.md with conductivities that vary
+    /// The three-layer wall of docs/references.md with conductivities that vary
     /// with temperature, each a linear law fitted to a published range:
-    /// - dense fireclay, VDI Heat Atlas (via `ht.insulation`, REFERENCES.md):
+    /// - dense fireclay, VDI Heat Atlas (via `ht.insulation`, docs/references.md):
     ///   k 1.05 → 1.22 W/mK from 400 to 1200 °C: k0 = 0.965, b = 2.125e-4/0.965;
     /// - insulating brick class 1260, same source: 0.14 → 0.22 (taken over the
     ///   same 400…1200 °C span): k0 = 0.10, b = 1e-3;
@@ -1529,12 +1529,12 @@ mod tests {
 
     /// Incropera ch. 3, the composite wall as a thermal circuit (eq. 3.19):
     /// `q = (T_hot − T_s) / Σ L_i/k_i` and each interface `T_i = T_(i−1) −
-    /// q L_i/k_i`. REFERENCES.md "Three-layer wall": hot face 1200 °C, 230 mm
+    /// q L_i/k_i`. docs/references.md "Three-layer wall": hot face 1200 °C, 230 mm
     /// fireclay k 1.30, 115 mm insulating brick k 0.17, 10 mm steel k 50, shell
     /// 120.09 °C. By hand: R = 0.176923 + 0.676471 + 0.0002 = 0.853594 m²K/W,
     /// q = 1079.91 / 0.853594 = 1265.14 W/m², T1 = 1200 − 1265.14 × 0.176923 =
     /// 976.17 °C, T2 = 976.17 − 1265.14 × 0.676471 = 120.34 °C, matching the
-    /// interfaces REFERENCES.md quotes (so its numbers are self-consistent).
+    /// interfaces docs/references.md quotes (so its numbers are self-consistent).
     #[test]
     fn three_layer_constant_k_is_the_series_circuit() {
         let (fc, ib, st) = (constant_k(1.30), constant_k(0.17), constant_k(50.0));
@@ -1621,14 +1621,14 @@ mod tests {
         }
     }
 
-    /// The three-layer wall of REFERENCES.md with its shell losing heat to
+    /// The three-layer wall of docs/references.md with its shell losing heat to
     /// still air (2 m vertical, ε 0.8, 25 °C).
     ///
     /// (1) Against an independent computation with our own surface loss:
     /// the circuit `q = (T_hot − T_s)/R` and `q = surface_loss(T_s)` solved
     /// here by bisection on T_s (a different unknown, no Kirchhoff march).
     ///
-    /// (2) Against REFERENCES.md (`ht`'s Churchill–Chu over CoolProp air):
+    /// (2) Against docs/references.md (`ht`'s Churchill–Chu over CoolProp air):
     /// shell 120.09 °C, q 1265.1 W/m², interfaces 976.17 and 120.34 °C. Our
     /// surface.rs uses Incropera Table A.4 air, which gives h_conv 0.2…1.2 %
     /// below `ht` + CoolProp (surface.rs tests). A lower h_c leaves the shell
@@ -1667,7 +1667,7 @@ mod tests {
         assert!(close(sol.thermal_resistance_m2k_w, r, 1e-12));
         assert_eq!(sol.check, ModelCheck::Untested);
 
-        // (2) REFERENCES.md, with the tolerance derived above.
+        // (2) docs/references.md, with the tolerance derived above.
         let d_shell = sol.shell_c - 120.09;
         assert!(d_shell > 0.0 && d_shell < 0.5, "shell {}", sol.shell_c);
         assert!((sol.flux_w_m2 - 1265.1).abs() < 0.6, "q {}", sol.flux_w_m2);
@@ -1708,10 +1708,10 @@ mod tests {
 
     // --- k(T): the Kirchhoff march against closed forms ---------------------
 
-    /// REFERENCES.md, linear k(T) = k0 (1 + bT), k0 0.9, b 5e-4, L 0.23 m,
+    /// docs/references.md, linear k(T) = k0 (1 + bT), k0 0.9, b 5e-4, L 0.23 m,
     /// 1200 → 300 °C: q = k0 (Θ1 − Θ2)/L = 0.9 (1560 − 322.5)/0.23 =
     /// 4842.391 W/m² (by hand), midpoint 786.57496 °C from the closed form
-    /// (REFERENCES.md quotes 786.58, that value rounded twice; the issue
+    /// (docs/references.md quotes 786.58, that value rounded twice; the issue
     /// 786.57). A two-point table spanning 0…1600 °C is exactly that law.
     #[test]
     fn linear_k_single_layer_matches_closed_form() {
@@ -1992,7 +1992,7 @@ mod tests {
     /// A wall heating up is not at steady state and must be called so. The
     /// profile of a semi-infinite solid whose surface is stepped from T_i to
     /// T_s: `(T − T_s)/(T_i − T_s) = erf(x / 2√(αt))` (Incropera eq. 5.57).
-    /// First the oracle against REFERENCES.md (T_i 20, T_s 1000 °C, α 5e-7,
+    /// First the oracle against docs/references.md (T_i 20, T_s 1000 °C, α 5e-7,
     /// x 0.05 m, t 1 h → 416.564 °C). Then a 0.23 m lining 3 h into a step to
     /// 1000 °C (the back has warmed by 27 K, erfc(1.56) = 2.7 %, so the
     /// semi-infinite profile holds for it), probes with σ 1 °C: no steady

@@ -341,7 +341,7 @@ mod tests {
             .collect()
     }
 
-    /// Dense fireclay-like values (VDI Heat Atlas range in REFERENCES.md).
+    /// Dense fireclay-like values (VDI Heat Atlas range in docs/references.md).
     fn fireclay() -> Material {
         Material::constant(1.3, 2150.0, 1000.0)
     }
@@ -402,7 +402,7 @@ mod tests {
     /// q(0) = −q‴W/2 (heat leaves through the hot face too), q(W) = +q‴W/2,
     /// and (q(W) − q(0))/W = q‴. The centre is Tmax = Ts + q‴W²/(8k), which is
     /// Incropera's Tmax = Ts + q‴L²/(2k) with half-thickness L = W/2 (§3.5,
-    /// plane wall with generation; REFERENCES.md). A sink (q‴ < 0) likewise.
+    /// plane wall with generation; docs/references.md). A sink (q‴ < 0) likewise.
     #[test]
     fn uniform_source_is_recovered() {
         let (w, ts, k) = (0.3, 80.0, 1.2);
@@ -445,7 +445,7 @@ mod tests {
         (-1.0 + (1.0 + 2.0 * b * th).sqrt()) / b
     }
 
-    /// REFERENCES.md: k0 0.9, b 5e-4, L 0.23 m, 1200 → 300 °C: q 4842.39
+    /// docs/references.md: k0 0.9, b 5e-4, L 0.23 m, 1200 → 300 °C: q 4842.39
     /// W/m², midpoint 786.58 °C. The analytic profile and `mean_between`
     /// must reproduce both (q quoted to 2 decimals, hence 0.005).
     #[test]
@@ -455,7 +455,7 @@ mod tests {
         assert!((k_m * 900.0 / 0.23 - 4842.39).abs() < 0.005);
         let theta = |t: f64| t + 2.5e-4 * t * t;
         assert!((0.9 * (theta(1200.0) - theta(300.0)) / 0.23 - 4842.39).abs() < 0.005);
-        // The closed form gives 786.57496 °C; REFERENCES.md's 786.58 is that
+        // The closed form gives 786.57496 °C; docs/references.md's 786.58 is that
         // value rounded twice (786.575 → 786.58), so the band is 0.01 here.
         assert!((linear_k_profile(0.115) - 786.58).abs() < 0.01);
         assert!((linear_k_profile(0.115) - 786.5749586185547).abs() < 1e-9); // numpy 2.4.6, same formula
@@ -770,7 +770,7 @@ mod tests {
         }
     }
 
-    /// Q = q(L) · A: the three-layer check wall of REFERENCES.md loses
+    /// Q = q(L) · A: the three-layer check wall of docs/references.md loses
     /// 1265.1 W/m²; over 12 m² that is 15 181.2 W.
     #[test]
     fn heat_loss_is_shell_flux_times_area() {

@@ -372,7 +372,7 @@ mod tests {
     }
 
     /// 2 m vertical shell in still air at 25 °C, surroundings 25 °C, ε 0.8
-    /// (REFERENCES.md "Surface heat loss" check case).
+    /// (docs/references.md "Surface heat loss" check case).
     fn wall_2m() -> SurfaceParams {
         SurfaceParams {
             orientation: Orientation::Vertical,
@@ -418,7 +418,7 @@ mod tests {
 
     #[test]
     fn air_table_against_coolprop() {
-        // CoolProp at 1 atm (REFERENCES.md; re-run here with CoolProp 8.0.0:
+        // CoolProp at 1 atm (docs/references.md; re-run here with CoolProp 8.0.0:
         // 350 K 0.030003, 2.0691e-5, 0.7019; 400 K 0.033453, 2.6131e-5,
         // 0.69893). Incropera's Table A.4 is an older compilation
         // and differs by up to 1.3 % (Pr at 400 K: 0.690 vs 0.699), so the
@@ -467,7 +467,7 @@ mod tests {
 
     #[test]
     fn vertical_shell_check_values() {
-        // REFERENCES.md check values (ht + CoolProp): Ts 150 °C → h_conv 6.02,
+        // docs/references.md check values (ht + CoolProp): Ts 150 °C → h_conv 6.02,
         // h_rad 8.77, 1848 W/m²; Ts 80 °C → 4.94, 6.31, 619 W/m².
         // h_conv ∝ k·(Pr/ν²)^(1/3) in the turbulent regime, so the ~1 % table
         // spread in k and ν gives ≲ 1.5 % in h_conv; 2 % allowed. h_rad does

@@ -1449,7 +1449,7 @@ mod tests {
             assert_eq!(mv_lo, emf_mv(tc, t_lo).unwrap(), "type {tc} low end");
             assert_eq!(mv_hi, emf_mv(tc, t_hi).unwrap(), "type {tc} high end");
         }
-        // REFERENCES.md: type K minimum −6.458 mV (NIST SRD 60 type_k.tab).
+        // docs/references.md: type K minimum −6.458 mV (NIST SRD 60 type_k.tab).
         let (k_lo, k_hi) = TcType::K.emf_range_mv();
         assert!((k_lo - -6.458).abs() <= HALF_TABLE_DIGIT_MV);
         assert!((k_hi - 54.886).abs() <= HALF_TABLE_DIGIT_MV);
@@ -1460,7 +1460,7 @@ mod tests {
         assert_eq!(TcType::B.inverse_range_c(), (250.0, 1820.0));
     }
 
-    /// ITS-90 ranges (°C) as listed in REFERENCES.md (NIST SRD 60).
+    /// ITS-90 ranges (°C) as listed in docs/references.md (NIST SRD 60).
     #[test]
     fn ranges_are_the_its90_ranges() {
         let expect = [
@@ -1528,7 +1528,7 @@ mod tests {
 
     #[test]
     fn inverse_of_rounded_table_emf_is_not_the_table_temperature() {
-        // REFERENCES.md: exact inverse of the rounded K table EMF 4.096 mV
+        // docs/references.md: exact inverse of the rounded K table EMF 4.096 mV
         // is 99.994 °C (NIST SRD 60 type_k.tab, 100 °C → 4.096 mV).
         let t = temperature_c(TcType::K, 4.096).unwrap();
         assert!((t - 99.994).abs() < 0.0005, "{t}");
@@ -1556,7 +1556,7 @@ mod tests {
 
     #[test]
     fn cold_junction_compensation_is_done_in_emf() {
-        // REFERENCES.md: type K, 4.096 mV measured, terminals at 25 °C →
+        // docs/references.md: type K, 4.096 mV measured, terminals at 25 °C →
         // 124.31 °C (given to 0.01 °C, hence the 0.005 tolerance).
         let t = compensated_c(TcType::K, 4.096, 25.0).unwrap();
         assert!((t - 124.31).abs() < 0.005, "{t}");
@@ -1584,7 +1584,7 @@ mod tests {
 
     #[test]
     fn reversed_polarity_is_a_fault_not_a_temperature() {
-        // REFERENCES.md: K at 500 °C wired reversed, 25 °C junction:
+        // docs/references.md: K at 500 °C wired reversed, 25 °C junction:
         // −19.644 + 1.000 = −18.644 mV, below K's minimum −6.458 mV.
         let measured = -(20.644 - 1.000);
         match compensated_c(TcType::K, measured, 25.0) {
@@ -1637,7 +1637,7 @@ mod tests {
         }
         // Forward still covers 0…1820 °C, and the dip is real.
         assert!(emf_mv(TcType::B, 21.0).unwrap() < 0.0);
-        // 1000 °C → 4.834 mV (REFERENCES.md, NIST SRD 60 type_b.tab).
+        // 1000 °C → 4.834 mV (docs/references.md, NIST SRD 60 type_b.tab).
         let t = temperature_c(TcType::B, emf_mv(TcType::B, 1000.0).unwrap()).unwrap();
         assert!((t - 1000.0).abs() < 1e-6);
     }

@@ -6,7 +6,7 @@
 //! tolerance `±max(fixed_c, fraction · |t|)`; IEC class 1 for types R and S is
 //! instead `±1.0 °C` up to 1100 °C, then `±[1 + 0.003 (t − 1100)] °C` to
 //! 1600 °C. The formulas and ranges are those listed in the project's
-//! REFERENCES.md ("Thermocouple tolerances"). Where a class does not cover a
+//! docs/references.md ("Thermocouple tolerances"). Where a class does not cover a
 //! type or a temperature, [`tolerance_c`] returns `None`; the IEC 60584-1
 //! class 3 bands for types E and T and the ASTM E230 bands below 0 °C are not
 //! included yet because nobody here could read them in the standard.
@@ -91,7 +91,7 @@ const fn greater(min_c: f64, max_c: f64, fixed_c: f64, fraction: f64) -> Option<
 }
 
 /// The band a class defines for a type (one per class and type), or `None`.
-/// Values: IEC 60584-1:2013 and ASTM E230 Table 1 as listed in REFERENCES.md.
+/// Values: IEC 60584-1:2013 and ASTM E230 Table 1 as listed in docs/references.md.
 fn band(class: ToleranceClass, tc: TcType) -> Option<Band> {
     use TcType::*;
     use ToleranceClass::*;
@@ -101,7 +101,7 @@ fn band(class: ToleranceClass, tc: TcType) -> Option<Band> {
         (Iec1, J) => greater(-40.0, 750.0, 1.5, 0.004),
         (Iec1, T) => greater(-40.0, 350.0, 0.5, 0.004),
         (Iec1, E) => greater(-40.0, 800.0, 1.5, 0.004),
-        // The lower end, 0 °C, is from memory (REFERENCES.md gives only "to 1600").
+        // The lower end, 0 °C, is from memory (docs/references.md gives only "to 1600").
         (Iec1, R | S) => Some(Band {
             min_c: 0.0,
             max_c: 1600.0,
@@ -240,7 +240,7 @@ mod tests {
 
     #[test]
     fn references_check_points() {
-        // REFERENCES.md check points (IEC 60584-1:2013, ASTM E230 Table 1).
+        // docs/references.md check points (IEC 60584-1:2013, ASTM E230 Table 1).
         assert!(close(tol(Iec1, K, 500.0), 2.0));
         assert!(close(tol(Iec2, K, 500.0), 3.75));
         assert!(close(tol(AstmStandard, K, 500.0), 3.75));
@@ -249,7 +249,7 @@ mod tests {
         assert!(close(tol(Iec2, S, 1400.0), 3.5));
     }
 
-    /// Hand-computed from the IEC 60584-1:2013 formulas in REFERENCES.md.
+    /// Hand-computed from the IEC 60584-1:2013 formulas in docs/references.md.
     #[test]
     fn iec_bands_by_hand() {
         let cases = [
@@ -286,7 +286,7 @@ mod tests {
         }
     }
 
-    /// Hand-computed from the ASTM E230 Table 1 formulas in REFERENCES.md.
+    /// Hand-computed from the ASTM E230 Table 1 formulas in docs/references.md.
     #[test]
     fn astm_bands_by_hand() {
         let cases = [

@@ -6,7 +6,7 @@
 //!
 //! One-dimensional conduction, `ρc_p ∂T/∂t = ∂/∂x (k ∂T/∂x)`, with `x` from the
 //! hot face (`x = 0`) to the shell outer surface (`x = L`) and `q = −k ∂T/∂x`
-//! positive outward (DESIGN.md conventions). Boundary conditions: Dirichlet at
+//! positive outward (DEVELOPERS.md conventions). Boundary conditions: Dirichlet at
 //! the hot face (the kiln atmosphere set-point), and at the shell
 //! `q(L) = surface_loss(T(L))` ([`crate::physics::surface`]).
 //!
@@ -804,7 +804,7 @@ mod tests {
                 erfc(z)
             );
         }
-        // REFERENCES.md heat-equation oracle: Ti 20, Ts 1000 °C, α 5e-7 m²/s,
+        // docs/references.md heat-equation oracle: Ti 20, Ts 1000 °C, α 5e-7 m²/s,
         // x 0.05 m, t 1 h → 416.564 °C.
         let t = erf_step(0.05, 3600.0, 5e-7, 20.0, 1000.0);
         assert!((t - 416.564).abs() < 1e-3, "{t}");
@@ -826,7 +826,7 @@ mod tests {
         }
     }
 
-    /// REFERENCES.md "Three-layer wall with shell loss": 230 mm fireclay
+    /// docs/references.md "Three-layer wall with shell loss": 230 mm fireclay
     /// k 1.30, 115 mm insulating brick k 0.17, 10 mm steel k 50. Densities and
     /// heat capacities (only for transients): fireclay 2150 kg/m³ (VDI Heat
     /// Atlas via ht.insulation), insulating brick 490 kg/m³, cp 1000 J/(kg·K)
@@ -885,7 +885,7 @@ mod tests {
     }
 
     /// A single slab with α = k/(ρc) = 1 / (2000 × 1000) = 5e-7 m²/s, k = 1
-    /// (the REFERENCES.md semi-infinite example), thick enough that a 2 h
+    /// (the docs/references.md semi-infinite example), thick enough that a 2 h
     /// heating wave (penetration ≈ 4√(αt) = 0.24 m) never reaches the shell,
     /// starting at 20 °C with air and surroundings at 20 °C so the shell loses
     /// nothing.
@@ -919,7 +919,7 @@ mod tests {
         let q_shell = surface_loss(shell, &still_air_2m()).flux_w_m2;
         assert!((q - q_shell).abs() < 1e-6, "q {q} vs shell loss {q_shell}");
 
-        // (2) REFERENCES.md values, computed with ht's Churchill–Chu over
+        // (2) docs/references.md values, computed with ht's Churchill–Chu over
         // CoolProp air: shell 120.09 °C, q 1265.1 W/m², interfaces 976.17 and
         // 120.34 °C. Our Table A.4 air gives h_conv ≈ 1 % lower (see the
         // surface tests), so the shell runs warmer by
@@ -952,7 +952,7 @@ mod tests {
 
     #[test]
     fn linear_conductivity_slab_kirchhoff() {
-        // REFERENCES.md: k = 0.9 (1 + 5e-4 T), L 0.23 m, 1200 → 300 °C:
+        // docs/references.md: k = 0.9 (1 + 5e-4 T), L 0.23 m, 1200 → 300 °C:
         // q = 4842.39 W/m², midpoint 786.58 °C (T + bT²/2 linear in x).
         let k = |t: f64| 0.9 * (1.0 + 5e-4 * t);
         let table = Property::table("k", &[(0.0, k(0.0)), (1400.0, k(1400.0))]).expect("table");
@@ -1021,7 +1021,7 @@ mod tests {
     #[test]
     fn semi_infinite_step_matches_erf() {
         // Incropera eq. 5.57 on a 0.6 m slab (the wave reaches ~0.17 m in 1 h),
-        // 1 mm cells, 2 s steps; the REFERENCES.md case x 0.05 m, t 1 h →
+        // 1 mm cells, 2 s steps; the docs/references.md case x 0.05 m, t 1 h →
         // 416.564 °C, and other depths. The bar set for the simulator is 0.5 %
         // of the 980 K rise; at this resolution backward Euler's O(Δt) + O(Δx²)
         // error is far smaller, so 0.1 % (0.98 K) is asserted.
@@ -1036,7 +1036,7 @@ mod tests {
         }
         assert!((sim.temperature_at(0.05) - 416.564).abs() < 0.001 * 980.0);
         // Surface flux q_s = k (Ts − Ti)/√(παt) = 13 032 W/m² (Incropera
-        // eq. 5.58; REFERENCES.md). The node-flux estimate adds the storage of
+        // eq. 5.58; docs/references.md). The node-flux estimate adds the storage of
         // the first half cell at the last step's rate (first order in Δt, and
         // the surface gradient is the steepest in the wall): 0.3 % allowed.
         let q0 = sim.flux_at(0.0);

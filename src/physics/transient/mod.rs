@@ -10,7 +10,7 @@
 //! # Model
 //!
 //! `ρc_p ∂T/∂t = ∂/∂x (k ∂T/∂x)`, `x` from the hot face (0) to the shell (L),
-//! `q = −k ∂T/∂x` positive outward (DESIGN.md conventions; Incropera et al.,
+//! `q = −k ∂T/∂x` positive outward (DEVELOPERS.md conventions; Incropera et al.,
 //! *Fundamentals of Heat and Mass Transfer*, eq. 2.19 in one dimension).
 //!
 //! - Space: vertex-centred finite volumes, a node on both faces and on every

@@ -106,7 +106,7 @@ fn oracles_against_scipy_and_references() {
     assert!((i2erfc(0.0) - 0.25).abs() < 1e-15);
     assert!((ramp_solution(0.01, 3600.0, 5e-7, 0.0, 400.0 / 3600.0) - 304.234664).abs() < 1e-5);
     assert!((ramp_solution(0.1, 7200.0, 5e-7, 0.0, 400.0 / 3600.0) - 80.338637).abs() < 1e-5);
-    // REFERENCES.md: Ti 20, Ts 1000 °C, α 5e-7, x 0.05 m, t 1 h → 416.564 °C.
+    // docs/references.md: Ti 20, Ts 1000 °C, α 5e-7, x 0.05 m, t 1 h → 416.564 °C.
     assert!((erf_step(0.05, 3600.0, 5e-7, 20.0, 1000.0) - 416.564).abs() < 1e-3);
     // Incropera Table 5.1: Bi 1 → ζ₁ 0.8603, C₁ 1.1191; Bi 10 → 1.4289, 1.2620.
     for (bi, z1, c1) in [(1.0, 0.8603, 1.1191), (10.0, 1.4289, 1.2620)] {
@@ -117,7 +117,7 @@ fn oracles_against_scipy_and_references() {
             "Bi {bi}: {z} {c}"
         );
     }
-    // REFERENCES.md: full series at Bi 1, Fo 0.5, centre: 0.77253
+    // docs/references.md: full series at Bi 1, Fo 0.5, centre: 0.77253
     // (scipy brentq roots, 200 terms: 0.772526).
     assert!((plane_wall_series(1.0, 0.5, 0.0) - 0.77253).abs() < 5e-6);
 }
@@ -155,7 +155,7 @@ fn still_air_2m() -> SurfaceParams {
     }
 }
 
-/// REFERENCES.md "Three-layer wall with shell loss": 230 mm fireclay k 1.30,
+/// docs/references.md "Three-layer wall with shell loss": 230 mm fireclay k 1.30,
 /// 115 mm insulating brick k 0.17, 10 mm steel k 50. Densities and heat
 /// capacities: fireclay 2150 kg/m³ (VDI Heat Atlas via ht.insulation),
 /// insulating brick 490 kg/m³, c_p 1000 J/(kg·K) for both (typical); steel
@@ -169,7 +169,7 @@ fn three_materials() -> [(Material, f64); 3] {
 }
 
 /// The same wall with temperature-dependent properties: VDI Heat Atlas
-/// ranges for dense fireclay and class-1260 insulating brick (REFERENCES.md),
+/// ranges for dense fireclay and class-1260 insulating brick (docs/references.md),
 /// EN 1993-1-2 steel k = 54 − 0.0333 θ.
 fn three_materials_tabulated() -> [(Material, f64); 3] {
     let table = |pts: &[(f64, f64)]| Property::table("test", pts).expect("valid test table");
@@ -223,7 +223,7 @@ fn sim_layers(m: &[(Material, f64)]) -> Vec<Layer> {
 }
 
 /// One slab, k = 1 W/(m·K), ρc = 2e6 J/(m³·K): α = 5e-7 m²/s (the
-/// REFERENCES.md semi-infinite example), 0.3 m thick, insulated shell.
+/// docs/references.md semi-infinite example), 0.3 m thick, insulated shell.
 fn thick_slab(cells: usize) -> WallModel {
     let m = [(Material::constant(1.0, 2000.0, 1000.0), 0.3)];
     let shell = ShellBoundary::Convection {
@@ -253,10 +253,10 @@ fn semi_infinite_step_matches_erf() {
         worst = worst.max((t - want).abs());
     }
     assert!(worst < 0.001 * rise, "worst nodal error {worst} K");
-    // REFERENCES.md: x 0.05 m (a node), 1 h → 416.564 °C.
+    // docs/references.md: x 0.05 m (a node), 1 h → 416.564 °C.
     assert!((m.temperature_at(0.05) - 416.564).abs() < 0.001 * rise);
     // Surface flux q_s = k (Ts − Ti)/√(παt) = 13 032 W/m² (Incropera eq.
-    // 5.58, REFERENCES.md). The model's q(0) is the first segment's flux
+    // 5.58, docs/references.md). The model's q(0) is the first segment's flux
     // (the face is held, so its half cell's node rate is 0): the flux at
     // Δx/2, lower by 1 − exp(−Δx²/16αt) ≈ 0.02 %, plus the O(Δt) lag of
     // backward Euler; 0.5 % allowed.
@@ -533,7 +533,7 @@ fn steady_state_matches_the_simulator_and_references() {
             assert!((m.flux_shell_w_m2() - q).abs() < 1e-6 * q);
         }
     }
-    // REFERENCES.md (ht + CoolProp): shell 120.09 °C, q 1265.1 W/m²,
+    // docs/references.md (ht + CoolProp): shell 120.09 °C, q 1265.1 W/m²,
     // interfaces 976.17 and 120.34 °C. Our Table A.4 air gives h_conv about
     // 1 % low, the shell ≈ 0.4 K warm (sim::wall's test derives it); 0.8 K
     // and 1 W/m² allowed, 0.25 K at the first interface (q L/k).
@@ -716,7 +716,7 @@ fn initialiser_reproduces_a_settled_wall() {
 #[test]
 fn estimator_tracks_a_heating_wall_from_the_simulator() {
     // Truth: the independent fine-grid simulator (40 cells per layer) of the
-    // REFERENCES.md three-layer wall, settled at 200 °C, then the hot face
+    // docs/references.md three-layer wall, settled at 200 °C, then the hot face
     // ramps at 60 °C/h to 1100 °C and holds (16 h). Four probes at 30, 100,
     // 200 and 300 mm, σ 1.15 °C Gaussian noise; the hot face, fluxes and
     // storage are never measured. 50 noise realisations; checks every 10 min after
