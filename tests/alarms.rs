@@ -7,7 +7,6 @@
 
 mod common;
 
-use std::process::{Child, Stdio};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
@@ -59,23 +58,6 @@ fn values(scene: Arc<Mutex<Scene>>) -> common::feeder::Values {
         }
         Some(900.0 - (900.0 - s.shell_c(t)) * DEPTHS_MM[i] / 250.0)
     })
-}
-
-fn start(config: &std::path::Path, log: &std::path::Path) -> Child {
-    bin()
-        .args(["run", "--config", config.to_str().unwrap()])
-        .stdout(Stdio::null())
-        .stderr(std::fs::File::create(log).unwrap())
-        .spawn()
-        .unwrap()
-}
-
-fn stop(mut daemon: Child) {
-    // SAFETY: kill(2) on our own child's pid.
-    unsafe {
-        libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);
-    }
-    assert_eq!(daemon.wait().unwrap().code(), Some(0));
 }
 
 fn alarm(m: &Msg, name: &str, state: &str) -> bool {
@@ -132,7 +114,7 @@ on_delay_s = 0.0
     let t0 = std::time::Instant::now();
     let _feed = Feeder::start(pty, DEPTHS_MM.len(), values(scene.clone()));
     let log = dir.join("daemon.log");
-    let daemon = start(&cfg, &log);
+    let daemon = start_daemon(&cfg, &log);
 
     let normal = wait_for(&rx, Duration::from_secs(20), "shell-touch normal", |m| {
         alarm(m, "wall-shell-touch", "normal")
@@ -257,7 +239,7 @@ on_delay_s = 0.0
     });
     let seq_before = again.json["seq"].as_u64().unwrap();
     assert_ne!(again.json["event_id"].as_str().unwrap(), event_id);
-    stop(daemon);
+    stop_daemon(daemon);
     let saved: serde_json::Value = {
         let text = std::fs::read_to_string(&cfg).unwrap();
         let state_dir = text
@@ -274,7 +256,7 @@ on_delay_s = 0.0
     assert_eq!(saved["wall-shell-touch"]["active"], true);
     assert_eq!(saved["wall-shell-touch"]["acknowledged"], false);
 
-    let daemon = start(&cfg, &dir.join("daemon2.log"));
+    let daemon = start_daemon(&cfg, &dir.join("daemon2.log"));
     let after = wait_for(&rx, Duration::from_secs(20), "state after restart", |m| {
         alarm(m, "wall-shell-touch", "unacknowledged") && m.json["seq"].as_u64() == Some(seq_before)
     });
@@ -287,7 +269,7 @@ on_delay_s = 0.0
             .any(|m| m.topic == format!("{ROOT}/events") && m.json["cause"] == "activated"),
         "re-announced after restart"
     );
-    stop(daemon);
+    stop_daemon(daemon);
     let text = std::fs::read_to_string(&log).unwrap();
     assert!(text.contains("trend:"), "{text}");
     assert!(

@@ -12,7 +12,6 @@
 
 mod common;
 
-use std::process::{Child, Stdio};
 use std::sync::Arc;
 use std::time::Duration;
 
@@ -23,23 +22,6 @@ use wallflux::sim::pty::Pty;
 
 const DEPTHS_MM: [f64; 4] = [20.0, 100.0, 180.0, 250.0];
 const ROOT: &str = "wf/test-plant/k1";
-
-fn start(config: &std::path::Path, log: &std::path::Path) -> Child {
-    bin()
-        .args(["run", "--config", config.to_str().unwrap()])
-        .stdout(Stdio::null())
-        .stderr(std::fs::File::create(log).unwrap())
-        .spawn()
-        .unwrap()
-}
-
-fn stop(mut daemon: Child) {
-    // SAFETY: kill(2) on our own child's pid.
-    unsafe {
-        libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);
-    }
-    assert_eq!(daemon.wait().unwrap().code(), Some(0));
-}
 
 fn command(
     port: u16,
@@ -99,7 +81,7 @@ fn baseline_commissioning_over_mqtt() {
         }),
     );
     let log = dir.join("daemon.log");
-    let daemon = start(&cfg, &log);
+    let daemon = start_daemon(&cfg, &log);
 
     // A fresh `command` zone: nothing learning, nothing compared.
     let z = zone_baseline(&rx, "none");
@@ -146,8 +128,8 @@ fn baseline_commissioning_over_mqtt() {
     assert_eq!(r["code"], "baseline_already_learned", "{r}");
 
     // A restart keeps the learned baseline (baselines.json).
-    stop(daemon);
-    let daemon = start(&cfg, &dir.join("daemon2.log"));
+    stop_daemon(daemon);
+    let daemon = start_daemon(&cfg, &dir.join("daemon2.log"));
     let z = zone_baseline(&rx, "learned");
     assert_eq!(z["lining_baseline"]["started"], started.as_str());
     assert!(z["resistance_change_pct"].as_f64().unwrap().abs() < 0.1);
@@ -158,7 +140,7 @@ fn baseline_commissioning_over_mqtt() {
     let z = zone_baseline(&rx, "none");
     assert!(z["resistance_change_pct"].is_null());
     assert_eq!(z["lining_baseline"]["reference_bins"], 0);
-    stop(daemon);
+    stop_daemon(daemon);
 
     let text = std::fs::read_to_string(&log).unwrap();
     for want in [

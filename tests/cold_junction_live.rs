@@ -17,7 +17,6 @@
 mod common;
 
 use std::io::Write;
-use std::process::{Child, Stdio};
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 use std::time::Duration;
@@ -86,14 +85,6 @@ fn feed(
     })
 }
 
-fn stop_daemon(mut daemon: Child) {
-    // SAFETY: kill(2) on our own child's pid.
-    unsafe {
-        libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);
-    }
-    assert_eq!(daemon.wait().unwrap().code(), Some(0));
-}
-
 #[test]
 fn terminal_sensor_failure_over_the_serial_line() {
     let dir = temp_dir("cj-live");
@@ -140,12 +131,7 @@ fn terminal_sensor_failure_over_the_serial_line() {
     let stop = Arc::new(AtomicBool::new(false));
     let feeder = feed(pty, terminal_open.clone(), stop.clone());
     let log = dir.join("daemon.log");
-    let daemon = bin()
-        .args(["run", "--config", cfg.to_str().unwrap()])
-        .stdout(Stdio::null())
-        .stderr(std::fs::File::create(&log).unwrap())
-        .spawn()
-        .unwrap();
+    let daemon = start_daemon(&cfg, &log);
     let channel = |name: &'static str, status: &'static str| {
         move |m: &common::mqtt::Msg| {
             m.topic == format!("{ROOT}/channel/{name}") && m.json["status"] == status

@@ -7,7 +7,6 @@
 mod common;
 
 use std::io::Write;
-use std::process::{Child, Stdio};
 use std::sync::atomic::{AtomicBool, AtomicU8, Ordering};
 use std::sync::Arc;
 use std::time::Duration;
@@ -69,15 +68,6 @@ fn feeder(mut pty: Pty, stop: Arc<AtomicBool>) -> std::thread::JoinHandle<()> {
             std::thread::sleep(Duration::from_millis(100));
         }
     })
-}
-
-fn start_daemon(config: &std::path::Path, log: &std::path::Path) -> Child {
-    bin()
-        .args(["run", "--config", config.to_str().unwrap()])
-        .stdout(Stdio::null())
-        .stderr(std::fs::File::create(log).unwrap())
-        .spawn()
-        .unwrap()
 }
 
 fn assert_close(v: &serde_json::Value, key: &str, want: f64, rel: f64) {

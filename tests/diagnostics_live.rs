@@ -9,7 +9,6 @@
 
 mod common;
 
-use std::process::Stdio;
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
@@ -103,12 +102,7 @@ fn each_fault_is_flagged_excluded_and_cleared() {
     }));
     let t0 = std::time::Instant::now();
     let _feed = Feeder::start(pty, DEPTHS_MM.len(), values(scene.clone()));
-    let mut daemon = bin()
-        .args(["run", "--config", cfg.to_str().unwrap()])
-        .stdout(Stdio::null())
-        .stderr(std::fs::File::create(dir.join("d.log")).unwrap())
-        .spawn()
-        .unwrap();
+    let daemon = start_daemon(&cfg, &dir.join("d.log"));
     let long = Duration::from_secs(60);
     let set = |f: Fault| scene.lock().unwrap().fault = f;
 
@@ -185,9 +179,5 @@ fn each_fault_is_flagged_excluded_and_cleared() {
     set(Fault::None);
     wait_for(&rx, long, "p4 ok", |m| channel(m, 4, "ok"));
 
-    // SAFETY: kill(2) on our own child's pid.
-    unsafe {
-        libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);
-    }
-    assert_eq!(daemon.wait().unwrap().code(), Some(0));
+    stop_daemon(daemon);
 }

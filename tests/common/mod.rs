@@ -5,7 +5,7 @@ pub mod feeder;
 pub mod mqtt;
 
 use std::path::PathBuf;
-use std::process::{Command, Output};
+use std::process::{Child, Command, Output, Stdio};
 
 pub fn bin() -> Command {
     Command::new(env!("CARGO_BIN_EXE_wallflux"))
@@ -109,4 +109,23 @@ pub fn analyze_csv(dir: &std::path::Path, config: &std::path::Path, csv: &str) -
         String::from_utf8_lossy(&o.stderr)
     );
     String::from_utf8_lossy(&o.stdout).into_owned()
+}
+
+/// `wallflux run --config config`, its log (stderr) written to `log`.
+pub fn start_daemon(config: &std::path::Path, log: &std::path::Path) -> Child {
+    bin()
+        .args(["run", "--config", config.to_str().unwrap()])
+        .stdout(Stdio::null())
+        .stderr(std::fs::File::create(log).unwrap())
+        .spawn()
+        .unwrap()
+}
+
+/// SIGTERM to a daemon started by `start_daemon`: it must exit 0.
+pub fn stop_daemon(mut daemon: Child) {
+    // SAFETY: kill(2) on our own child's pid.
+    unsafe {
+        libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);
+    }
+    assert_eq!(daemon.wait().unwrap().code(), Some(0));
 }
