@@ -181,8 +181,13 @@ fn a_probe_frozen_while_the_wall_heats_is_stuck() {
     });
     let last = r.last().unwrap();
     assert_eq!(last.probes[1].status, Health::Stuck);
-    assert_eq!(last.status, ZoneStatus::Degraded);
-    assert_within_uncertainty(last);
+    // A steady model cannot vouch for a wall storing 25 times its through
+    // flux (the hot face then takes in 50 000 W/m² more than the shell
+    // gives off): `not_steady`, the model's numbers withheld, the
+    // measured values kept; the stuck probe is flagged all the same.
+    assert_eq!(last.status, ZoneStatus::NotSteady);
+    assert_eq!(last.flux_shell_w_m2, None);
+    assert!(last.probes.iter().all(|p| p.measured_c.is_some()));
     let rate = last.probes[0].rate_measured_c_per_h.unwrap();
     // ±0.05 °C of noise over the 100 s window moves the slope by a few °C/h.
     assert!(

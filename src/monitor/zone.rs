@@ -189,6 +189,12 @@ pub struct ZoneReport {
     /// `not_steady`).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub model_used: Option<&'static str>,
+    /// The zone's `hot_face_channel` reading, if fresh: published as
+    /// `hot_face_c` when the model's own hot face is withheld (a measured
+    /// value stays), so that the ramp and service-limit alarms keep working
+    /// through a heat-up.
+    #[serde(skip)]
+    pub hot_face_measured_c: Option<f64>,
 }
 
 /// Per-probe state kept between cycles.
@@ -432,6 +438,7 @@ impl ZoneEngine {
             probes,
             lining_baseline: None,
             model_used: None,
+            hot_face_measured_c: None,
         };
         // The fallback's transient view runs every cycle, so that it has
         // followed the wall when the steady model needs it.
@@ -478,6 +485,26 @@ impl ZoneEngine {
         } else {
             ZoneStatus::Degraded
         };
+        for p in report.probes.iter_mut() {
+            let x = p.depth_mm / 1000.0;
+            p.fitted_c = wall.fitted(&sol, x).map(|(t, _)| t);
+            p.rate_model_c_per_h = wall.model_rate_c_per_s(&sol, x).map(|r| r * 3600.0);
+        }
+        // A steady model's own heat equation fixes the rate at every probe
+        // (zero for a layered or linear profile, the curvature's uniform
+        // rate for a quadratic one). Measured rates that differ say the
+        // wall is not in the state the model assumes, even where the fit
+        // passes through every probe and so cannot be checked by them.
+        let unsteady = rates_contradict_steady(&report.probes);
+        if !report.status.withholds() && unsteady {
+            report.status = ZoneStatus::NotSteady;
+            report.model_note = Some(NOTE_NOT_STEADY);
+        }
+        report.hot_face_measured_c = zone
+            .hot_face_channel
+            .and_then(|hf| channels.get(hf))
+            .and_then(|c| c.fresh(now, max_age_s))
+            .map(|r| r.celsius);
         report.hot_face_c = Some(sol.hot_face_c);
         report.shell_c = Some(sol.shell_c);
         report.flux_hot_face_w_m2 = Some(sol.flux_hot_face_w_m2);
@@ -500,7 +527,7 @@ impl ZoneEngine {
             if let Some(reading) = channels.get(hf).and_then(|c| c.fresh(now, max_age_s)) {
                 if sol.flux_shell_w_m2.abs() > 1.0 {
                     let r = (reading.celsius - sol.shell_c) / sol.flux_shell_w_m2;
-                    if sol.check == ModelCheck::Consistent {
+                    if sol.check == ModelCheck::Consistent && !unsteady {
                         self.baseline
                             .record(now, zone.baseline_days, reading.celsius, r);
                     }
@@ -534,11 +561,6 @@ impl ZoneEngine {
             thermal_resistance_m2k_w: sol.resistance_m2k_w.map(|(_, s)| s),
             lining_remaining_mm: lining_sigma_mm,
         });
-        for p in report.probes.iter_mut() {
-            let x = p.depth_mm / 1000.0;
-            p.fitted_c = wall.fitted(&sol, x).map(|(t, _)| t);
-            p.rate_model_c_per_h = wall.model_rate_c_per_s(&sol, x).map(|r| r * 3600.0);
-        }
         report
     }
 }
@@ -584,8 +606,32 @@ fn stored_w_m2(probes: &[ProbeReport], wall: &Wall<'_>) -> Option<f64> {
 }
 
 /// A probe rate beyond this makes a contradicted steady model read as
-/// "not at steady state" (a threshold of ours), °C/h.
+/// "not at steady state", and a measured rate this far from a steady
+/// model's own rate at that probe makes it `not_steady` (a threshold of
+/// ours), °C/h.
 pub const FAST_RATE_C_PER_H: f64 = 5.0;
+
+/// Do the valid probes' measured rates say the wall is not in the state a
+/// steady model assumes? A probe disagrees when its measured rate differs
+/// from the model's rate there (None: zero) by more than
+/// [`FAST_RATE_C_PER_H`]. Heat from either face reaches the probe nearest
+/// that face first, so a disagreement there, or at two probes, is the
+/// wall; one interior probe alone, between neighbours that agree, is that
+/// probe (a jump its own rate window still holds: the diagnostics judge it).
+fn rates_contradict_steady(probes: &[ProbeReport]) -> bool {
+    let mut by_depth: HVec<(f64, bool), MAX_PROBES> = HVec::new();
+    for p in probes.iter().filter(|p| p.status == Health::Ok) {
+        if let Some(measured) = p.rate_measured_c_per_h {
+            let off = (measured - p.rate_model_c_per_h.unwrap_or(0.0)).abs() > FAST_RATE_C_PER_H;
+            // At most MAX_PROBES probes: cannot overflow.
+            let _ = by_depth.push((p.depth_mm, off));
+        }
+    }
+    by_depth.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
+    let off = by_depth.iter().filter(|p| p.1).count();
+    let at_a_face = by_depth.first().is_some_and(|p| p.1) || by_depth.last().is_some_and(|p| p.1);
+    off >= 2 || at_a_face
+}
 
 fn check_name(c: ModelCheck) -> &'static str {
     match c {
@@ -637,7 +683,11 @@ impl ZoneEngine {
         let (ql, s_ql) = est.flux_shell_w_m2();
         let (stored, _) = est.stored_w_m2();
         let l = zone.thickness_m();
-        report.status = if samples.len() == zone.probes.len() && !step.reset {
+        // A filter that had diverged from the readings and was started
+        // afresh cannot vouch for this cycle's numbers.
+        report.status = if step.reset {
+            ZoneStatus::Contradicted
+        } else if samples.len() == zone.probes.len() {
             ZoneStatus::Ok
         } else {
             ZoneStatus::Degraded
@@ -650,7 +700,7 @@ impl ZoneEngine {
         report.source_w_m3 = Some((ql - q0) / l);
         report.stored_w_m2 = Some(stored);
         report.hot_face_rate_c_per_h = Some(est.hot_face_rate_c_per_h().0);
-        report.filter_nis = Some(est.nis());
+        report.filter_nis = Some(est.nis()).filter(|n| n.is_finite());
         if step.reset {
             report.model_note = Some("the estimator was reset: it had diverged from the readings (check the materials and probe depths)");
         }
@@ -923,7 +973,7 @@ fn measured_rate_c_per_h(
 
 /// Notes of the statuses, in the words a plant engineer reads.
 pub const NOTE_FALLBACK: &str = "the wall is heating or cooling faster than the steady model can follow: these numbers come from the transient model (fallback)";
-pub const NOTE_NOT_STEADY: &str = "the wall is heating or cooling faster than a steady model can follow and the probes disagree with it: hot face, fluxes and heat loss are withheld until the wall settles; measured temperatures are still published";
+pub const NOTE_NOT_STEADY: &str = "the wall is heating or cooling faster than a steady model can follow (its probes disagree with it, or change at rates it cannot have): hot face, fluxes and heat loss are withheld until the wall settles; measured temperatures are still published";
 pub const NOTE_CONTRADICTED: &str = "the probes disagree with the model although the wall is not changing fast: check the probe depths, the materials and each probe; the model's numbers are withheld";
 pub const NOTE_UNCONFIRMED: &str = "the fit passes exactly through its probes, so they cannot check it, and its shell flux disagrees with the loss expected from the shell temperature beyond their combined uncertainty: hot face, fluxes and heat loss are withheld (a further probe makes the fit checkable)";
 
@@ -970,8 +1020,8 @@ fn changing_fast(probes: &[ProbeReport]) -> bool {
 }
 
 /// The post-pass over every model's report: the statuses the model's own
-/// code cannot see (an uncheckable fit that the surface contradicts, a
-/// transient filter that was reset), the numbers each status withholds
+/// code cannot see (an uncheckable fit that the surface contradicts), the
+/// numbers each status withholds
 /// (published as null, see [`withhold`]), then the physical sanity checks
 /// of [`implausibility`] on what is left, which demote to `implausible`.
 /// The status only ever gets worse here. Allocation-free.
@@ -979,15 +1029,6 @@ fn changing_fast(probes: &[ProbeReport]) -> bool {
 pub fn vet(report: &mut ZoneReport, zone: &Zone, probe_sigma_c: &[Option<f64>]) {
     if report.status == ZoneStatus::InsufficientData {
         return;
-    }
-    // A fact the transient model leaves in its report: the filter had
-    // diverged from the readings and was started afresh.
-    if report.model == Model::Transient.name()
-        && report
-            .model_note
-            .is_some_and(|n| n.contains("reset") || n.contains("diverged"))
-    {
-        report.status = report.status.max(ZoneStatus::Contradicted);
     }
     if report.model_check == Some("untested")
         && !report.status.withholds()
@@ -1038,7 +1079,8 @@ fn shell_probe(report: &ZoneReport, zone: &Zone) -> Option<(f64, usize)> {
 ///
 /// | number | `unconfirmed` | `not_steady`, `contradicted`, `implausible` |
 /// |---|---|---|
-/// | `hot_face_c`, both fluxes, `heat_loss_w`, `source_w_m3`, `interface_c`, `thermal_resistance_m2k_w`, `resistance_change_pct`, `lining_remaining_mm`, `hot_face_rate_c_per_h`, `forecast`, `time_to_limit_h`, `uncertainty`, each probe's `rate_model_c_per_h` | null | null |
+/// | `hot_face_c` | the `hot_face_channel` reading, else null | the same |
+/// | both fluxes, `heat_loss_w`, `source_w_m3`, `interface_c`, `thermal_resistance_m2k_w`, `resistance_change_pct`, `lining_remaining_mm`, `hot_face_rate_c_per_h`, `forecast`, `time_to_limit_h`, `uncertainty`, each probe's `rate_model_c_per_h` | null | null |
 /// | `shell_c` and the surface loss from it | the shell thermocouple's reading, else null | the same |
 /// | `balance_mismatch_pct` | kept (the evidence) | null |
 /// | `stored_w_m2` | kept from measured rates, null from the transient estimate | the same |
@@ -1049,7 +1091,7 @@ fn withhold(report: &mut ZoneReport, zone: &Zone) {
     if !report.status.withholds() {
         return;
     }
-    report.hot_face_c = None;
+    report.hot_face_c = report.hot_face_measured_c;
     report.flux_hot_face_w_m2 = None;
     report.flux_shell_w_m2 = None;
     report.heat_loss_w = None;
