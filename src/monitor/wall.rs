@@ -10,6 +10,10 @@ use crate::physics::layered::{
 };
 use crate::physics::material::Material;
 use crate::physics::profile::{ProbeSample, QuadraticWall, WallSolution};
+use crate::physics::uncertainty::{
+    self as unc, Budget, Outputs, SteadyInputs, OUT_FLUX_HOT_FACE, OUT_FLUX_SHELL, OUT_HOT_FACE,
+    OUT_INTERFACE, OUT_RESISTANCE, OUT_SHELL,
+};
 
 pub enum Wall<'a> {
     Quadratic(QuadraticWall<'a>),
@@ -172,6 +176,72 @@ impl<'a> Wall<'a> {
         match (self, &fit.solution) {
             (Wall::Quadratic(q), Solution::Quadratic(s)) => q.model_rate_c_per_s(s, depth_m),
             _ => None,
+        }
+    }
+}
+
+impl Wall<'_> {
+    /// The complete uncertainty budget of this wall's fit to `samples`
+    /// (probe readings, `depth_sigma_m` per sample, `conductivity_rel` per
+    /// layer): central differences of the same `solve` that produced the
+    /// published numbers ([`unc::steady_budget`]). Outputs by the
+    /// `physics::uncertainty::OUT_*` indices: quadratic 4 (no resistance),
+    /// layered 5 plus its interfaces.
+    pub fn budget(
+        &self,
+        samples: &[ProbeSample],
+        depth_sigma_m: &[f64],
+        conductivity_rel: &[f64],
+    ) -> Option<Budget> {
+        let inputs = SteadyInputs {
+            samples,
+            depth_sigma_m,
+            conductivity_rel,
+            thickness_m: self.thickness_m(),
+        };
+        match self {
+            Wall::Quadratic(q) => unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
+                let m = Material {
+                    conductivity_w_mk: q.material.conductivity_w_mk.scaled(f[0]),
+                    ..q.material.clone()
+                };
+                let w = QuadraticWall {
+                    thickness_m: q.thickness_m,
+                    material: &m,
+                };
+                let sol = w.solve(s).ok()?;
+                out[OUT_HOT_FACE] = sol.hot_face_c;
+                out[OUT_SHELL] = sol.shell_c;
+                out[OUT_FLUX_HOT_FACE] = sol.flux_hot_face_w_m2;
+                out[OUT_FLUX_SHELL] = sol.flux_shell_w_m2;
+                Some(4)
+            }),
+            Wall::Layered(l) => unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
+                let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();
+                for (i, spec) in l.layers.iter().enumerate() {
+                    let _ = mats.push(Material {
+                        conductivity_w_mk: spec.material.conductivity_w_mk.scaled(f[i]),
+                        ..spec.material.clone()
+                    });
+                }
+                let mut specs: HVec<LayerSpec<'_>, MAX_LAYERS> = HVec::new();
+                for (spec, m) in l.layers.iter().zip(&mats) {
+                    let _ = specs.push(LayerSpec {
+                        material: m,
+                        ..*spec
+                    });
+                }
+                let sol = LayeredWall::new(&specs).ok()?.solve(s).ok()?;
+                out[OUT_HOT_FACE] = sol.hot_face_c;
+                out[OUT_SHELL] = sol.shell_c;
+                out[OUT_FLUX_HOT_FACE] = sol.flux_w_m2;
+                out[OUT_FLUX_SHELL] = sol.flux_w_m2;
+                out[OUT_RESISTANCE] = sol.thermal_resistance_m2k_w;
+                for (i, t) in sol.interface_c.iter().enumerate() {
+                    out[OUT_INTERFACE + i] = *t;
+                }
+                Some(OUT_INTERFACE + sol.interface_c.len())
+            }),
         }
     }
 }

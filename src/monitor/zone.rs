@@ -17,6 +17,10 @@ use crate::physics::surface::{surface_loss, SurfaceLoss};
 use crate::physics::transient::{
     Limit, TransientError, TransientEstimator, TransientLayer, TransientSettings,
 };
+use crate::physics::uncertainty::{
+    Budget, OUT_FLUX_HOT_FACE, OUT_FLUX_SHELL, OUT_HOT_FACE, OUT_INTERFACE, OUT_RESISTANCE,
+    OUT_SHELL,
+};
 use crate::time::Timestamp;
 
 /// Schema tag of the zone-state payload.
@@ -83,9 +87,10 @@ impl ZoneStatus {
     }
 }
 
-/// Standard uncertainties (1 σ) of the headline numbers, from the fit
-/// covariance and the probes' standard uncertainties. The conductivity's own
-/// uncertainty is not included.
+/// Standard uncertainties (1 σ) of the headline numbers: the probes'
+/// readings, their depths and the layers' conductivities (and heat
+/// capacities, transient) propagated through the zone's model
+/// (`physics::uncertainty`), with the share of each source in `budget`.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Uncertainty {
     pub hot_face_c: f64,
@@ -99,6 +104,51 @@ pub struct Uncertainty {
     pub thermal_resistance_m2k_w: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub lining_remaining_mm: Option<f64>,
+    /// Which input dominates each number's uncertainty.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub budget: Option<UncertaintyBudget>,
+}
+
+/// The share of each source in the variance of a number, % (they sum to
+/// 100). `heat_capacity_pct` only from the transient model.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Shares {
+    pub thermocouple_pct: f64,
+    pub depth_pct: f64,
+    pub conductivity_pct: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub heat_capacity_pct: Option<f64>,
+}
+
+/// The uncertainty budget of the headline numbers (`heat_loss_w` shares
+/// that of `flux_shell_w_m2`).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct UncertaintyBudget {
+    pub hot_face_c: Option<Shares>,
+    pub shell_c: Option<Shares>,
+    pub flux_hot_face_w_m2: Option<Shares>,
+    pub flux_shell_w_m2: Option<Shares>,
+}
+
+impl UncertaintyBudget {
+    /// The shares of a budget's outputs; `heat_capacity` says whether the
+    /// model has that source (the transient model).
+    pub fn of(b: &Budget, heat_capacity: bool) -> Self {
+        let shares = |i: usize| {
+            b.shares_pct(i).map(|[t, d, k, c]| Shares {
+                thermocouple_pct: t,
+                depth_pct: d,
+                conductivity_pct: k,
+                heat_capacity_pct: heat_capacity.then_some(c),
+            })
+        };
+        UncertaintyBudget {
+            hot_face_c: shares(OUT_HOT_FACE),
+            shell_c: shares(OUT_SHELL),
+            flux_hot_face_w_m2: shares(OUT_FLUX_HOT_FACE),
+            flux_shell_w_m2: shares(OUT_FLUX_SHELL),
+        }
+    }
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -376,6 +426,12 @@ impl ZoneEngine {
                 "inconsistent with the zone's other probes (leave-one-out residual)",
             ));
             samples.remove(k);
+            sample_probe.remove(k);
+        }
+        // Each sample's depth uncertainty, for the uncertainty budget.
+        let mut depth_sigma_m: HVec<f64, MAX_PROBES> = HVec::new();
+        for &i in &sample_probe {
+            let _ = depth_sigma_m.push(zone.probes[i].depth_sigma_m);
         }
 
         let mut probes: HVec<ProbeReport, MAX_PROBES> = HVec::new();
@@ -523,7 +579,16 @@ impl ZoneEngine {
         report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
         report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
         report.balance_mismatch_pct = mismatch_pct(sol.flux_shell_w_m2, surface.flux_w_m2);
-        report.uncertainty = Some(Uncertainty {
+        // The complete budget: readings, depths and conductivities through
+        // the same fit. Should a perturbed fit fail (a wall at the edge of
+        // what the model can fit), the probes-only σ of the fit is kept.
+        let mut conductivity_rel = [0.0; MAX_LAYERS];
+        for (u, l) in conductivity_rel.iter_mut().zip(&zone.layers) {
+            *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
+        }
+        let n_layers = zone.layers.len().min(MAX_LAYERS);
+        let budget = wall.budget(&samples, &depth_sigma_m, &conductivity_rel[..n_layers]);
+        let mut u = Uncertainty {
             hot_face_c: sol.sigma_hot_face_c,
             shell_c: sol.sigma_shell_c,
             flux_hot_face_w_m2: sol.sigma_flux_hot_face_w_m2,
@@ -533,7 +598,25 @@ impl ZoneEngine {
                 .then(|| sol.interface_c.iter().map(|&(_, s)| s).collect()),
             thermal_resistance_m2k_w: sol.resistance_m2k_w.map(|(_, s)| s),
             lining_remaining_mm: lining_sigma_mm,
-        });
+            budget: None,
+        };
+        if let Some(b) = &budget {
+            u.hot_face_c = b.total(OUT_HOT_FACE);
+            u.shell_c = b.total(OUT_SHELL);
+            u.flux_hot_face_w_m2 = b.total(OUT_FLUX_HOT_FACE);
+            u.flux_shell_w_m2 = b.total(OUT_FLUX_SHELL);
+            u.heat_loss_w = b.total(OUT_FLUX_SHELL) * zone.area_m2;
+            if let Some(r) = u.thermal_resistance_m2k_w.as_mut() {
+                *r = b.total(OUT_RESISTANCE);
+            }
+            if let Some(ifs) = u.interface_c.as_mut() {
+                for (i, s) in ifs.iter_mut().enumerate() {
+                    *s = b.total(OUT_INTERFACE + i);
+                }
+            }
+            u.budget = Some(UncertaintyBudget::of(b, false));
+        }
+        report.uncertainty = Some(u);
         for p in report.probes.iter_mut() {
             let x = p.depth_mm / 1000.0;
             p.fitted_c = wall.fitted(&sol, x).map(|(t, _)| t);
@@ -684,6 +767,7 @@ impl ZoneEngine {
                 .then(|| interfaces.iter().map(|&(_, s)| s).collect()),
             thermal_resistance_m2k_w: None,
             lining_remaining_mm: None,
+            budget: None,
         });
         // Forecasts under the current hot-face trend, capped at the hot
         // layer's service limit and the firing set-point.
