@@ -66,9 +66,9 @@
 //! χ² is too noisy to rescale by; it is tested instead, see below). It is
 //! propagated to every derived quantity by the delta method (first order,
 //! `σ² = gᵀ C g`), with the analytic sensitivities above for temperatures and
-//! central differences for the thermal resistance. As in the quadratic
-//! model, the uncertainty of the conductivities themselves (often ±10 % on a
-//! data sheet) and of the probe depths is **not** included.
+//! central differences for the thermal resistance. These are the readings'
+//! part; the zone adds the conductivities' and the probe depths' parts
+//! (`physics::uncertainty`, `monitor::wall::Wall::budget`).
 //!
 //! # Model check
 //!

@@ -13,7 +13,7 @@
 //!   the layer: a data-sheet curve that is off is off at every
 //!   temperature), independent between layers;
 //! - for the transient model, each layer's `ρ c_p` the same way
-//!   ([`storage_split`]).
+//!   (docs/transient-model.md).
 //!
 //! Sensitivities of a steady model ([`steady_budget`]) are central
 //! differences of the same model function that produced the numbers, with
