@@ -14,12 +14,13 @@ use crate::physics::fit::linear_slope;
 use crate::physics::layered::{HotFaceReading, ModelCheck, MAX_LAYERS};
 use crate::physics::profile::{heat_loss_w, ProbeSample};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
+use crate::physics::transient::MAX_NODES;
 use crate::physics::transient::{
     Limit, TransientError, TransientEstimator, TransientLayer, TransientSettings,
 };
 use crate::physics::uncertainty::{
-    Budget, OUT_FLUX_HOT_FACE, OUT_FLUX_SHELL, OUT_HOT_FACE, OUT_INTERFACE, OUT_RESISTANCE,
-    OUT_SHELL,
+    transient_budget, Budget, TransientInputs, TransientLayerInput, OUT_FLUX_HOT_FACE,
+    OUT_FLUX_SHELL, OUT_HOT_FACE, OUT_INTERFACE, OUT_RESISTANCE, OUT_SHELL,
 };
 use crate::time::Timestamp;
 
@@ -494,11 +495,11 @@ impl ZoneEngine {
         if zone.model != Model::Transient && zone.fallback == Some(Model::Transient) {
             let mut v = report.clone();
             v.model = Model::Transient.name();
-            self.transient_cycle(settings, &samples, &mut v, now);
+            self.transient_cycle(settings, &samples, &depth_sigma_m, &mut v, now);
             *view = Some(v);
         }
         if zone.model == Model::Transient {
-            self.transient_cycle(settings, &samples, &mut report, now);
+            self.transient_cycle(settings, &samples, &depth_sigma_m, &mut report, now);
             return report;
         }
         let Some(wall) = wall else {
@@ -694,6 +695,7 @@ impl ZoneEngine {
         &mut self,
         settings: &Settings,
         samples: &[ProbeSample],
+        depth_sigma_m: &[f64],
         report: &mut ZoneReport,
         now: Timestamp,
     ) {
@@ -757,7 +759,7 @@ impl ZoneEngine {
         report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
         report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
         report.balance_mismatch_pct = mismatch_pct(ql, surface.flux_w_m2);
-        report.uncertainty = Some(Uncertainty {
+        let mut u = Uncertainty {
             hot_face_c: s_hot,
             shell_c: s_shell,
             flux_hot_face_w_m2: s_q0,
@@ -768,7 +770,45 @@ impl ZoneEngine {
             thermal_resistance_m2k_w: None,
             lining_remaining_mm: None,
             budget: None,
-        });
+        };
+        // Conductivity, heat capacity and probe depths on top of the
+        // filter's σ (the readings' part): physics::uncertainty.
+        let mut layers: HVec<TransientLayerInput<'_>, MAX_LAYERS> = HVec::new();
+        for l in &zone.layers {
+            let m = &settings.materials[l.material];
+            let _ = layers.push(TransientLayerInput {
+                material: &m.material,
+                thickness_m: l.thickness_m,
+                conductivity_rel: m.conductivity_uncertainty_pct / 100.0,
+                heat_capacity_rel: m.heat_capacity_uncertainty_pct / 100.0,
+            });
+        }
+        let mut nodes: HVec<(f64, f64, f64), MAX_NODES> = HVec::new();
+        for n in est.profile() {
+            let _ = nodes.push((n.depth_m, n.temp_c, n.rate_c_per_h / 3600.0));
+        }
+        let mut probe_depths: HVec<(f64, f64), MAX_PROBES> = HVec::new();
+        for (s, &sd) in samples.iter().zip(depth_sigma_m) {
+            let _ = probe_depths.push((s.depth_m, sd));
+        }
+        let inputs = TransientInputs {
+            layers: &layers,
+            nodes: &nodes,
+            probes: &probe_depths,
+            filter_sigma: [s_hot, s_shell, s_q0, s_ql],
+            flux_hot_face_w_m2: q0,
+            flux_shell_w_m2: ql,
+            shell_slope_w_m2k: est.model().shell().flux_slope_w_m2k(shell),
+        };
+        if let Some(b) = transient_budget(&inputs) {
+            u.hot_face_c = b.total(OUT_HOT_FACE);
+            u.shell_c = b.total(OUT_SHELL);
+            u.flux_hot_face_w_m2 = b.total(OUT_FLUX_HOT_FACE);
+            u.flux_shell_w_m2 = b.total(OUT_FLUX_SHELL);
+            u.heat_loss_w = b.total(OUT_FLUX_SHELL) * zone.area_m2;
+            u.budget = Some(UncertaintyBudget::of(&b, true));
+        }
+        report.uncertainty = Some(u);
         // Forecasts under the current hot-face trend, capped at the hot
         // layer's service limit and the firing set-point.
         let cap = zone

@@ -221,3 +221,280 @@ where
     let finite = (0..n).all(|i| budget.total(i).is_finite() || nominal[i].is_nan());
     finite.then_some(budget)
 }
+
+/// One layer of a transient wall with its property uncertainties.
+#[derive(Debug, Clone, Copy)]
+pub struct TransientLayerInput<'a> {
+    pub material: &'a crate::physics::material::Material,
+    pub thickness_m: f64,
+    /// Relative standard uncertainty of k (0.15 for 15 %).
+    pub conductivity_rel: f64,
+    /// Relative standard uncertainty of ρ c_p.
+    pub heat_capacity_rel: f64,
+}
+
+/// The transient model's estimate and what the budget needs of it.
+#[derive(Debug, Clone, Copy)]
+pub struct TransientInputs<'a> {
+    pub layers: &'a [TransientLayerInput<'a>],
+    /// The estimated profile: `(depth_m, °C, ∂T/∂t in °C/s)` by depth.
+    pub nodes: &'a [(f64, f64, f64)],
+    /// The probes used: `(depth_m, depth σ in m)`.
+    pub probes: &'a [(f64, f64)],
+    /// The filter's σ of hot face, shell, q(0), q(L) (the readings' part).
+    pub filter_sigma: [f64; 4],
+    /// Estimated q(0) and q(L), W/m².
+    pub flux_hot_face_w_m2: f64,
+    pub flux_shell_w_m2: f64,
+    /// Slope of the shell's surface loss, d q(L) / d T_shell, W/m²K.
+    pub shell_slope_w_m2k: f64,
+}
+
+/// Sub-steps of the profile integrals of [`transient_budget`].
+const TRANSIENT_STEPS: usize = 48;
+
+/// The budget of the transient model's hot face, shell and fluxes
+/// (outputs 0..4 by the `OUT_*` indices) by a linearisation of the current
+/// profile about the probes, which pin the temperatures where they sit.
+/// With `S(a, b) = ∫_a^b ρc_p ∂T/∂t dx` the heat stored between two depths,
+/// `x_a` the shallowest and `x_b` the deepest probe:
+///
+/// - `q(0) = q(x_a) + S(0, x_a)`: the conduction through the probed span
+///   scales with that span's conductivities (each layer by its share of the
+///   span's resistance `∫dx/k`), the stored part with ρc_p;
+/// - `T(0) − T(x_a) = ∫_0^{x_a} q/k dx`: the conducted part is fixed by the
+///   probes, the stored part `∫_0^{x_a} S(x, x_a)/k dx` scales with
+///   ρc_p / k;
+/// - the shell from the deepest probe through the resistance `R` of
+///   `[x_b, L]` and the surface loss: `T_b − T_s = q(T_s) R` gives
+///   `∂T_s/∂ln k_j = q R_j / (1 + h' R)` and `∂T_s/∂x_b = (q/k_b) / (1 + h' R)`
+///   (`h'` the loss slope); `q(L)` follows as `h' ∂T_s`;
+/// - depths: the shallowest probe moves the hot-face extrapolation by
+///   `q/k` per metre; the two shallowest probes' spacing carries the
+///   conducted flux.
+///
+/// A first-order budget of our own derivation, not a Monte Carlo of the
+/// filter (which would have to re-run its whole history per draw).
+pub fn transient_budget(inp: &TransientInputs<'_>) -> Option<Budget> {
+    let n = inp.nodes.len();
+    if n < 2 || inp.probes.is_empty() || inp.layers.is_empty() {
+        return None;
+    }
+    let thickness: f64 = inp.layers.iter().map(|l| l.thickness_m).sum();
+    let layer_of = |x: f64| {
+        let mut end = 0.0;
+        for (i, l) in inp.layers.iter().enumerate() {
+            end += l.thickness_m;
+            if x <= end + 1e-12 {
+                return i;
+            }
+        }
+        inp.layers.len() - 1
+    };
+    // Linear interpolation of temperature and rate between nodes.
+    let at = |x: f64| {
+        let x = x.clamp(inp.nodes[0].0, inp.nodes[n - 1].0);
+        for w in inp.nodes.windows(2) {
+            let (x0, t0, r0) = w[0];
+            let (x1, t1, r1) = w[1];
+            if x <= x1 {
+                let f = if x1 > x0 { (x - x0) / (x1 - x0) } else { 0.0 };
+                return (t0 + f * (t1 - t0), r0 + f * (r1 - r0));
+            }
+        }
+        (inp.nodes[n - 1].1, inp.nodes[n - 1].2)
+    };
+    let k_at = |x: f64, t: f64| inp.layers[layer_of(x)].material.conductivity_w_mk.at(t);
+    let c_at = |x: f64, t: f64| inp.layers[layer_of(x)].material.heat_capacity_j_m3k(t);
+
+    let mut xa = f64::INFINITY;
+    let mut xb = f64::NEG_INFINITY;
+    let (mut sa, mut sb) = (0.0, 0.0);
+    for &(x, s) in inp.probes {
+        if x < xa {
+            (xa, sa) = (x, s);
+        }
+        if x > xb {
+            (xb, sb) = (x, s);
+        }
+    }
+    // The second-shallowest distinct probe, for the span's gradient.
+    let mut second: Option<(f64, f64)> = None;
+    for &(x, s) in inp.probes {
+        if x > xa + 1e-6 && second.is_none_or(|(x2, _)| x < x2) {
+            second = Some((x, s));
+        }
+    }
+
+    let mut b = Budget::zero(4);
+    b.thermocouple[..4].copy_from_slice(&inp.filter_sigma);
+    let mut k_var = [[0.0; 4]; MAX_LAYERS];
+    let mut c_var = [[0.0; 4]; MAX_LAYERS];
+
+    // Hot side: S(0, x_a) by layer, and ΔT_S = ∫_0^{x_a} S(x, x_a)/k dx by
+    // layer, marching from x_a to the face.
+    let mut s_by_layer = [0.0; MAX_LAYERS];
+    let mut dts_by_layer = [0.0; MAX_LAYERS];
+    if xa > 0.0 {
+        let h = xa / TRANSIENT_STEPS as f64;
+        let mut s_cum = 0.0;
+        for i in 0..TRANSIENT_STEPS {
+            let x_mid = xa - (i as f64 + 0.5) * h;
+            let (t, r) = at(x_mid);
+            let ds = c_at(x_mid, t) * r * h;
+            let j = layer_of(x_mid);
+            s_by_layer[j] += ds;
+            // S(x_mid, x_a) at the middle of the step.
+            let s_mid = s_cum + 0.5 * ds;
+            s_cum += ds;
+            dts_by_layer[j] += s_mid / k_at(x_mid, t) * h;
+        }
+    }
+    let s_hot: f64 = s_by_layer.iter().sum();
+    let q_cond = inp.flux_hot_face_w_m2 - s_hot;
+
+    // Resistance shares of the probed span (the layer at x_a if the span is
+    // a point).
+    let mut r_span = [0.0; MAX_LAYERS];
+    if xb > xa + 1e-6 {
+        let h = (xb - xa) / TRANSIENT_STEPS as f64;
+        for i in 0..TRANSIENT_STEPS {
+            let x = xa + (i as f64 + 0.5) * h;
+            let (t, _) = at(x);
+            r_span[layer_of(x)] += h / k_at(x, t);
+        }
+    } else {
+        r_span[layer_of(xa)] = 1.0;
+    }
+    let r_span_total: f64 = r_span.iter().sum();
+
+    // Shell side: resistance of [x_b, L] by layer.
+    let mut r_shell = [0.0; MAX_LAYERS];
+    if thickness > xb + 1e-9 {
+        let h = (thickness - xb) / TRANSIENT_STEPS as f64;
+        for i in 0..TRANSIENT_STEPS {
+            let x = xb + (i as f64 + 0.5) * h;
+            let (t, _) = at(x);
+            r_shell[layer_of(x)] += h / k_at(x, t);
+        }
+    }
+    let r_shell_total: f64 = r_shell.iter().sum();
+    let slope = inp.shell_slope_w_m2k.max(0.0);
+    let damp = 1.0 + slope * r_shell_total;
+    let ql = inp.flux_shell_w_m2;
+
+    for (j, l) in inp.layers.iter().enumerate().take(MAX_LAYERS) {
+        let (u, c) = (l.conductivity_rel, l.heat_capacity_rel);
+        let dts_k = dts_by_layer[j] * u; // ∂T0/∂ln k = −ΔT_S,j
+        let dts_c = dts_by_layer[j] * c;
+        let q0_k = q_cond * r_span[j] / r_span_total * u;
+        let q0_c = s_by_layer[j] * c;
+        let ts_k = ql * r_shell[j] / damp * u;
+        k_var[j] = [dts_k, ts_k, q0_k, slope * ts_k];
+        c_var[j] = [dts_c, 0.0, q0_c, 0.0];
+    }
+    for i in 0..4 {
+        b.conductivity[i] = k_var.iter().map(|v| v[i] * v[i]).sum::<f64>().sqrt();
+        b.heat_capacity[i] = c_var.iter().map(|v| v[i] * v[i]).sum::<f64>().sqrt();
+    }
+
+    // Depths.
+    let (ta, _) = at(xa);
+    b.depth[OUT_HOT_FACE] = (q_cond / k_at(xa, ta)).abs() * sa;
+    if let Some((x2, s2)) = second {
+        b.depth[OUT_FLUX_HOT_FACE] = q_cond.abs() * sa.hypot(s2) / (x2 - xa);
+    }
+    let (tb, _) = at(xb);
+    let ts_x = (ql / k_at(xb, tb)).abs() / damp * sb;
+    b.depth[OUT_SHELL] = ts_x;
+    b.depth[OUT_FLUX_SHELL] = slope * ts_x;
+
+    (0..4).all(|i| b.total(i).is_finite()).then_some(b)
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::physics::material::Material;
+
+    /// A steady single layer (no storage): the transient budget's
+    /// conductivity part of q(0) is exactly u_k |q| (Fourier's law with the
+    /// gradient pinned by the probes) and the hot face owes nothing to k or
+    /// ρc_p; a probe at the shell pins the shell. A linear profile from
+    /// 1000 °C to 100 °C over 0.25 m with k = 1.2 W/mK: q = 4320 W/m².
+    #[test]
+    fn steady_single_layer_transient_budget() {
+        let m = Material::constant(1.2, 2000.0, 1000.0);
+        let layers = [TransientLayerInput {
+            material: &m,
+            thickness_m: 0.25,
+            conductivity_rel: 0.15,
+            heat_capacity_rel: 0.10,
+        }];
+        let nodes: Vec<(f64, f64, f64)> = (0..=10)
+            .map(|i| {
+                let x = 0.025 * i as f64;
+                (x, 1000.0 - 3600.0 * x, 0.0)
+            })
+            .collect();
+        let q = 1.2 * 3600.0;
+        let probes = [(0.05, 0.002), (0.15, 0.002), (0.25, 0.0)];
+        let b = transient_budget(&TransientInputs {
+            layers: &layers,
+            nodes: &nodes,
+            probes: &probes,
+            filter_sigma: [1.0, 0.5, 20.0, 5.0],
+            flux_hot_face_w_m2: q,
+            flux_shell_w_m2: q,
+            shell_slope_w_m2k: 15.0,
+        })
+        .unwrap();
+        assert!((b.conductivity[OUT_FLUX_HOT_FACE] - 0.15 * q).abs() < 1e-9 * q);
+        assert_eq!(b.conductivity[OUT_HOT_FACE], 0.0);
+        assert_eq!(b.heat_capacity[OUT_FLUX_HOT_FACE], 0.0);
+        assert_eq!(b.conductivity[OUT_SHELL], 0.0);
+        // Depth: the hot face moves by the gradient 3600 K/m × 2 mm.
+        assert!((b.depth[OUT_HOT_FACE] - 7.2).abs() < 1e-9);
+        // The flux by √2 × 2 mm over the 100 mm spacing: 2.83 %.
+        let want = q * (2.0f64).sqrt() * 0.002 / 0.1;
+        assert!((b.depth[OUT_FLUX_HOT_FACE] - want).abs() < 1e-9 * q);
+        assert_eq!(b.thermocouple[OUT_FLUX_HOT_FACE], 20.0);
+    }
+
+    /// A uniformly heating slab stores S = ρc ṙ x_a ahead of the shallowest
+    /// probe: the heat-capacity part of q(0) is u_c S, and the hot face's
+    /// stored drop ∫_0^{x_a} S(x, x_a)/k dx = ρc ṙ x_a²/(2k) shares u_k and
+    /// u_c (closed forms of the integrals for a uniform rate).
+    #[test]
+    fn storage_ahead_of_the_probes_carries_heat_capacity() {
+        let m = Material::constant(1.0, 2000.0, 1000.0);
+        let layers = [TransientLayerInput {
+            material: &m,
+            thickness_m: 0.3,
+            conductivity_rel: 0.15,
+            heat_capacity_rel: 0.10,
+        }];
+        let r = 100.0 / 3600.0; // 100 °C/h everywhere
+        let nodes: Vec<(f64, f64, f64)> = (0..=12)
+            .map(|i| (0.025 * i as f64, 800.0 - 2000.0 * 0.025 * i as f64, r))
+            .collect();
+        let xa = 0.06;
+        let probes = [(xa, 0.0), (0.2, 0.0)];
+        let b = transient_budget(&TransientInputs {
+            layers: &layers,
+            nodes: &nodes,
+            probes: &probes,
+            filter_sigma: [0.0; 4],
+            flux_hot_face_w_m2: 5000.0,
+            flux_shell_w_m2: 500.0,
+            shell_slope_w_m2k: 12.0,
+        })
+        .unwrap();
+        let s = 2.0e6 * r * xa;
+        assert!((b.heat_capacity[OUT_FLUX_HOT_FACE] - 0.10 * s).abs() < 1e-6 * s);
+        assert!((b.conductivity[OUT_FLUX_HOT_FACE] - 0.15 * (5000.0 - s)).abs() < 1e-6 * s);
+        let dts = 2.0e6 * r * xa * xa / 2.0;
+        assert!((b.heat_capacity[OUT_HOT_FACE] - 0.10 * dts).abs() < 1e-3 * dts);
+        assert!((b.conductivity[OUT_HOT_FACE] - 0.15 * dts).abs() < 1e-3 * dts);
+    }
+}
