@@ -358,3 +358,59 @@ fn conductivity_dominates_the_flux_of_a_typical_wall() {
     // Before, σ of the flux held the thermocouples only (0.2 % of it).
     assert!(u.flux_shell_w_m2 > 0.15 * q.abs());
 }
+
+/// The transient model on a steady wall: nothing is being stored, so the
+/// conductivity's part of the hot-face flux is u_k |q| of the layer the
+/// probes span (Fourier's law with the gradient pinned by the probes),
+/// ρc_p has no part in it, and the budget names all four sources. (No
+/// Monte Carlo here: each draw would have to re-run the filter's whole
+/// history.)
+#[test]
+fn transient_budget_on_a_steady_wall() {
+    let text = config(
+        "transient",
+        "{ material = \"dense\", thickness_mm = 300 }",
+        &[(30.0, None), (110.0, None), (200.0, None), (300.0, None)],
+    );
+    let settings = Arc::new(config::parse(&text, "t", None).unwrap());
+    let readings = steady_readings(&settings);
+    let mut m = Monitor::new(settings.clone(), Timestamp::from_epoch_s(T0));
+    let mut last = None;
+    for minute in 1..=180 {
+        let now = Timestamp::from_epoch_s(T0 + 60.0 * minute as f64);
+        for (ch, &v) in readings.iter().enumerate() {
+            m.handle_value(
+                ch,
+                Value::Reading {
+                    value: v,
+                    unit: Unit::Celsius,
+                },
+                None,
+                now,
+            );
+        }
+        while let Some(r) = m.poll_zone(now) {
+            last = Some(r);
+        }
+    }
+    let r = last.expect("zone states");
+    let u = r.uncertainty.as_ref().expect("published uncertainty");
+    let b = u.budget.as_ref().expect("a budget");
+    let q0 = r.flux_hot_face_w_m2.unwrap();
+    let shares = b.flux_hot_face_w_m2.unwrap();
+    let sigma_k = u.flux_hot_face_w_m2 * (shares.conductivity_pct / 100.0).sqrt();
+    assert!(
+        (sigma_k - 0.15 * q0.abs()).abs() < 0.02 * q0.abs(),
+        "σ of q(0) from k {sigma_k:.1} W/m², 15 % of {q0:.1} W/m²"
+    );
+    let c = shares
+        .heat_capacity_pct
+        .expect("the transient model names ρc_p");
+    assert!(c < 1.0, "{shares:?}");
+    // The filter's own σ of an unmeasured hot face is large too: both parts
+    // must be there.
+    assert!(shares.conductivity_pct > 20.0, "{shares:?}");
+    assert!(shares.thermocouple_pct > 20.0, "{shares:?}");
+    assert!(shares.depth_pct > 0.0, "{shares:?}");
+    assert!(u.flux_hot_face_w_m2 > 0.15 * q0.abs());
+}
