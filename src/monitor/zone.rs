@@ -588,7 +588,12 @@ impl ZoneEngine {
             *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
         }
         let n_layers = zone.layers.len().min(MAX_LAYERS);
-        let budget = wall.budget(&samples, &depth_sigma_m, &conductivity_rel[..n_layers]);
+        let budget = wall.budget(
+            &sol,
+            &samples,
+            &depth_sigma_m,
+            &conductivity_rel[..n_layers],
+        );
         let mut u = Uncertainty {
             hot_face_c: sol.sigma_hot_face_c,
             shell_c: sol.sigma_shell_c,

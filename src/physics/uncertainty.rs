@@ -18,7 +18,9 @@
 //! Sensitivities of a steady model ([`steady_budget`]) are central
 //! differences of the same model function that produced the numbers, with
 //! steps of one standard uncertainty (a secant over ±1 σ, which also
-//! follows a mild curvature). Pure, no IO, no heap: every buffer is a fixed
+//! follows a mild curvature). The layered wall (a Gauss–Newton fit, the
+//! costly one) uses it for its conductivities only and steps readings and
+//! depths through its covariance instead (`monitor::wall::Wall::budget`). Pure, no IO, no heap: every buffer is a fixed
 //! array.
 
 use heapless::Vec as HVec;
