@@ -199,6 +199,7 @@ impl Wall<'_> {
             depth_sigma_m,
             conductivity_rel,
             thickness_m: self.thickness_m(),
+            readings: true,
         };
         match self {
             Wall::Quadratic(q) => unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
@@ -304,4 +305,47 @@ fn fill_layered(l: &LayeredWall<'_>, hot_c: f64, q: f64, out: &mut Outputs) -> O
     out[OUT_RESISTANCE] = r;
     out[OUT_INTERFACE..OUT_INTERFACE + n_if].copy_from_slice(&ifs[..n_if]);
     Some(OUT_INTERFACE + n_if)
+}
+
+/// The depth and conductivity parts of the σ of a lining-wear estimate
+/// (`LayeredWall::remaining_hot_layer`), mm: central differences of the
+/// same estimate over each probe's depth and each layer's conductivity
+/// (the readings' part is the estimate's own `sigma_mm`).
+pub fn wear_sigma_mm(
+    l: &LayeredWall<'_>,
+    samples: &[ProbeSample],
+    hot: layered::HotFaceReading,
+    depth_sigma_m: &[f64],
+    conductivity_rel: &[f64],
+) -> Option<(f64, f64)> {
+    let inputs = SteadyInputs {
+        samples,
+        depth_sigma_m,
+        conductivity_rel,
+        thickness_m: l.thickness_m(),
+        readings: false,
+    };
+    let b = unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
+        let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();
+        for (i, spec) in l.layers.iter().enumerate() {
+            let _ = mats.push(Material {
+                conductivity_w_mk: spec.material.conductivity_w_mk.scaled(f[i]),
+                ..spec.material.clone()
+            });
+        }
+        let mut specs: HVec<LayerSpec<'_>, MAX_LAYERS> = HVec::new();
+        for (spec, m) in l.layers.iter().zip(&mats) {
+            let _ = specs.push(LayerSpec {
+                material: m,
+                ..*spec
+            });
+        }
+        let w = LayeredWall::new(&specs)
+            .ok()?
+            .remaining_hot_layer(s, hot)
+            .ok()?;
+        out[0] = w.remaining_mm;
+        Some(1)
+    })?;
+    Some((b.depth[0], b.conductivity[0]))
 }

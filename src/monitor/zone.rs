@@ -571,7 +571,19 @@ impl ZoneEngine {
                 };
                 if let Ok(w) = l.remaining_hot_layer(&samples, hot) {
                     report.lining_remaining_mm = Some(w.remaining_mm);
-                    lining_sigma_mm = Some(w.sigma_mm);
+                    // The readings' σ of the estimate, with the probes'
+                    // depths and the layers' conductivities added.
+                    let mut k_rel = [0.0; MAX_LAYERS];
+                    for (u, l) in k_rel.iter_mut().zip(&zone.layers) {
+                        *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
+                    }
+                    let n = zone.layers.len().min(MAX_LAYERS);
+                    let extra =
+                        super::wall::wear_sigma_mm(l, &samples, hot, &depth_sigma_m, &k_rel[..n]);
+                    lining_sigma_mm = Some(match extra {
+                        Some((d, k)) => (w.sigma_mm.powi(2) + d * d + k * k).sqrt(),
+                        None => w.sigma_mm,
+                    });
                 }
             }
         }

@@ -115,6 +115,9 @@ pub struct SteadyInputs<'s> {
     pub conductivity_rel: &'s [f64],
     /// Wall thickness, m (a depth step never leaves the wall).
     pub thickness_m: f64,
+    /// Step the readings too (false: their part is known otherwise and
+    /// left at 0).
+    pub readings: bool,
 }
 
 /// The budget of a steady model by central differences.
@@ -161,7 +164,7 @@ where
         // Reading: central difference over ±σ; its contribution is
         // σ · (f(+σ) − f(−σ)) / (2σ).
         let sd = inputs.samples[j].sigma_c;
-        if sd > 0.0 {
+        if inputs.readings && sd > 0.0 {
             work[j].temp_c = inputs.samples[j].temp_c + sd;
             model(&work, &ones, &mut plus)?;
             work[j].temp_c = inputs.samples[j].temp_c - sd;
