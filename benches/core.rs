@@ -154,6 +154,32 @@ fn wall_models(c: &mut Criterion) {
         b.iter(|| wall.solve(black_box(&samples)))
     });
 
+    // The complete uncertainty budget of that fit (readings, depths 2 mm,
+    // conductivities 15 % per layer), on top of the fit.
+    let w = wallflux::monitor::wall::Wall::Layered(wall.clone());
+    let fit = w.solve(&samples).unwrap();
+    c.bench_function("layered uncertainty budget, 3 layers, 5 probes", |b| {
+        b.iter(|| w.budget(&fit, black_box(&samples), &[0.002; 5], &[0.15; 3]))
+    });
+    let dense_only =
+        wallflux::monitor::wall::Wall::Quadratic(wallflux::physics::profile::QuadraticWall {
+            thickness_m: 0.23,
+            material: &dense,
+        });
+    let quad_samples: Vec<ProbeSample> = samples[..2]
+        .iter()
+        .copied()
+        .chain([ProbeSample {
+            depth_m: 0.2,
+            temp_c: 560.0,
+            sigma_c: 1.0,
+        }])
+        .collect();
+    let qfit = dense_only.solve(&quad_samples).unwrap();
+    c.bench_function("quadratic uncertainty budget, 3 probes", |b| {
+        b.iter(|| dense_only.budget(&qfit, black_box(&quad_samples), &[0.002; 3], &[0.15]))
+    });
+
     let surface = SurfaceParams {
         orientation: Orientation::Vertical,
         length_m: 2.0,

@@ -12,7 +12,8 @@
 //!
 //! - [`physics`]: thermocouples (ITS-90), tolerances, materials, the profile
 //!   fit, the single-layer wall solution, the steady layered wall, the
-//!   transient wall model and its Kalman estimator, surface heat loss.
+//!   transient wall model and its Kalman estimator, surface heat loss, the
+//!   complete uncertainty budget.
 //! - [`acquire`]: line protocol v1 (sans-IO parser and encoder), the serial
 //!   edge (open, read, reopen).
 //! - [`monitor`]: per-channel signal chain and health, per-zone engine

@@ -313,7 +313,38 @@ pub struct NamedMaterial {
     /// Surface emissivity, the default of a zone whose shell (last layer)
     /// is this material.
     pub emissivity: Option<f64>,
+    /// Relative standard uncertainty of the conductivity, % (1 σ; default
+    /// [`DEFAULT_CONDUCTIVITY_UNCERTAINTY_PCT`]), fully correlated within a
+    /// layer.
+    pub conductivity_uncertainty_pct: f64,
+    /// Relative standard uncertainty of ρ c_p, % (1 σ; default
+    /// [`DEFAULT_HEAT_CAPACITY_UNCERTAINTY_PCT`]; the transient model).
+    pub heat_capacity_uncertainty_pct: f64,
 }
+
+/// Default relative standard uncertainty of a conductivity, %: a value of
+/// our own within the ±10–25 % that separates a data-sheet conductivity
+/// from a wall's in service (common practice; config/materials.toml gives
+/// the reasoning per class).
+pub const DEFAULT_CONDUCTIVITY_UNCERTAINTY_PCT: f64 = 15.0;
+
+/// Default relative standard uncertainty of ρ c_p, %: a value of our own
+/// (density and specific heat of a class are known better than its
+/// conductivity; common practice).
+pub const DEFAULT_HEAT_CAPACITY_UNCERTAINTY_PCT: f64 = 10.0;
+
+/// Default standard uncertainty of a probe's depth inside the wall, mm: a
+/// value of our own (a drilled hole and a thermocouple tip are rarely
+/// placed better than a few millimetres). A probe at a face has 0.
+pub const DEFAULT_DEPTH_SIGMA_MM: f64 = 2.0;
+
+/// Largest accepted relative uncertainty of a material property, %: a
+/// σ of the value itself no longer describes a positive property.
+pub const MAX_PROPERTY_UNCERTAINTY_PCT: f64 = 100.0;
+
+/// Largest accepted `depth_sigma_mm`: beyond it a probe's depth is not
+/// known at all.
+pub const MAX_DEPTH_SIGMA_MM: f64 = 50.0;
 
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum Model {
@@ -352,6 +383,9 @@ pub struct Probe {
     pub channel: usize,
     /// Depth from the hot face, m.
     pub depth_m: f64,
+    /// Standard uncertainty of the depth, m (`depth_sigma_mm`; default
+    /// [`DEFAULT_DEPTH_SIGMA_MM`] inside the wall, 0 at a face).
+    pub depth_sigma_m: f64,
 }
 
 #[derive(Debug, Clone)]

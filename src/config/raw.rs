@@ -202,6 +202,8 @@ pub struct RawMaterial {
     pub specific_heat_j_kgk: S<RawProperty>,
     pub max_service_c: Option<S<f64>>,
     pub emissivity: Option<S<f64>>,
+    pub conductivity_uncertainty_pct: Option<S<f64>>,
+    pub heat_capacity_uncertainty_pct: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]
@@ -217,6 +219,7 @@ pub struct RawLayer {
 pub struct RawProbe {
     pub channel: S<String>,
     pub depth_mm: S<f64>,
+    pub depth_sigma_mm: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]

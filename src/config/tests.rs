@@ -280,3 +280,68 @@ fn shipped_materials_load() {
     let bad = text.replace("from_c = 20.0, to_c = 800.0", "from = 20.0, to_c = 800.0");
     assert!(!problems(&bad).is_empty());
 }
+
+/// The uncertainty keys: defaults where absent (0 at the faces), and a
+/// negative, absurd or non-finite value refused with its key and line.
+#[test]
+fn uncertainty_keys_default_and_refuse_the_absurd() {
+    let s = parse(EXAMPLE, "example.toml", None).unwrap();
+    let m = &s.materials[0];
+    assert_eq!(
+        m.conductivity_uncertainty_pct,
+        DEFAULT_CONDUCTIVITY_UNCERTAINTY_PCT
+    );
+    assert_eq!(
+        m.heat_capacity_uncertainty_pct,
+        DEFAULT_HEAT_CAPACITY_UNCERTAINTY_PCT
+    );
+    let z = &s.zones[0];
+    assert!((z.probes[0].depth_sigma_m - DEFAULT_DEPTH_SIGMA_MM / 1000.0).abs() < 1e-12);
+    // The last probe sits at the shell (250 mm of a 250 mm wall).
+    assert_eq!(z.probes[3].depth_sigma_m, 0.0);
+
+    let text = EXAMPLE
+        .replacen(
+            "[[material]]\n",
+            "[[material]]\nconductivity_uncertainty_pct = -5\nheat_capacity_uncertainty_pct = 250\n",
+            1,
+        )
+        .replace(
+            "{ channel = \"w1-40\", depth_mm = 40 }",
+            "{ channel = \"w1-40\", depth_mm = 40, depth_sigma_mm = 80 }",
+        )
+        .replace(
+            "{ channel = \"w1-120\", depth_mm = 120 }",
+            "{ channel = \"w1-120\", depth_mm = 120, depth_sigma_mm = nan }",
+        );
+    let p = problems(&text);
+    let line_of = |needle: &str| text.lines().position(|l| l.contains(needle)).unwrap() + 1;
+    for (path, needle, words) in [
+        (
+            "material[0].conductivity_uncertainty_pct",
+            "conductivity_uncertainty_pct = -5",
+            "-5",
+        ),
+        (
+            "material[0].heat_capacity_uncertainty_pct",
+            "heat_capacity_uncertainty_pct = 250",
+            "250",
+        ),
+        (
+            "zone[0].probes[0].depth_sigma_mm",
+            "depth_sigma_mm = 80",
+            "80",
+        ),
+        (
+            "zone[0].probes[1].depth_sigma_mm",
+            "depth_sigma_mm = nan",
+            "NaN",
+        ),
+    ] {
+        let found = p.iter().find(|q| q.path == path);
+        let q = found.unwrap_or_else(|| panic!("{path} not reported: {p:?}"));
+        assert_eq!(q.line, Some(line_of(needle)), "{q:?}");
+        assert!(q.message.contains(words), "{q:?}");
+    }
+    assert_eq!(p.len(), 4, "{p:?}");
+}

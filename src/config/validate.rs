@@ -1301,7 +1301,37 @@ impl Validator<'_> {
             }
             v
         });
+        let pct = |v: &mut Self, key: &str, default: f64, raw: &Option<Spanned<f64>>| match raw {
+            None => default,
+            Some(s) => {
+                let x = *s.get_ref();
+                if !(x.is_finite() && (0.0..=MAX_PROPERTY_UNCERTAINTY_PCT).contains(&x)) {
+                    v.problem(
+                        s.span(),
+                        p(key),
+                        format!(
+                            "must be a standard uncertainty from 0 to {MAX_PROPERTY_UNCERTAINTY_PCT} %, got {x}"
+                        ),
+                    );
+                }
+                x
+            }
+        };
+        let conductivity_uncertainty_pct = pct(
+            self,
+            "conductivity_uncertainty_pct",
+            DEFAULT_CONDUCTIVITY_UNCERTAINTY_PCT,
+            &m.conductivity_uncertainty_pct,
+        );
+        let heat_capacity_uncertainty_pct = pct(
+            self,
+            "heat_capacity_uncertainty_pct",
+            DEFAULT_HEAT_CAPACITY_UNCERTAINTY_PCT,
+            &m.heat_capacity_uncertainty_pct,
+        );
         NamedMaterial {
+            conductivity_uncertainty_pct,
+            heat_capacity_uncertainty_pct,
             name,
             material: Material {
                 conductivity_w_mk,
@@ -1612,9 +1642,28 @@ impl Validator<'_> {
                     ),
                 );
             }
+            let at_face = depth_mm.abs() < 1e-9 || (depth_mm - thickness_m * 1000.0).abs() < 1e-9;
+            let depth_sigma_mm = match &pr.depth_sigma_mm {
+                None if at_face => 0.0,
+                None => DEFAULT_DEPTH_SIGMA_MM,
+                Some(s) => {
+                    let v = *s.get_ref();
+                    if !(v.is_finite() && (0.0..=MAX_DEPTH_SIGMA_MM).contains(&v)) {
+                        self.problem(
+                            s.span(),
+                            format!("{pp}.depth_sigma_mm"),
+                            format!(
+                                "must be a standard uncertainty from 0 to {MAX_DEPTH_SIGMA_MM} mm, got {v}"
+                            ),
+                        );
+                    }
+                    v
+                }
+            };
             probes.push(Probe {
                 channel,
                 depth_m: depth_mm / 1000.0,
+                depth_sigma_m: depth_sigma_mm / 1000.0,
             });
         }
         Zone {

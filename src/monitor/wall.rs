@@ -10,6 +10,10 @@ use crate::physics::layered::{
 };
 use crate::physics::material::Material;
 use crate::physics::profile::{ProbeSample, QuadraticWall, WallSolution};
+use crate::physics::uncertainty::{
+    self as unc, Budget, Outputs, SteadyInputs, MAX_OUTPUTS, OUT_FLUX_HOT_FACE, OUT_FLUX_SHELL,
+    OUT_HOT_FACE, OUT_INTERFACE, OUT_RESISTANCE, OUT_SHELL,
+};
 
 pub enum Wall<'a> {
     Quadratic(QuadraticWall<'a>),
@@ -174,4 +178,174 @@ impl<'a> Wall<'a> {
             _ => None,
         }
     }
+}
+
+impl Wall<'_> {
+    /// The complete uncertainty budget of this wall's fit to `samples`
+    /// (probe readings, `depth_sigma_m` per sample, `conductivity_rel` per
+    /// layer): central differences of the same `solve` that produced the
+    /// published numbers ([`unc::steady_budget`]). Outputs by the
+    /// `physics::uncertainty::OUT_*` indices: quadratic 4 (no resistance),
+    /// layered 5 plus its interfaces.
+    pub fn budget(
+        &self,
+        fit: &Fit,
+        samples: &[ProbeSample],
+        depth_sigma_m: &[f64],
+        conductivity_rel: &[f64],
+    ) -> Option<Budget> {
+        let inputs = SteadyInputs {
+            samples,
+            depth_sigma_m,
+            conductivity_rel,
+            thickness_m: self.thickness_m(),
+            readings: true,
+        };
+        match self {
+            Wall::Quadratic(q) => unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
+                let m = Material {
+                    conductivity_w_mk: q.material.conductivity_w_mk.scaled(f[0]),
+                    ..q.material.clone()
+                };
+                let w = QuadraticWall {
+                    thickness_m: q.thickness_m,
+                    material: &m,
+                };
+                let sol = w.solve(s).ok()?;
+                out[OUT_HOT_FACE] = sol.hot_face_c;
+                out[OUT_SHELL] = sol.shell_c;
+                out[OUT_FLUX_HOT_FACE] = sol.flux_hot_face_w_m2;
+                out[OUT_FLUX_SHELL] = sol.flux_shell_w_m2;
+                Some(4)
+            }),
+            Wall::Layered(l) => {
+                // Readings and depths: first order through the fit's own
+                // covariance (a reading's step moves the fit by C Jᵀ W e_i;
+                // a depth's step is the reading's step of −T'(x)·δx with
+                // T' = −q/k inside a layer), evaluated on the profile at
+                // p ± Δp (cheap: a march, no refit). Conductivities: the
+                // whole fit again with each layer's k scaled.
+                let Solution::Layered(sol) = &fit.solution else {
+                    return None;
+                };
+                let mut budget = unc::steady_budget(
+                    &SteadyInputs {
+                        depth_sigma_m: &[],
+                        samples: &[],
+                        ..inputs
+                    },
+                    |_, f, out: &mut Outputs| {
+                        if f.iter().all(|&v| v == 1.0) {
+                            // The nominal: already solved.
+                            fill_layered(l, sol.hot_face_c, sol.flux_w_m2, out)
+                        } else {
+                            let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();
+                            for (i, spec) in l.layers.iter().enumerate() {
+                                let _ = mats.push(Material {
+                                    conductivity_w_mk: spec.material.conductivity_w_mk.scaled(f[i]),
+                                    ..spec.material.clone()
+                                });
+                            }
+                            let mut specs: HVec<LayerSpec<'_>, MAX_LAYERS> = HVec::new();
+                            for (spec, m) in l.layers.iter().zip(&mats) {
+                                let _ = specs.push(LayerSpec {
+                                    material: m,
+                                    ..*spec
+                                });
+                            }
+                            let w = LayeredWall::new(&specs).ok()?;
+                            let s = w.solve(samples).ok()?;
+                            fill_layered(&w, s.hot_face_c, s.flux_w_m2, out)
+                        }
+                    },
+                )?;
+                let c = sol.covariance;
+                let (mut plus, mut minus) = ([0.0; MAX_OUTPUTS], [0.0; MAX_OUTPUTS]);
+                let mut tc = [0.0; MAX_OUTPUTS];
+                let mut dx = [0.0; MAX_OUTPUTS];
+                for (s, &sx) in samples.iter().zip(depth_sigma_m) {
+                    let (_, k, g) = l.point_at(sol.hot_face_c, sol.flux_w_m2, s.depth_m).ok()?;
+                    // Δp of a +1σ reading: C ĵ with ĵ = g/σ.
+                    let jw = [g[0] / s.sigma_c, g[1] / s.sigma_c];
+                    let dp = [
+                        c[0][0] * jw[0] + c[0][1] * jw[1],
+                        c[1][0] * jw[0] + c[1][1] * jw[1],
+                    ];
+                    // The depth's equivalent reading step, in reading σ.
+                    let depth_ratio = (sol.flux_w_m2 / k).abs() * sx / s.sigma_c;
+                    fill_layered(l, sol.hot_face_c + dp[0], sol.flux_w_m2 + dp[1], &mut plus)?;
+                    fill_layered(l, sol.hot_face_c - dp[0], sol.flux_w_m2 - dp[1], &mut minus)?;
+                    for i in 0..budget.n {
+                        let d = 0.5 * (plus[i] - minus[i]);
+                        tc[i] += d * d;
+                        dx[i] += d * d * depth_ratio * depth_ratio;
+                    }
+                }
+                for i in 0..budget.n {
+                    budget.thermocouple[i] = tc[i].sqrt();
+                    budget.depth[i] = dx[i].sqrt();
+                }
+                (0..budget.n)
+                    .all(|i| budget.total(i).is_finite())
+                    .then_some(budget)
+            }
+        }
+    }
+}
+
+/// A layered wall's numbers for `(T_hot, q)` by the `OUT_*` indices.
+fn fill_layered(l: &LayeredWall<'_>, hot_c: f64, q: f64, out: &mut Outputs) -> Option<usize> {
+    let mut ifs = [0.0; MAX_LAYERS];
+    let n_if = l.layers.len().saturating_sub(1);
+    let (shell, r) = l.numbers_at(hot_c, q, &mut ifs[..n_if]).ok()?;
+    out[OUT_HOT_FACE] = hot_c;
+    out[OUT_SHELL] = shell;
+    out[OUT_FLUX_HOT_FACE] = q;
+    out[OUT_FLUX_SHELL] = q;
+    out[OUT_RESISTANCE] = r;
+    out[OUT_INTERFACE..OUT_INTERFACE + n_if].copy_from_slice(&ifs[..n_if]);
+    Some(OUT_INTERFACE + n_if)
+}
+
+/// The depth and conductivity parts of the σ of a lining-wear estimate
+/// (`LayeredWall::remaining_hot_layer`), mm: central differences of the
+/// same estimate over each probe's depth and each layer's conductivity
+/// (the readings' part is the estimate's own `sigma_mm`).
+pub fn wear_sigma_mm(
+    l: &LayeredWall<'_>,
+    samples: &[ProbeSample],
+    hot: layered::HotFaceReading,
+    depth_sigma_m: &[f64],
+    conductivity_rel: &[f64],
+) -> Option<(f64, f64)> {
+    let inputs = SteadyInputs {
+        samples,
+        depth_sigma_m,
+        conductivity_rel,
+        thickness_m: l.thickness_m(),
+        readings: false,
+    };
+    let b = unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
+        let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();
+        for (i, spec) in l.layers.iter().enumerate() {
+            let _ = mats.push(Material {
+                conductivity_w_mk: spec.material.conductivity_w_mk.scaled(f[i]),
+                ..spec.material.clone()
+            });
+        }
+        let mut specs: HVec<LayerSpec<'_>, MAX_LAYERS> = HVec::new();
+        for (spec, m) in l.layers.iter().zip(&mats) {
+            let _ = specs.push(LayerSpec {
+                material: m,
+                ..*spec
+            });
+        }
+        let w = LayeredWall::new(&specs)
+            .ok()?
+            .remaining_hot_layer(s, hot)
+            .ok()?;
+        out[0] = w.remaining_mm;
+        Some(1)
+    })?;
+    Some((b.depth[0], b.conductivity[0]))
 }

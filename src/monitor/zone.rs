@@ -14,8 +14,13 @@ use crate::physics::fit::linear_slope;
 use crate::physics::layered::{HotFaceReading, ModelCheck, MAX_LAYERS};
 use crate::physics::profile::{heat_loss_w, ProbeSample};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
+use crate::physics::transient::MAX_NODES;
 use crate::physics::transient::{
     Limit, TransientError, TransientEstimator, TransientLayer, TransientSettings,
+};
+use crate::physics::uncertainty::{
+    transient_budget, Budget, TransientInputs, TransientLayerInput, OUT_FLUX_HOT_FACE,
+    OUT_FLUX_SHELL, OUT_HOT_FACE, OUT_INTERFACE, OUT_RESISTANCE, OUT_SHELL,
 };
 use crate::time::Timestamp;
 
@@ -83,9 +88,10 @@ impl ZoneStatus {
     }
 }
 
-/// Standard uncertainties (1 σ) of the headline numbers, from the fit
-/// covariance and the probes' standard uncertainties. The conductivity's own
-/// uncertainty is not included.
+/// Standard uncertainties (1 σ) of the headline numbers: the probes'
+/// readings, their depths and the layers' conductivities (and heat
+/// capacities, transient) propagated through the zone's model
+/// (`physics::uncertainty`), with the share of each source in `budget`.
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct Uncertainty {
     pub hot_face_c: f64,
@@ -99,6 +105,51 @@ pub struct Uncertainty {
     pub thermal_resistance_m2k_w: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub lining_remaining_mm: Option<f64>,
+    /// Which input dominates each number's uncertainty.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub budget: Option<UncertaintyBudget>,
+}
+
+/// The share of each source in the variance of a number, % (they sum to
+/// 100). `heat_capacity_pct` only from the transient model.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct Shares {
+    pub thermocouple_pct: f64,
+    pub depth_pct: f64,
+    pub conductivity_pct: f64,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub heat_capacity_pct: Option<f64>,
+}
+
+/// The uncertainty budget of the headline numbers (`heat_loss_w` shares
+/// that of `flux_shell_w_m2`).
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct UncertaintyBudget {
+    pub hot_face_c: Option<Shares>,
+    pub shell_c: Option<Shares>,
+    pub flux_hot_face_w_m2: Option<Shares>,
+    pub flux_shell_w_m2: Option<Shares>,
+}
+
+impl UncertaintyBudget {
+    /// The shares of a budget's outputs; `heat_capacity` says whether the
+    /// model has that source (the transient model).
+    pub fn of(b: &Budget, heat_capacity: bool) -> Self {
+        let shares = |i: usize| {
+            b.shares_pct(i).map(|[t, d, k, c]| Shares {
+                thermocouple_pct: t,
+                depth_pct: d,
+                conductivity_pct: k,
+                heat_capacity_pct: heat_capacity.then_some(c),
+            })
+        };
+        UncertaintyBudget {
+            hot_face_c: shares(OUT_HOT_FACE),
+            shell_c: shares(OUT_SHELL),
+            flux_hot_face_w_m2: shares(OUT_FLUX_HOT_FACE),
+            flux_shell_w_m2: shares(OUT_FLUX_SHELL),
+        }
+    }
 }
 
 #[derive(Debug, Clone, PartialEq, Serialize)]
@@ -382,6 +433,12 @@ impl ZoneEngine {
                 "inconsistent with the zone's other probes (leave-one-out residual)",
             ));
             samples.remove(k);
+            sample_probe.remove(k);
+        }
+        // Each sample's depth uncertainty, for the uncertainty budget.
+        let mut depth_sigma_m: HVec<f64, MAX_PROBES> = HVec::new();
+        for &i in &sample_probe {
+            let _ = depth_sigma_m.push(zone.probes[i].depth_sigma_m);
         }
 
         let mut probes: HVec<ProbeReport, MAX_PROBES> = HVec::new();
@@ -445,11 +502,11 @@ impl ZoneEngine {
         if zone.model != Model::Transient && zone.fallback == Some(Model::Transient) {
             let mut v = report.clone();
             v.model = Model::Transient.name();
-            self.transient_cycle(settings, &samples, &mut v, now);
+            self.transient_cycle(settings, &samples, &depth_sigma_m, &mut v, now);
             *view = Some(v);
         }
         if zone.model == Model::Transient {
-            self.transient_cycle(settings, &samples, &mut report, now);
+            self.transient_cycle(settings, &samples, &depth_sigma_m, &mut report, now);
             return report;
         }
         let Some(wall) = wall else {
@@ -541,7 +598,19 @@ impl ZoneEngine {
                 };
                 if let Ok(w) = l.remaining_hot_layer(&samples, hot) {
                     report.lining_remaining_mm = Some(w.remaining_mm);
-                    lining_sigma_mm = Some(w.sigma_mm);
+                    // The readings' σ of the estimate, with the probes'
+                    // depths and the layers' conductivities added.
+                    let mut k_rel = [0.0; MAX_LAYERS];
+                    for (u, l) in k_rel.iter_mut().zip(&zone.layers) {
+                        *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
+                    }
+                    let n = zone.layers.len().min(MAX_LAYERS);
+                    let extra =
+                        super::wall::wear_sigma_mm(l, &samples, hot, &depth_sigma_m, &k_rel[..n]);
+                    lining_sigma_mm = Some(match extra {
+                        Some((d, k)) => (w.sigma_mm.powi(2) + d * d + k * k).sqrt(),
+                        None => w.sigma_mm,
+                    });
                 }
             }
         }
@@ -550,7 +619,21 @@ impl ZoneEngine {
         report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
         report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
         report.balance_mismatch_pct = mismatch_pct(sol.flux_shell_w_m2, surface.flux_w_m2);
-        report.uncertainty = Some(Uncertainty {
+        // The complete budget: readings, depths and conductivities through
+        // the same fit. Should a perturbed fit fail (a wall at the edge of
+        // what the model can fit), the probes-only σ of the fit is kept.
+        let mut conductivity_rel = [0.0; MAX_LAYERS];
+        for (u, l) in conductivity_rel.iter_mut().zip(&zone.layers) {
+            *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
+        }
+        let n_layers = zone.layers.len().min(MAX_LAYERS);
+        let budget = wall.budget(
+            &sol,
+            &samples,
+            &depth_sigma_m,
+            &conductivity_rel[..n_layers],
+        );
+        let mut u = Uncertainty {
             hot_face_c: sol.sigma_hot_face_c,
             shell_c: sol.sigma_shell_c,
             flux_hot_face_w_m2: sol.sigma_flux_hot_face_w_m2,
@@ -560,7 +643,25 @@ impl ZoneEngine {
                 .then(|| sol.interface_c.iter().map(|&(_, s)| s).collect()),
             thermal_resistance_m2k_w: sol.resistance_m2k_w.map(|(_, s)| s),
             lining_remaining_mm: lining_sigma_mm,
-        });
+            budget: None,
+        };
+        if let Some(b) = &budget {
+            u.hot_face_c = b.total(OUT_HOT_FACE);
+            u.shell_c = b.total(OUT_SHELL);
+            u.flux_hot_face_w_m2 = b.total(OUT_FLUX_HOT_FACE);
+            u.flux_shell_w_m2 = b.total(OUT_FLUX_SHELL);
+            u.heat_loss_w = b.total(OUT_FLUX_SHELL) * zone.area_m2;
+            if let Some(r) = u.thermal_resistance_m2k_w.as_mut() {
+                *r = b.total(OUT_RESISTANCE);
+            }
+            if let Some(ifs) = u.interface_c.as_mut() {
+                for (i, s) in ifs.iter_mut().enumerate() {
+                    *s = b.total(OUT_INTERFACE + i);
+                }
+            }
+            u.budget = Some(UncertaintyBudget::of(b, false));
+        }
+        report.uncertainty = Some(u);
         report
     }
 }
@@ -657,6 +758,7 @@ impl ZoneEngine {
         &mut self,
         settings: &Settings,
         samples: &[ProbeSample],
+        depth_sigma_m: &[f64],
         report: &mut ZoneReport,
         now: Timestamp,
     ) {
@@ -724,7 +826,7 @@ impl ZoneEngine {
         report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
         report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
         report.balance_mismatch_pct = mismatch_pct(ql, surface.flux_w_m2);
-        report.uncertainty = Some(Uncertainty {
+        let mut u = Uncertainty {
             hot_face_c: s_hot,
             shell_c: s_shell,
             flux_hot_face_w_m2: s_q0,
@@ -734,7 +836,46 @@ impl ZoneEngine {
                 .then(|| interfaces.iter().map(|&(_, s)| s).collect()),
             thermal_resistance_m2k_w: None,
             lining_remaining_mm: None,
-        });
+            budget: None,
+        };
+        // Conductivity, heat capacity and probe depths on top of the
+        // filter's σ (the readings' part): physics::uncertainty.
+        let mut layers: HVec<TransientLayerInput<'_>, MAX_LAYERS> = HVec::new();
+        for l in &zone.layers {
+            let m = &settings.materials[l.material];
+            let _ = layers.push(TransientLayerInput {
+                material: &m.material,
+                thickness_m: l.thickness_m,
+                conductivity_rel: m.conductivity_uncertainty_pct / 100.0,
+                heat_capacity_rel: m.heat_capacity_uncertainty_pct / 100.0,
+            });
+        }
+        let mut nodes: HVec<(f64, f64, f64), MAX_NODES> = HVec::new();
+        for n in est.profile() {
+            let _ = nodes.push((n.depth_m, n.temp_c, n.rate_c_per_h / 3600.0));
+        }
+        let mut probe_depths: HVec<(f64, f64), MAX_PROBES> = HVec::new();
+        for (s, &sd) in samples.iter().zip(depth_sigma_m) {
+            let _ = probe_depths.push((s.depth_m, sd));
+        }
+        let inputs = TransientInputs {
+            layers: &layers,
+            nodes: &nodes,
+            probes: &probe_depths,
+            filter_sigma: [s_hot, s_shell, s_q0, s_ql],
+            flux_hot_face_w_m2: q0,
+            flux_shell_w_m2: ql,
+            shell_slope_w_m2k: est.model().shell().flux_slope_w_m2k(shell),
+        };
+        if let Some(b) = transient_budget(&inputs) {
+            u.hot_face_c = b.total(OUT_HOT_FACE);
+            u.shell_c = b.total(OUT_SHELL);
+            u.flux_hot_face_w_m2 = b.total(OUT_FLUX_HOT_FACE);
+            u.flux_shell_w_m2 = b.total(OUT_FLUX_SHELL);
+            u.heat_loss_w = b.total(OUT_FLUX_SHELL) * zone.area_m2;
+            u.budget = Some(UncertaintyBudget::of(&b, true));
+        }
+        report.uncertainty = Some(u);
         // Forecasts under the current hot-face trend, capped at the hot
         // layer's service limit and the firing set-point.
         let cap = zone

@@ -66,9 +66,9 @@
 //! χ² is too noisy to rescale by; it is tested instead, see below). It is
 //! propagated to every derived quantity by the delta method (first order,
 //! `σ² = gᵀ C g`), with the analytic sensitivities above for temperatures and
-//! central differences for the thermal resistance. As in the quadratic
-//! model, the uncertainty of the conductivities themselves (often ±10 % on a
-//! data sheet) and of the probe depths is **not** included.
+//! central differences for the thermal resistance. These are the readings'
+//! part; the zone adds the conductivities' and the probe depths' parts
+//! (`physics::uncertainty`, `monitor::wall::Wall::budget`).
 //!
 //! # Model check
 //!
@@ -453,6 +453,49 @@ impl<'a> LayeredWall<'a> {
         let nominal_hot_m = geom.first().map_or(0.0, |g| g.thickness_m);
         let m = march(&geom, hot_face_c, flux_w_m2, nominal_hot_m)?;
         Ok(m.at(&geom, depth_m)?.t_c)
+    }
+
+    /// The profile for a given hot face and flux at `depth_m`: the
+    /// temperature, the conductivity there and `∂T/∂(T_hot, q)` (the
+    /// sensitivities of the march, module docs). For uncertainty budgets.
+    pub fn point_at(
+        &self,
+        hot_face_c: f64,
+        flux_w_m2: f64,
+        depth_m: f64,
+    ) -> Result<(f64, f64, [f64; 2]), LayeredError> {
+        let geom = self.geometry()?;
+        if !(hot_face_c.is_finite() && flux_w_m2.is_finite() && depth_m.is_finite()) {
+            return Err(FitError::NonFinite.into());
+        }
+        let depth_m = checked_depth(&geom, depth_m)?;
+        let nominal_hot_m = geom.first().map_or(0.0, |g| g.thickness_m);
+        let p = march(&geom, hot_face_c, flux_w_m2, nominal_hot_m)?.at(&geom, depth_m)?;
+        Ok((p.t_c, p.k_w_mk, [p.grad[0], p.grad[1]]))
+    }
+
+    /// The numbers of the profile for a given hot face and flux: shell
+    /// temperature, thermal resistance hot face → shell and the interfaces
+    /// (hot side), written into `interfaces`; returns (shell, resistance).
+    pub fn numbers_at(
+        &self,
+        hot_face_c: f64,
+        flux_w_m2: f64,
+        interfaces: &mut [f64],
+    ) -> Result<(f64, f64), LayeredError> {
+        let geom = self.geometry()?;
+        if !(hot_face_c.is_finite() && flux_w_m2.is_finite()) {
+            return Err(FitError::NonFinite.into());
+        }
+        let nominal_hot_m = geom.first().map_or(0.0, |g| g.thickness_m);
+        let m = march(&geom, hot_face_c, flux_w_m2, nominal_hot_m)?;
+        for (slot, out) in interfaces
+            .iter_mut()
+            .zip(m.outlet.iter().take(m.n.saturating_sub(1)))
+        {
+            *slot = out.t_c;
+        }
+        Ok((m.shell().t_c, m.resistance_m2k_w(&geom)))
     }
 
     /// Standard uncertainty of the temperature at `depth_m` of a fitted

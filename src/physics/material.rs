@@ -192,6 +192,22 @@ impl Property {
         self.integral(a_c, b_c) / (b_c - a_c)
     }
 
+    /// The same property times `factor` (every value; temperatures kept):
+    /// a conductivity known only to within a factor, for propagating its
+    /// uncertainty. No allocation (the table is inline).
+    pub fn scaled(&self, factor: f64) -> Property {
+        match self {
+            Property::Constant(k) => Property::Constant(k * factor),
+            Property::Table(pts) => {
+                let mut v = pts.clone();
+                for p in v.iter_mut() {
+                    p.1 *= factor;
+                }
+                Property::Table(v)
+            }
+        }
+    }
+
     /// Whether `t_c` lies inside the tabulated range (always true for a
     /// constant). Outside it the value is clamped, which a caller may warn of.
     pub fn covers(&self, t_c: f64) -> bool {
@@ -283,6 +299,17 @@ mod tests {
             Some(30.0)
         );
         assert_eq!(p.inverse_integral(0.0, f64::NAN), None);
+    }
+
+    /// Scaling multiplies every value and so every integral (linearity of
+    /// the integral).
+    #[test]
+    fn scaled_property_scales_values_and_integral() {
+        let p = Property::table("k", &[(200.0, 1.0), (1000.0, 1.4)]).unwrap();
+        let s = p.scaled(1.15);
+        assert!((s.at(600.0) - 1.15 * 1.2).abs() < 1e-12);
+        assert!((s.integral(100.0, 900.0) - 1.15 * p.integral(100.0, 900.0)).abs() < 1e-9);
+        assert_eq!(Property::Constant(2.0).scaled(0.5), Property::Constant(1.0));
     }
 
     #[test]

@@ -8,3 +8,4 @@ pub mod surface;
 pub mod thermocouple;
 pub mod tolerance;
 pub mod transient;
+pub mod uncertainty;

@@ -37,10 +37,10 @@
 //! # Uncertainties
 //!
 //! Standard uncertainties come from the fit covariance with the probes'
-//! a-priori σ (not rescaled by χ²), by first-order propagation. The σ of a
-//! flux is `k` times the σ of the fitted slope: the uncertainty of `k` itself,
-//! usually the largest term (a data-sheet conductivity is rarely better than
-//! ±10 %), is **not** included, nor is that of the probe depths.
+//! a-priori σ (not rescaled by χ²), by first-order propagation: the
+//! readings' part only. The zone adds the conductivity's and the probe
+//! depths' parts (usually the larger; `physics::uncertainty` and
+//! `monitor::wall::Wall::budget`).
 
 use crate::physics::fit::{fit_points, FitError, PolyFit};
 use crate::physics::material::Material;
