@@ -3,6 +3,7 @@
 //! problem in one pass, each with its key path and line, so an engineer fixes
 //! a file in one round trip instead of one error at a time.
 
+mod keys;
 mod raw;
 mod validate;
 

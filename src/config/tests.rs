@@ -280,3 +280,100 @@ fn shipped_materials_load() {
     let bad = text.replace("from_c = 20.0, to_c = 800.0", "from = 20.0, to_c = 800.0");
     assert!(!problems(&bad).is_empty());
 }
+
+#[test]
+fn every_unknown_key_is_reported_in_one_run() {
+    let edits = [
+        (
+            "keep_alive_s = 30",
+            "keep_alive = 30",
+            "mqtt.keep_alive",
+            "keep_alive_s",
+        ),
+        (
+            "baud = 115200",
+            "baud_rate = 115200",
+            "source[0].baud_rate",
+            "baud",
+        ),
+        (
+            "tolerance = \"iec-class-1\"",
+            "tolerence = \"iec-class-1\"",
+            "channel[0].tolerence",
+            "tolerance",
+        ),
+        (
+            "max_service_c = 1500.0",
+            "max_service = 1500.0",
+            "material[0].max_service",
+            "max_service_c",
+        ),
+        (
+            "height_m = 3.0",
+            "hieght_m = 3.0",
+            "zone[0].hieght_m",
+            "height_m",
+        ),
+        (
+            "{ channel = \"w1-120\", depth_mm = 120 }",
+            "{ channel = \"w1-120\", dpeth_mm = 5, depth_mm = 120 }",
+            "zone[0].probes[1].dpeth_mm",
+            "depth_mm",
+        ),
+    ];
+    let mut text = EXAMPLE.to_string();
+    for (from, to, _, _) in edits {
+        assert!(text.contains(from), "{from}");
+        text = text.replacen(from, to, 1);
+    }
+    let p = problems(&text);
+    assert_eq!(p.len(), edits.len(), "{p:#?}");
+    for (_, to, path, meant) in edits {
+        let x = p
+            .iter()
+            .find(|x| x.path == path)
+            .unwrap_or_else(|| panic!("no problem at {path}: {p:#?}"));
+        let line = text.lines().position(|l| l.contains(to)).unwrap() + 1;
+        assert_eq!(x.line, Some(line), "{path}");
+        assert!(
+            x.message.contains(&format!("did you mean `{meant}`?")),
+            "{path}: {}",
+            x.message
+        );
+    }
+    // Unknown keys come with the value problems of the same file.
+    let p = problems(&text.replacen("port = 1883", "port = 70000", 1));
+    assert_eq!(p.len(), edits.len() + 1, "{p:#?}");
+    assert!(p.iter().any(|x| x.path == "mqtt.port"), "{p:#?}");
+    // A misspelt required key: the unknown key and the missing one.
+    let p = problems(&EXAMPLE.replacen("area_m2 = 12.0", "area_m = 12.0", 1));
+    assert!(
+        p.iter()
+            .any(|x| x.path == "zone[0].area_m" && x.message.contains("did you mean `area_m2`?")),
+        "{p:#?}"
+    );
+    assert!(p.iter().any(|x| x.message.contains("area_m2")), "{p:#?}");
+    // An unknown table, and a key of a polynomial.
+    let p = problems(&format!("{EXAMPLE}\n[zones]\nname = \"x\"\n"));
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert_eq!(p[0].path, "zones");
+    assert!(p[0].message.contains("`zone`"), "{}", p[0].message);
+}
+
+#[test]
+fn a_bad_model_name_is_one_problem() {
+    let text = EXAMPLE.replace(
+        "layers = [{ material = \"castable-a\", thickness_mm = 250 }]",
+        "layers = [{ material = \"castable-a\", thickness_mm = 150 }, { material = \"castable-a\", thickness_mm = 100 }]",
+    ).replace("model = \"quadratic\"", "model = \"layerd\"");
+    let p = problems(&text);
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert_eq!(p[0].path, "zone[0].model");
+    assert!(p[0].message.contains("\"layerd\""), "{}", p[0].message);
+    // With a fallback too: still the one problem.
+    let p = problems(&text.replace(
+        "model = \"layerd\"",
+        "model = \"layerd\"\nfallback = \"transient\"",
+    ));
+    assert_eq!(p.len(), 1, "{p:#?}");
+}

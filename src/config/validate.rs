@@ -90,6 +90,8 @@ pub fn parse(
     file: &str,
     state_directory_env: Option<&str>,
 ) -> Result<Settings, ConfigError> {
+    // Every unknown key first, all of them: serde would stop at the first.
+    let unknown = super::keys::unknown_keys(text);
     let raw: RawConfig = match toml::from_str(text) {
         Ok(r) => r,
         Err(e) => {
@@ -102,19 +104,21 @@ pub fn parse(
                     message = format!("{message}, in `{}`", truncate(l, 120));
                 }
             }
+            let mut problems = unknown;
+            problems.push(Problem {
+                line,
+                path: String::new(),
+                message,
+            });
             return Err(ConfigError {
                 file: file.to_string(),
-                problems: vec![Problem {
-                    line,
-                    path: String::new(),
-                    message,
-                }],
+                problems,
             });
         }
     };
     let mut v = Validator {
         text,
-        problems: Vec::new(),
+        problems: unknown,
     };
     let settings = v.settings(raw, state_directory_env);
     if v.problems.is_empty() {
@@ -135,7 +139,7 @@ fn truncate(s: &str, max: usize) -> &str {
     }
 }
 
-fn line_of(text: &str, byte: usize) -> usize {
+pub(super) fn line_of(text: &str, byte: usize) -> usize {
     let end = byte.min(text.len());
     text.as_bytes()[..end]
         .iter()
@@ -1337,7 +1341,10 @@ impl Validator<'_> {
                         "{other:?} is not a model; use \"quadratic\", \"layered\" or \"transient\""
                     ),
                 );
-                Model::Quadratic
+                // The placeholder with no model-specific refusal (any
+                // number of layers, interfaces, a fallback): one error for
+                // a misspelt name, not a cascade.
+                Model::Layered
             }
         };
         let orientation = match z.orientation.as_ref().map(|o| o.get_ref().as_str()) {
