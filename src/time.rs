@@ -22,6 +22,11 @@ pub enum TimeError {
     Range,
 }
 
+/// 0000-01-01T00:00:00Z in epoch seconds.
+const EPOCH_MIN_S: f64 = -62_167_219_200.0;
+/// 9999-12-31T23:59:59Z in epoch seconds.
+const EPOCH_MAX_S: f64 = 253_402_300_799.0;
+
 /// An RFC 3339 text, e.g. `2026-12-02T08:15:30.250Z` (at most 24 bytes).
 pub type Rfc3339 = heapless::String<32>;
 
@@ -64,7 +69,14 @@ impl Timestamp {
                         .bytes()
                         .all(|c| c.is_ascii_digit() || c == b'.' || c == b'-') =>
             {
-                Ok(Timestamp(v))
+                // The years RFC 3339 can write, 0000 to 9999: beyond, a
+                // second is below the resolution of the f64 (at 1e20 s,
+                // adding an interval changes nothing) and time stands still.
+                if (EPOCH_MIN_S..=EPOCH_MAX_S).contains(&v) {
+                    Ok(Timestamp(v))
+                } else {
+                    Err(TimeError::Range)
+                }
             }
             _ => Err(TimeError::Syntax),
         }
@@ -276,5 +288,19 @@ mod tests {
         ] {
             assert!(Timestamp::parse(bad).is_err(), "{bad:?} accepted");
         }
+        // Epoch seconds beyond the years 0000..9999: at 1e20 s an f64 step
+        // is 16384 s, and a replay starting there never advanced.
+        for far in ["99999999999999999999", "253402300800", "-62167219201"] {
+            assert_eq!(Timestamp::parse(far), Err(TimeError::Range), "{far}");
+        }
+        // The ends themselves: 9999-12-31T23:59:59Z and 0000-01-01T00:00:00Z.
+        assert_eq!(
+            Timestamp::parse("253402300799"),
+            Timestamp::parse("9999-12-31T23:59:59Z")
+        );
+        assert_eq!(
+            Timestamp::parse("-62167219200"),
+            Timestamp::parse("0000-01-01T00:00:00Z")
+        );
     }
 }

@@ -26,6 +26,7 @@ const REPORT_ROWS: u64 = 20;
 
 pub fn analyze(config: &Path, samples: &Path) -> Result<(), Failure> {
     let settings = Arc::new(super::load(config)?);
+    super::log_warnings(&settings, config);
     let file = std::fs::File::open(samples)
         .map_err(|e| Failure::usage(anyhow!("cannot read samples {}: {e}", samples.display())))?;
     let out = std::io::stdout().lock();
@@ -36,14 +37,14 @@ pub fn analyze(config: &Path, samples: &Path) -> Result<(), Failure> {
         &samples.display().to_string(),
     )?;
     if stats.bad_rows > 0 || stats.unknown_rows > 0 || stats.out_of_order > 0 {
-        eprintln!(
+        super::say(&format!(
             "wallflux: {}: {} rows used, {} malformed, {} for unknown channels, {} out of time order (skipped)",
             samples.display(),
             stats.rows,
             stats.bad_rows,
             stats.unknown_rows,
             stats.out_of_order
-        );
+        ));
     }
     Ok(())
 }
@@ -80,7 +81,15 @@ pub fn replay(
     let mut stats = ReplayStats::default();
     let mut monitor: Option<Monitor> = None;
     let mut last: Option<Timestamp> = None;
-    let write_err = |e: std::io::Error| Failure::runtime(anyhow!("cannot write output: {e}"));
+    let write_err = |e: std::io::Error| {
+        if e.kind() == std::io::ErrorKind::BrokenPipe {
+            Failure::runtime(anyhow!(
+                "output closed before the replay ended (broken pipe): zone states after the first ones are not written"
+            ))
+        } else {
+            Failure::runtime(anyhow!("cannot write output: {e}"))
+        }
+    };
     let mut unknown_reported: Vec<String> = Vec::new();
 
     let mut lines = input.lines();
@@ -102,7 +111,7 @@ pub fn replay(
     let bad = |stats: &mut ReplayStats, n: usize, why: &str| {
         stats.bad_rows += 1;
         if stats.bad_rows <= REPORT_ROWS {
-            eprintln!("wallflux: {label}:{n}: {why} (row skipped)");
+            super::say(&format!("wallflux: {label}:{n}: {why} (row skipped)"));
         }
     };
     for (i, line) in lines.enumerate() {
@@ -129,7 +138,7 @@ pub fn replay(
         let mon = monitor.get_or_insert_with(|| Monitor::new(settings.clone(), time));
         // Everything due before this row's time is complete: emit it.
         while let Some(r) = mon.poll_zone(time) {
-            serde_json::to_writer(&mut out, &r).map_err(|e| Failure::runtime(anyhow!("{e}")))?;
+            serde_json::to_writer(&mut out, &r).map_err(|e| write_err(e.into()))?;
             out.write_all(b"\n").map_err(write_err)?;
             stats.states += 1;
         }
@@ -144,9 +153,9 @@ pub fn replay(
         let Some(&idx) = by_name.get(ch) else {
             stats.unknown_rows += 1;
             if unknown_reported.len() < 20 && !unknown_reported.iter().any(|u| u == ch) {
-                eprintln!(
+                super::say(&format!(
                     "wallflux: {label}:{n}: no [[channel]] is named {ch:?} (its rows are skipped)"
-                );
+                ));
                 unknown_reported.push(ch.to_string());
             }
             continue;
@@ -181,7 +190,7 @@ pub fn replay(
     }
     if let (Some(mon), Some(t)) = (monitor.as_mut(), last) {
         while let Some(r) = mon.poll_zone(t) {
-            serde_json::to_writer(&mut out, &r).map_err(|e| Failure::runtime(anyhow!("{e}")))?;
+            serde_json::to_writer(&mut out, &r).map_err(|e| write_err(e.into()))?;
             out.write_all(b"\n").map_err(write_err)?;
             stats.states += 1;
         }

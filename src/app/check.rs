@@ -1,27 +1,58 @@
 //! `wallflux check`: validate a configuration and print what it describes.
+//! Warnings (implausible but usable settings) go to stderr, each with its
+//! line and key; `--strict` refuses them like errors.
 
+use std::fmt::Write as _;
 use std::path::Path;
 
 use super::Failure;
+use crate::config::format_problem;
 
-pub fn check(path: &Path) -> Result<(), Failure> {
+pub fn check(path: &Path, strict: bool) -> Result<(), Failure> {
     let s = super::load(path)?;
-    println!("{}: configuration ok", path.display());
-    println!("  site      {} / {}", s.site.plant, s.site.kiln);
-    println!(
+    let file = path.display().to_string();
+    let n = s.warnings.len();
+    let plural = if n == 1 { "" } else { "s" };
+    if strict && n > 0 {
+        let mut msg =
+            format!("{file}: {n} warning{plural} in the configuration, refused with --strict");
+        for w in &s.warnings {
+            let _ = write!(msg, "\n  {}", format_problem(&file, w));
+        }
+        return Err(Failure::usage(anyhow::anyhow!(msg)));
+    }
+    for w in &s.warnings {
+        super::say(&format!("wallflux: warning: {}", format_problem(&file, w)));
+    }
+    super::write_stdout(&summary(&s, &file, n))?;
+    Ok(())
+}
+
+/// What the configuration describes, in its own words.
+fn summary(s: &crate::config::Settings, file: &str, warnings: usize) -> String {
+    let mut o = String::new();
+    if warnings == 0 {
+        let _ = writeln!(o, "{file}: configuration ok");
+    } else {
+        let _ = writeln!(
+            o,
+            "{file}: configuration ok, with {warnings} warning{} (on stderr)",
+            if warnings == 1 { "" } else { "s" }
+        );
+    }
+    let _ = writeln!(o, "  site      {} / {}", s.site.plant, s.site.kiln);
+    let _ = writeln!(
+        o,
         "  mqtt      {}:{}  topics under {}/",
         s.mqtt.host,
         s.mqtt.port,
         s.topic_root()
     );
-    println!("  state dir {}", s.state_dir.display());
-    for src in &s.sources {
-        let n = s
-            .channels
-            .iter()
-            .filter(|c| std::ptr::eq(&s.sources[c.source], src))
-            .count();
-        println!(
+    let _ = writeln!(o, "  state dir {}", s.state_dir.display());
+    for (si, src) in s.sources.iter().enumerate() {
+        let n = s.channels.iter().filter(|c| c.source == si).count();
+        let _ = writeln!(
+            o,
             "  source    {:<16} line protocol on {} at {} baud, {} channels",
             src.name, src.port, src.baud, n
         );
@@ -38,7 +69,8 @@ pub fn check(path: &Path) -> Result<(), Failure> {
                 )
             })
             .collect();
-        println!(
+        let _ = writeln!(
+            o,
             "  zone      {:<16} {} model, {:.2} m², every {} s, wall {:.0} mm ({})",
             z.name,
             z.model.name(),
@@ -49,19 +81,21 @@ pub fn check(path: &Path) -> Result<(), Failure> {
         );
         for p in &z.probes {
             let c = &s.channels[p.channel];
-            println!(
-                "    probe   {:<16} {:>6.1} mm  type {} {:?} on {} input {}",
+            let _ = writeln!(
+                o,
+                "    probe   {:<16} {:>6.1} mm  type {} {} on {} input {}",
                 c.name,
                 p.depth_m * 1000.0,
                 c.tc_type.letter(),
-                c.signal,
+                c.signal.name(),
                 s.sources[c.source].name,
                 c.input
             );
         }
     }
     let builtin = s.alarms.iter().filter(|a| a.builtin).count();
-    println!(
+    let _ = writeln!(
+        o,
         "  alarms    {} ({} built-in, {} configured)",
         s.alarms.len(),
         builtin,
@@ -69,20 +103,21 @@ pub fn check(path: &Path) -> Result<(), Failure> {
     );
     for a in &s.alarms {
         let (zone, channel, source, quantity) =
-            crate::monitor::alarm_engine::target_names(&s, a.target);
+            crate::monitor::alarm_engine::target_names(s, a.target);
         let setpoint = match a.spec.kind {
             crate::monitor::alarm::AlarmKind::Diagnostic => String::new(),
             _ => format!(" {} {}", a.spec.setpoint, a.unit()),
         };
-        println!(
-            "    alarm   {:<32} {:?} {}.{}{} ({:?})",
+        let _ = writeln!(
+            o,
+            "    alarm   {:<32} {} {}.{}{} ({})",
             a.name,
-            a.spec.kind,
+            a.spec.kind.name(),
             zone.or(channel).or(source).unwrap_or(""),
             quantity,
             setpoint,
-            a.spec.priority
+            a.spec.priority.name()
         );
     }
-    Ok(())
+    o
 }

@@ -43,6 +43,9 @@ pub enum Command {
     Check {
         #[arg(long, value_name = "FILE")]
         config: PathBuf,
+        /// Refuse a configuration with warnings too (exit 2).
+        #[arg(long)]
+        strict: bool,
     },
     /// Run the engine over recorded samples; one zone-state JSON line per
     /// zone per interval on stdout.
@@ -71,13 +74,25 @@ pub struct DemoArgs {
     /// Use the `[mqtt]` broker of the configuration instead of the embedded one.
     #[arg(long)]
     pub no_broker: bool,
-    /// Simulated seconds per real second.
-    #[arg(long, default_value_t = 360.0)]
+    /// Simulated seconds per real second (0.01 to 100000).
+    #[arg(long, default_value_t = 360.0, value_parser = parse_speed)]
     pub speed: f64,
     /// A configuration to demo instead of the built-in one (its sources are
     /// replaced by simulated pseudo-terminals).
     #[arg(long, value_name = "FILE")]
     pub config: Option<PathBuf>,
+}
+
+/// `--speed`: a finite factor in 0.01..=100000 (beyond, the clock's
+/// durations overflow or the demo never moves).
+fn parse_speed(s: &str) -> Result<f64, String> {
+    match s.parse::<f64>() {
+        Ok(v) if v.is_finite() && (0.01..=100_000.0).contains(&v) => Ok(v),
+        Ok(_) => Err(format!(
+            "{s} is outside 0.01 to 100000 simulated seconds per second"
+        )),
+        Err(_) => Err(format!("{s:?} is not a number")),
+    }
 }
 
 #[derive(Debug, Args)]

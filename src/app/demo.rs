@@ -40,6 +40,15 @@ fn hot_face_c(zone: &str, setpoint_c: f64, ambient_c: f64) -> f64 {
     };
     ambient_c + (setpoint_c - ambient_c) * factor
 }
+/// A line on the terminal; a closed stdout (`| head`) loses it instead of
+/// ending the demo with a panic.
+macro_rules! show {
+    ($($t:tt)*) => {{
+        use std::io::Write as _;
+        let _ = writeln!(std::io::stdout(), $($t)*);
+    }};
+}
+
 /// Simulated minutes between two terminal summaries.
 const PRINT_EVERY_S: f64 = 30.0 * 60.0;
 
@@ -51,7 +60,11 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         )));
     }
     let mut settings = match &args.config {
-        Some(path) => super::load(path)?,
+        Some(path) => {
+            let s = super::load(path)?;
+            super::log_warnings(&s, path);
+            s
+        }
         None => config::parse(DEMO_CONFIG, "built-in demo configuration", None)
             .map_err(Failure::usage)?,
     };
@@ -80,7 +93,7 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         let clock = Clock::accelerated(args.speed);
         let start = clock.now();
         let root = settings.topic_root();
-        println!(
+        show!(
             "wallflux demo: simulated shuttle kiln {}/{}, firing of {:.1} h at {}x ({:.1} min)",
             settings.site.plant,
             settings.site.kiln,
@@ -88,7 +101,7 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
             args.speed,
             schedule.duration_s() / args.speed / 60.0
         );
-        println!(
+        show!(
             "  serial line: {}   MQTT: {}:{}   watch with: mosquitto_sub -h {} -p {} -t '{root}/#' -v",
             ptys.iter().map(|p| p.path.as_str()).collect::<Vec<_>>().join(", "),
             settings.mqtt.host,
@@ -96,7 +109,7 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
             settings.mqtt.host,
             settings.mqtt.port
         );
-        println!("  Ctrl-C to stop. Simulated data only: this is not a real kiln.");
+        show!("  Ctrl-C to stop. Simulated data only: this is not a real kiln.");
 
         let done = Arc::new(Notify::new());
         let stop = Arc::new(AtomicBool::new(false));
@@ -113,8 +126,8 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         let observer = terminal_view(start, schedule.clone(), settings.zones.len());
         let shutdown = async {
             tokio::select! {
-                _ = super::shutdown_signal() => println!("stopping (signal)"),
-                _ = done.notified() => println!("firing complete"),
+                _ = super::shutdown_signal() => show!("stopping (signal)"),
+                _ = done.notified() => show!("firing complete"),
             }
         };
         let result = super::run::run(settings, clock, shutdown, Some(observer)).await;
@@ -152,7 +165,10 @@ fn simulate(
                 walls.push(w);
             }
             Err(e) => {
-                eprintln!("wallflux demo: cannot simulate zone {}: {e}", z.name);
+                super::say(&format!(
+                    "wallflux demo: cannot simulate zone {}: {e}",
+                    z.name
+                ));
                 done.notify_one();
                 return;
             }
@@ -263,7 +279,7 @@ fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> su
         }
         next_print = next_print.plus_s(PRINT_EVERY_S);
         let t = r.time.since(start);
-        println!(
+        show!(
             "t={:>5.1} h  kiln set-point {:>6.1} °C",
             t / 3600.0,
             schedule.setpoint_c(t)
@@ -280,7 +296,7 @@ fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> su
                 ZoneStatus::Implausible => "IMPLAUSIBLE",
                 ZoneStatus::InsufficientData => "NO DATA",
             };
-            println!(
+            show!(
                 "  {:<10} hot face {} °C  shell {} °C  q_shell {} W/m² (surface {})  loss {} kW  source {} W/m³  fit rms {} °C  {status}",
                 l.zone,
                 f(l.hot_face_c, 1),

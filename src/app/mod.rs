@@ -68,7 +68,7 @@ pub fn main() -> ExitCode {
     match dispatch(cli.command) {
         Ok(()) => ExitCode::SUCCESS,
         Err(f) => {
-            eprintln!("wallflux: {:#}", f.error);
+            say(&format!("wallflux: {:#}", f.error));
             ExitCode::from(f.code)
         }
     }
@@ -76,11 +76,12 @@ pub fn main() -> ExitCode {
 
 fn dispatch(cmd: Command) -> Result<(), Failure> {
     match cmd {
-        Command::Check { config } => check::check(&config),
+        Command::Check { config, strict } => check::check(&config, strict),
         Command::Tc(args) => tc::tc(&args),
         Command::Analyze { config, samples } => analyze::analyze(&config, &samples),
         Command::Run { config } => {
             let settings = Arc::new(load(&config)?);
+            log_warnings(&settings, &config);
             runtime()?.block_on(async move {
                 run::run(settings, clock::Clock::real(), shutdown_signal(), None)
                     .await
@@ -117,6 +118,33 @@ pub fn load(path: &Path) -> Result<Settings, Failure> {
     })?;
     let state_env = std::env::var("STATE_DIRECTORY").ok();
     config::parse(&text, &path.display().to_string(), state_env.as_deref()).map_err(Failure::usage)
+}
+
+/// Logs the configuration's warnings (implausible but usable settings).
+pub fn log_warnings(settings: &Settings, path: &Path) {
+    for w in &settings.warnings {
+        tracing::warn!("{}", config::format_problem(&path.display().to_string(), w));
+    }
+}
+
+/// Writes `text` to stdout. A reader that closed the pipe early (`| head`)
+/// is no failure: Ok(false), and the caller stops writing.
+pub fn write_stdout(text: &str) -> Result<bool, Failure> {
+    use std::io::Write;
+    let mut out = std::io::stdout().lock();
+    match out.write_all(text.as_bytes()).and_then(|()| out.flush()) {
+        Ok(()) => Ok(true),
+        Err(e) if e.kind() == std::io::ErrorKind::BrokenPipe => Ok(false),
+        Err(e) => Err(Failure::runtime(anyhow::anyhow!(
+            "cannot write to stdout: {e}"
+        ))),
+    }
+}
+
+/// A line on stderr that never panics (a closed stderr loses it).
+pub fn say(text: &str) {
+    use std::io::Write;
+    let _ = writeln!(std::io::stderr().lock(), "{text}");
 }
 
 pub fn runtime() -> Result<tokio::runtime::Runtime, Failure> {

@@ -378,7 +378,7 @@ impl Engine {
             debug!(alarm = %c.name, to = t.to.name(), value = %value, "alarm (grouped during flood)");
             return;
         }
-        let priority = format!("{:?}", c.spec.priority).to_lowercase();
+        let priority = c.spec.priority.name();
         let text = if c.message.is_empty() {
             c.name.as_str()
         } else {

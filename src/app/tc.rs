@@ -13,6 +13,11 @@ fn round(v: f64, decimals: i32) -> f64 {
     (v * p).round() / p
 }
 
+/// One line on stdout; a closed pipe ends quietly.
+fn emit(line: &str) -> Result<(), Failure> {
+    super::write_stdout(&format!("{line}\n")).map(|_| ())
+}
+
 pub fn tc(args: &TcArgs) -> Result<(), Failure> {
     let tc = match TcType::from_letter(&args.tc_type) {
         Some(t) if args.tc_type.len() == 1 => t,
@@ -27,15 +32,15 @@ pub fn tc(args: &TcArgs) -> Result<(), Failure> {
     if let Some(t) = args.celsius {
         let mv = thermocouple::emf_mv(tc, t).map_err(|e| Failure::usage(anyhow!("{e}")))?;
         if args.json {
-            println!(
+            emit(&format!(
                 "{}",
                 serde_json::json!({"type": letter, "celsius": t, "millivolts": round(mv, 3)})
-            );
+            ))?;
         } else {
-            println!(
+            emit(&format!(
                 "type {letter}: {t} °C = {:.3} mV (ITS-90, 0 °C reference junction)",
                 mv
-            );
+            ))?;
         }
         return Ok(());
     }
@@ -49,17 +54,17 @@ pub fn tc(args: &TcArgs) -> Result<(), Failure> {
         if let Some(cj) = args.cj_c {
             v["cj_c"] = serde_json::json!(cj);
         }
-        println!("{v}");
+        emit(&format!("{v}"))?;
     } else if args.cj_c.is_some() {
-        println!(
+        emit(&format!(
             "type {letter}: {mv} mV with the cold junction at {cj} °C = {:.2} °C (ITS-90)",
             t
-        );
+        ))?;
     } else {
-        println!(
+        emit(&format!(
             "type {letter}: {mv} mV = {:.2} °C (ITS-90, 0 °C reference junction)",
             t
-        );
+        ))?;
     }
     Ok(())
 }

@@ -3,6 +3,7 @@
 //! problem in one pass, each with its key path and line, so an engineer fixes
 //! a file in one round trip instead of one error at a time.
 
+mod keys;
 mod raw;
 mod validate;
 
@@ -13,7 +14,7 @@ use crate::physics::surface::{Orientation, SurfaceParams};
 use crate::physics::thermocouple::TcType;
 use crate::physics::tolerance::ToleranceClass;
 
-pub use validate::{parse, ConfigError, Problem, DEFAULT_SHELL_TOUCH_C};
+pub use validate::{format_problem, parse, ConfigError, Problem, DEFAULT_SHELL_TOUCH_C};
 
 /// Longest name of a zone, channel, source or material (they appear in MQTT
 /// topics and fixed-capacity payloads).
@@ -48,6 +49,10 @@ pub struct Settings {
     /// same name) and configured ones.
     pub alarms: Vec<AlarmConfig>,
     pub trend: TrendSettings,
+    /// Implausible settings that still give numbers (key path, line and
+    /// message in the file's words): printed by `check` (errors with
+    /// `--strict`), logged at start.
+    pub warnings: Vec<Problem>,
 }
 
 /// What an alarm watches.
@@ -251,6 +256,16 @@ pub enum Signal {
     Celsius,
     /// Raw thermocouple EMF in mV; needs a cold-junction temperature.
     Millivolts,
+}
+
+impl Signal {
+    /// The configuration's word (`signal = "..."`).
+    pub fn name(self) -> &'static str {
+        match self {
+            Signal::Celsius => "celsius",
+            Signal::Millivolts => "millivolts",
+        }
+    }
 }
 
 #[derive(Debug, Clone)]

@@ -1,5 +1,6 @@
 //! The configuration file as written: serde structs that mirror the TOML
-//! one to one, unknown keys rejected. Values that validation checks carry
+//! one to one. Unknown keys are reported by `super::keys` (all of them, in
+//! one run), so serde here ignores them. Values that validation checks carry
 //! their position in the file (`Spanned`) so every problem can name its line.
 //! Nothing here is checked beyond its TOML type; see `super::validate`.
 
@@ -9,7 +10,6 @@ use toml::Spanned;
 type S<T> = Spanned<T>;
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawConfig {
     pub state_dir: Option<S<String>>,
     pub site: S<RawSite>,
@@ -31,7 +31,6 @@ pub struct RawConfig {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawAlarmDefaults {
     pub shell_touch_c: Option<S<f64>>,
     pub shell_touch_enabled: Option<S<bool>>,
@@ -40,7 +39,6 @@ pub struct RawAlarmDefaults {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawAlarm {
     pub name: S<String>,
     pub zone: Option<S<String>>,
@@ -62,7 +60,6 @@ pub struct RawAlarm {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawSite {
     pub plant: S<String>,
     pub kiln: S<String>,
@@ -73,7 +70,6 @@ pub struct RawSite {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawMqtt {
     pub host: S<String>,
     pub port: Option<S<i64>>,
@@ -84,13 +80,11 @@ pub struct RawMqtt {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawLog {
     pub summary_every: Option<S<i64>>,
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawSource {
     pub name: S<String>,
     pub kind: S<String>,
@@ -102,7 +96,6 @@ pub struct RawSource {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawChannel {
     pub name: S<String>,
     pub source: S<String>,
@@ -159,11 +152,9 @@ impl<'de> Deserialize<'de> for RawProperty {
                         "polynomial" => coefficients = Some(map.next_value::<Vec<f64>>()?),
                         "from_c" => from_c = Some(map.next_value::<f64>()?),
                         "to_c" => to_c = Some(map.next_value::<f64>()?),
-                        other => {
-                            return Err(M::Error::unknown_field(
-                                other,
-                                &["polynomial", "from_c", "to_c"],
-                            ))
+                        // Reported by `super::keys` with the others.
+                        _ => {
+                            map.next_value::<serde::de::IgnoredAny>()?;
                         }
                     }
                 }
@@ -194,7 +185,6 @@ impl<'de> Deserialize<'de> for RawProperty {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawMaterial {
     pub name: S<String>,
     pub conductivity_w_mk: S<RawProperty>,
@@ -207,7 +197,6 @@ pub struct RawMaterial {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawLayer {
     pub material: S<String>,
     pub thickness_mm: S<f64>,
@@ -215,7 +204,6 @@ pub struct RawLayer {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawProbe {
     pub channel: S<String>,
     pub depth_mm: S<f64>,
@@ -223,7 +211,6 @@ pub struct RawProbe {
 }
 
 #[derive(Debug, Deserialize)]
-#[serde(deny_unknown_fields)]
 pub struct RawZone {
     pub name: S<String>,
     pub area_m2: S<f64>,

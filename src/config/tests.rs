@@ -345,3 +345,266 @@ fn uncertainty_keys_default_and_refuse_the_absurd() {
     }
     assert_eq!(p.len(), 4, "{p:?}");
 }
+
+#[test]
+fn every_unknown_key_is_reported_in_one_run() {
+    let edits = [
+        (
+            "keep_alive_s = 30",
+            "keep_alive = 30",
+            "mqtt.keep_alive",
+            "keep_alive_s",
+        ),
+        (
+            "baud = 115200",
+            "baud_rate = 115200",
+            "source[0].baud_rate",
+            "baud",
+        ),
+        (
+            "tolerance = \"iec-class-1\"",
+            "tolerence = \"iec-class-1\"",
+            "channel[0].tolerence",
+            "tolerance",
+        ),
+        (
+            "max_service_c = 1500.0",
+            "max_service = 1500.0",
+            "material[0].max_service",
+            "max_service_c",
+        ),
+        (
+            "height_m = 3.0",
+            "hieght_m = 3.0",
+            "zone[0].hieght_m",
+            "height_m",
+        ),
+        (
+            "{ channel = \"w1-120\", depth_mm = 120 }",
+            "{ channel = \"w1-120\", dpeth_mm = 5, depth_mm = 120 }",
+            "zone[0].probes[1].dpeth_mm",
+            "depth_mm",
+        ),
+    ];
+    let mut text = EXAMPLE.to_string();
+    for (from, to, _, _) in edits {
+        assert!(text.contains(from), "{from}");
+        text = text.replacen(from, to, 1);
+    }
+    let p = problems(&text);
+    assert_eq!(p.len(), edits.len(), "{p:#?}");
+    for (_, to, path, meant) in edits {
+        let x = p
+            .iter()
+            .find(|x| x.path == path)
+            .unwrap_or_else(|| panic!("no problem at {path}: {p:#?}"));
+        let line = text.lines().position(|l| l.contains(to)).unwrap() + 1;
+        assert_eq!(x.line, Some(line), "{path}");
+        assert!(
+            x.message.contains(&format!("did you mean `{meant}`?")),
+            "{path}: {}",
+            x.message
+        );
+    }
+    // Unknown keys come with the value problems of the same file.
+    let p = problems(&text.replacen("port = 1883", "port = 70000", 1));
+    assert_eq!(p.len(), edits.len() + 1, "{p:#?}");
+    assert!(p.iter().any(|x| x.path == "mqtt.port"), "{p:#?}");
+    // A misspelt required key: the unknown key and the missing one.
+    let p = problems(&EXAMPLE.replacen("area_m2 = 12.0", "area_m = 12.0", 1));
+    assert!(
+        p.iter()
+            .any(|x| x.path == "zone[0].area_m" && x.message.contains("did you mean `area_m2`?")),
+        "{p:#?}"
+    );
+    assert!(p.iter().any(|x| x.message.contains("area_m2")), "{p:#?}");
+    // An unknown table, and a key of a polynomial.
+    let p = problems(&format!("{EXAMPLE}\n[zones]\nname = \"x\"\n"));
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert_eq!(p[0].path, "zones");
+    assert!(p[0].message.contains("`zone`"), "{}", p[0].message);
+}
+
+#[test]
+fn a_bad_model_name_is_one_problem() {
+    let text = EXAMPLE.replace(
+        "layers = [{ material = \"castable-a\", thickness_mm = 250 }]",
+        "layers = [{ material = \"castable-a\", thickness_mm = 150 }, { material = \"castable-a\", thickness_mm = 100 }]",
+    ).replace("model = \"quadratic\"", "model = \"layerd\"");
+    let p = problems(&text);
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert_eq!(p[0].path, "zone[0].model");
+    assert!(p[0].message.contains("\"layerd\""), "{}", p[0].message);
+    // With a fallback too: still the one problem.
+    let p = problems(&text.replace(
+        "model = \"layerd\"",
+        "model = \"layerd\"\nfallback = \"transient\"",
+    ));
+    assert_eq!(p.len(), 1, "{p:#?}");
+}
+
+fn warnings(text: &str) -> Vec<Problem> {
+    match parse(text, "t.toml", None) {
+        Ok(s) => s.warnings,
+        Err(e) => panic!("refused: {e}"),
+    }
+}
+
+fn line_in(text: &str, needle: &str) -> Option<usize> {
+    text.lines().position(|l| l.contains(needle)).map(|l| l + 1)
+}
+
+#[test]
+fn shipped_configs_have_no_warnings() {
+    let materials = include_str!("../../config/materials.toml");
+    for text in [EXAMPLE, DEMO, &format!("{EXAMPLE}\n{materials}")] {
+        assert_eq!(warnings(text), vec![]);
+    }
+}
+
+/// Implausible but usable: accepted, with one warning naming the key and
+/// its line.
+#[test]
+fn implausible_settings_warn_with_key_and_line() {
+    let metres = EXAMPLE
+        .replace("thickness_mm = 250 }", "thickness_mm = 0.25 }")
+        .replace("depth_mm = 40 }", "depth_mm = 0.04 }")
+        .replace("depth_mm = 120 }", "depth_mm = 0.12 }")
+        .replace("depth_mm = 200 }", "depth_mm = 0.2 }")
+        .replace("depth_mm = 250 }", "depth_mm = 0.25 }");
+    let thick = EXAMPLE.replace("thickness_mm = 250 }", "thickness_mm = 2500 }");
+    let k_high = EXAMPLE.replace("[600.0, 1.10]", "[600.0, 110.0]");
+    let k_low = EXAMPLE.replace(
+        "conductivity_w_mk = [[200.0, 1.05], [600.0, 1.10], [1000.0, 1.18]]",
+        "conductivity_w_mk = 0.004",
+    );
+    let k_poly = EXAMPLE.replace(
+        "conductivity_w_mk = [[200.0, 1.05], [600.0, 1.10], [1000.0, 1.18]]",
+        "conductivity_w_mk = { polynomial = [1.0, 0.1], from_c = 20.0, to_c = 1000.0 }",
+    );
+    let mv = EXAMPLE.replacen("signal = \"celsius\"", "signal = \"millivolts\"", 1);
+    let touch = EXAMPLE.replace("shell_touch_c = 60", "shell_touch_c = 85");
+    let tuned =
+        format!("{EXAMPLE}\n[[alarm]]\nname = \"north-wall-shell-touch\"\nsetpoint = 90.0\n");
+    let cases: [(&str, &str, &str, &str); 8] = [
+        (&metres, "zone[0].layers", "layers = [", "0.25 mm"),
+        (&thick, "zone[0].layers", "layers = [", "2500 mm"),
+        (
+            &k_high,
+            "material[0].conductivity_w_mk",
+            "conductivity_w_mk",
+            "110 W/(m·K)",
+        ),
+        (
+            &k_low,
+            "material[0].conductivity_w_mk",
+            "conductivity_w_mk",
+            "0.004 W/(m·K)",
+        ),
+        // 1 + 0.1·1000 = 101 W/(m·K) at the top of its range.
+        (
+            &k_poly,
+            "material[0].conductivity_w_mk",
+            "conductivity_w_mk",
+            "101 W/(m·K)",
+        ),
+        (
+            &mv,
+            "channel[0].signal",
+            "signal = \"millivolts\"",
+            "cj_channel",
+        ),
+        (
+            &touch,
+            "alarm_defaults.shell_touch_c",
+            "shell_touch_c = 85",
+            "85 °C",
+        ),
+        (&tuned, "alarm[1].setpoint", "setpoint = 90.0", "90 °C"),
+    ];
+    for (text, path, at, words) in cases {
+        let w = warnings(text);
+        assert_eq!(w.len(), 1, "{path}: {w:#?}");
+        assert_eq!(w[0].path, path);
+        assert_eq!(w[0].line, line_in(text, at), "{path}");
+        assert!(w[0].message.contains(words), "{path}: {}", w[0].message);
+    }
+    // The limits themselves are plausible.
+    for text in [
+        EXAMPLE.replace("shell_touch_c = 60", "shell_touch_c = 70"),
+        EXAMPLE.replace("thickness_mm = 250 }", "thickness_mm = 2000 }"),
+        EXAMPLE.replace("[600.0, 1.10]", "[600.0, 70.0]"),
+        // A millivolt channel with a fixed cold junction, or a terminal sensor.
+        mv.replace("# cj_c = 25.0 ", "cj_c = 25.0 "),
+    ] {
+        assert_eq!(warnings(&text), vec![]);
+    }
+}
+
+/// Settings that can never give a number are refused, with key and line.
+#[test]
+fn useless_settings_are_refused() {
+    let one_depth = EXAMPLE
+        .replace("depth_mm = 40 }", "depth_mm = 120 }")
+        .replace("depth_mm = 200 }", "depth_mm = 120 }")
+        .replace("depth_mm = 250 }", "depth_mm = 120 }");
+    let cases = [
+        (one_depth, "zone[0].probes", "probes = [", "120 mm"),
+        (
+            EXAMPLE.replace("interval_s = 10 ", "interval_s = 0.05 "),
+            "zone[0].interval_s",
+            "interval_s = 0.05",
+            "0.1 to 86400",
+        ),
+        (
+            EXAMPLE.replace("interval_s = 10 ", "interval_s = 90000 "),
+            "zone[0].interval_s",
+            "interval_s = 90000",
+            "0.1 to 86400",
+        ),
+        (
+            EXAMPLE.replace("thickness_mm = 250 }", "thickness_mm = 1e308 }"),
+            "zone[0].layers[0].thickness_mm",
+            "thickness_mm = 1e308",
+            "1e308",
+        ),
+        (
+            EXAMPLE.replace("ambient_c = 25", "ambient_c = -300"),
+            "zone[0].ambient_c",
+            "ambient_c = -300",
+            "absolute zero",
+        ),
+        (
+            EXAMPLE.replace("silence_s = 10 ", "silence_s = 1e300 "),
+            "source[0].silence_s",
+            "silence_s = 1e300",
+            "1e300",
+        ),
+        (
+            EXAMPLE.replace("on_delay_s = 600", "on_delay_s = 1e300"),
+            "alarm[0].on_delay_s",
+            "on_delay_s = 1e300",
+            "one week",
+        ),
+        (
+            EXAMPLE.replace("rate_window_s = 600 ", "rate_window_s = 1e300 "),
+            "zone[0].rate_window_s",
+            "rate_window_s = 1e300",
+            "1e300",
+        ),
+        (
+            EXAMPLE.replace("area_m2 = 12.0", "area_m2 = 1e308"),
+            "zone[0].area_m2",
+            "area_m2 = 1e308",
+            "1e308",
+        ),
+    ];
+    for (text, path, at, words) in cases {
+        assert_ne!(text, EXAMPLE, "{path}: the edit did not apply");
+        let p = problems(&text);
+        assert_eq!(p.len(), 1, "{path}: {p:#?}");
+        assert_eq!(p[0].path, path);
+        assert_eq!(p[0].line, line_in(&text, at), "{path}");
+        assert!(p[0].message.contains(words), "{path}: {}", p[0].message);
+    }
+}

@@ -66,17 +66,22 @@ impl fmt::Display for ConfigError {
             if n == 1 { "" } else { "s" }
         )?;
         for p in &self.problems {
-            write!(f, "\n  {}", self.file)?;
-            if let Some(line) = p.line {
-                write!(f, ":{line}")?;
-            }
-            if p.path.is_empty() {
-                write!(f, ": {}", p.message)?;
-            } else {
-                write!(f, ": {}: {}", p.path, p.message)?;
-            }
+            write!(f, "\n  {}", format_problem(&self.file, p))?;
         }
         Ok(())
+    }
+}
+
+/// `file:line: key.path: message`, as every problem and warning is shown.
+pub fn format_problem(file: &str, p: &Problem) -> String {
+    let mut s = file.to_string();
+    if let Some(line) = p.line {
+        s += &format!(":{line}");
+    }
+    if p.path.is_empty() {
+        s + &format!(": {}", p.message)
+    } else {
+        s + &format!(": {}: {}", p.path, p.message)
     }
 }
 
@@ -90,6 +95,8 @@ pub fn parse(
     file: &str,
     state_directory_env: Option<&str>,
 ) -> Result<Settings, ConfigError> {
+    // Every unknown key first, all of them: serde would stop at the first.
+    let unknown = super::keys::unknown_keys(text);
     let raw: RawConfig = match toml::from_str(text) {
         Ok(r) => r,
         Err(e) => {
@@ -102,23 +109,27 @@ pub fn parse(
                     message = format!("{message}, in `{}`", truncate(l, 120));
                 }
             }
+            let mut problems = unknown;
+            problems.push(Problem {
+                line,
+                path: String::new(),
+                message,
+            });
             return Err(ConfigError {
                 file: file.to_string(),
-                problems: vec![Problem {
-                    line,
-                    path: String::new(),
-                    message,
-                }],
+                problems,
             });
         }
     };
     let mut v = Validator {
         text,
-        problems: Vec::new(),
+        problems: unknown,
+        warnings: Vec::new(),
     };
     let settings = v.settings(raw, state_directory_env);
     if v.problems.is_empty() {
-        if let Some(s) = settings {
+        if let Some(mut s) = settings {
+            s.warnings = v.warnings;
             return Ok(s);
         }
     }
@@ -128,6 +139,65 @@ pub fn parse(
     })
 }
 
+/// Absolute zero, °C (ITS-90: 0 K).
+const ABSOLUTE_ZERO_C: f64 = -273.15;
+/// Longest delay, window or silence limit in seconds that can mean
+/// anything for a kiln wall: one week.
+const MAX_DELAY_S: f64 = 7.0 * 86_400.0;
+/// A zone's interval, s: from 0.1 s to one day.
+const INTERVAL_S: (f64, f64) = (0.1, 86_400.0);
+/// A plausible total wall, mm (common practice: a thin oven panel is a few
+/// centimetres, a blast-furnace hearth about two metres).
+const WALL_MM: (f64, f64) = (30.0, 2000.0);
+/// A layer thicker than this is no wall (refused), mm.
+const MAX_LAYER_MM: f64 = 10_000.0;
+/// Conductivities of refractories, insulations and a steel shell, W/(m·K):
+/// from microporous and aerogel insulation (about 0.015 to 0.02, below
+/// still air at 0.026, Incropera Table A.4 at 300 K, from memory) to dense
+/// silicon-carbide refractories (15 to 40) and plain carbon steel (60.5 at
+/// 300 K, Incropera Table A.1, from memory). Outside: a warning.
+const CONDUCTIVITY_W_MK: (f64, f64) = (0.01, 70.0);
+/// A shell-touch limit above this warns: EN ISO 13732-1 puts the burn
+/// threshold of a 1 s touch of bare metal at about 65 to 70 °C and of a
+/// 1 min touch at about 51 °C (from memory); 60 °C is common practice.
+const MAX_SHELL_TOUCH_C: f64 = 70.0;
+
+/// A number for a message: exponent form when it is huge or tiny (a
+/// `1e300` in the file is not printed as 301 digits).
+fn num(v: f64) -> String {
+    if v != 0.0 && v.is_finite() && !(1e-4..1e9).contains(&v.abs()) {
+        format!("{v:e}")
+    } else {
+        format!("{v}")
+    }
+}
+
+fn touch_warning(v: f64) -> String {
+    format!(
+        "a shell-touch limit of {} °C is above {MAX_SHELL_TOUCH_C} °C: bare metal burns in about a second from 65 to 70 °C (EN ISO 13732-1, from memory); 60 °C is common practice",
+        num(v)
+    )
+}
+
+/// The values a material property takes over its range (a polynomial
+/// sampled), for the plausibility warning.
+fn property_values(p: &RawProperty) -> Vec<f64> {
+    match p {
+        RawProperty::Constant(v) => vec![*v],
+        RawProperty::Table(points) => points.iter().map(|p| p[1]).collect(),
+        RawProperty::Polynomial {
+            coefficients,
+            from_c,
+            to_c,
+        } => (0..=8)
+            .map(|i| {
+                let t = from_c + (to_c - from_c) * f64::from(i) / 8.0;
+                coefficients.iter().rev().fold(0.0, |acc, a| acc * t + a)
+            })
+            .collect(),
+    }
+}
+
 fn truncate(s: &str, max: usize) -> &str {
     match s.char_indices().nth(max) {
         Some((i, _)) => &s[..i],
@@ -135,7 +205,7 @@ fn truncate(s: &str, max: usize) -> &str {
     }
 }
 
-fn line_of(text: &str, byte: usize) -> usize {
+pub(super) fn line_of(text: &str, byte: usize) -> usize {
     let end = byte.min(text.len());
     text.as_bytes()[..end]
         .iter()
@@ -147,6 +217,8 @@ fn line_of(text: &str, byte: usize) -> usize {
 struct Validator<'t> {
     text: &'t str,
     problems: Vec<Problem>,
+    /// Implausible but usable: printed by `check`, logged at start.
+    warnings: Vec<Problem>,
 }
 
 impl Validator<'_> {
@@ -176,6 +248,61 @@ impl Validator<'_> {
         let mut n = Name::new();
         let _ = n.push_str(v);
         n
+    }
+
+    fn warning(&mut self, span: Range<usize>, path: impl Into<String>, message: impl Into<String>) {
+        self.warnings.push(Problem {
+            line: Some(line_of(self.text, span.start)),
+            path: path.into(),
+            message: message.into(),
+        });
+    }
+
+    /// A number in `lo..=hi` (a range that can produce a number: beyond it
+    /// nothing useful is computed, or a duration overflows).
+    fn within(&mut self, s: &Spanned<f64>, path: &str, lo: f64, hi: f64, unit: &str) -> f64 {
+        let v = *s.get_ref();
+        if !(v.is_finite() && (lo..=hi).contains(&v)) {
+            self.problem(
+                s.span(),
+                path,
+                format!("must be {} to {} {unit}, got {}", num(lo), num(hi), num(v)),
+            );
+        }
+        v
+    }
+
+    /// A positive number up to `hi`.
+    fn positive_up_to(&mut self, s: &Spanned<f64>, path: &str, hi: f64, unit: &str) -> f64 {
+        let v = *s.get_ref();
+        if !(v.is_finite() && v > 0.0 && v <= hi) {
+            self.problem(
+                s.span(),
+                path,
+                format!(
+                    "must be a positive number of {unit}, at most {}, got {}",
+                    num(hi),
+                    num(v)
+                ),
+            );
+        }
+        v
+    }
+
+    /// A temperature, °C: finite and not below absolute zero.
+    fn celsius(&mut self, s: &Spanned<f64>, path: &str) -> f64 {
+        let v = *s.get_ref();
+        if !(v.is_finite() && v >= ABSOLUTE_ZERO_C) {
+            self.problem(
+                s.span(),
+                path,
+                format!(
+                    "must be a temperature in °C, not below absolute zero ({ABSOLUTE_ZERO_C} °C), got {}",
+                    num(v)
+                ),
+            );
+        }
+        v
     }
 
     fn positive(&mut self, s: &Spanned<f64>, path: &str, unit: &str) -> f64 {
@@ -257,7 +384,7 @@ impl Validator<'_> {
             let firing_start_c = s
                 .firing_start_c
                 .as_ref()
-                .map_or(150.0, |f| self.finite(f, "site.firing_start_c"));
+                .map_or(150.0, |f| self.celsius(f, "site.firing_start_c"));
             let operation = match s.operation.as_ref().map(|o| (o, o.get_ref().as_str())) {
                 None | Some((_, "periodic")) => Operation::Periodic,
                 Some((_, "continuous")) => Operation::Continuous,
@@ -396,6 +523,26 @@ impl Validator<'_> {
             }
         }
 
+        // A millivolt channel needs a cold junction: the frame's cj=, else
+        // the source's cj_channel or cj_c. Without the last two, one frame
+        // without cj= leaves it without a temperature.
+        for (i, (c, rc)) in channels.iter().zip(&raw.channel).enumerate() {
+            let Some(src) = sources.get(c.source) else {
+                continue;
+            };
+            if c.signal == Signal::Millivolts && src.cj_c.is_none() && src.cj_channel.is_none() {
+                let span = rc.get_ref().signal.as_ref().map_or(rc.span(), |s| s.span());
+                self.warning(
+                    span,
+                    format!("channel[{i}].signal"),
+                    format!(
+                        "millivolts, but source {:?} has neither cj_channel nor cj_c: the channel reads only while every frame carries cj=; give the source its terminal sensor (cj_channel) or a fixed cj_c",
+                        src.name.as_str()
+                    ),
+                );
+            }
+        }
+
         let materials: Vec<NamedMaterial> = raw
             .material
             .iter()
@@ -466,12 +613,17 @@ impl Validator<'_> {
             horizon_h: defaults
                 .and_then(|d| d.trend_horizon_h.as_ref())
                 .map_or(4.0, |h| {
-                    self.positive(h, "alarm_defaults.trend_horizon_h", "hours")
+                    self.positive_up_to(h, "alarm_defaults.trend_horizon_h", 8760.0, "hours")
                 }),
             repeat_min: defaults
                 .and_then(|d| d.trend_repeat_min.as_ref())
                 .map_or(30.0, |h| {
-                    self.positive(h, "alarm_defaults.trend_repeat_min", "minutes")
+                    self.positive_up_to(
+                        h,
+                        "alarm_defaults.trend_repeat_min",
+                        MAX_DELAY_S / 60.0,
+                        "minutes",
+                    )
                 }),
         };
         let mut alarms = self.builtin_alarms(defaults, &sources, &channels, &materials, &zones);
@@ -488,6 +640,7 @@ impl Validator<'_> {
             zones,
             alarms,
             trend,
+            warnings: Vec::new(),
         })
     }
 
@@ -510,11 +663,16 @@ impl Validator<'_> {
             priority,
         };
         let mut out = Vec::new();
-        let touch_c = defaults
-            .and_then(|d| d.shell_touch_c.as_ref())
-            .map_or(DEFAULT_SHELL_TOUCH_C, |t| {
-                self.finite(t, "alarm_defaults.shell_touch_c")
-            });
+        let touch_c =
+            defaults
+                .and_then(|d| d.shell_touch_c.as_ref())
+                .map_or(DEFAULT_SHELL_TOUCH_C, |t| {
+                    let v = self.celsius(t, "alarm_defaults.shell_touch_c");
+                    if v > MAX_SHELL_TOUCH_C {
+                        self.warning(t.span(), "alarm_defaults.shell_touch_c", touch_warning(v));
+                    }
+                    v
+                });
         let touch_on = defaults
             .and_then(|d| d.shell_touch_enabled.as_ref())
             .is_none_or(|e| *e.get_ref());
@@ -763,6 +921,12 @@ impl Validator<'_> {
             };
             if let Some(s) = &a.setpoint {
                 cfg.spec.setpoint = self.finite(s, &p("setpoint"));
+                if cfg.builtin
+                    && cfg.name.ends_with("-shell-touch")
+                    && cfg.spec.setpoint > MAX_SHELL_TOUCH_C
+                {
+                    self.warning(s.span(), p("setpoint"), touch_warning(cfg.spec.setpoint));
+                }
             } else if cfg.spec.setpoint.is_nan() {
                 self.problem(a.name.span(), p("setpoint"), "this alarm needs a setpoint");
             }
@@ -787,7 +951,19 @@ impl Validator<'_> {
                         self.problem(
                             v.span(),
                             p(key),
-                            format!("must be zero or positive, got {x}"),
+                            format!("must be zero or positive, got {}", num(x)),
+                        );
+                        continue;
+                    }
+                    if key != "deadband" && x > MAX_DELAY_S {
+                        self.problem(
+                            v.span(),
+                            p(key),
+                            format!(
+                                "must be at most {} s (one week), got {}",
+                                num(MAX_DELAY_S),
+                                num(x)
+                            ),
                         );
                         continue;
                     }
@@ -1062,10 +1238,9 @@ impl Validator<'_> {
             }
             v
         });
-        let silence_s = s
-            .silence_s
-            .as_ref()
-            .map_or(10.0, |v| self.positive(v, &p("silence_s"), "seconds"));
+        let silence_s = s.silence_s.as_ref().map_or(10.0, |v| {
+            self.within(v, &p("silence_s"), 0.1, MAX_DELAY_S, "seconds")
+        });
         Source {
             name,
             kind,
@@ -1188,7 +1363,8 @@ impl Validator<'_> {
             }
         }
         if let Some(i) = &c.calibration_interval_days {
-            calibration.interval_days = self.positive(i, &p("calibration_interval_days"), "days");
+            calibration.interval_days =
+                self.positive_up_to(i, &p("calibration_interval_days"), 36_500.0, "days");
         }
         let spike_c_per_min = c.spike_c_per_min.as_ref().map_or(
             if terminal {
@@ -1285,11 +1461,37 @@ impl Validator<'_> {
             &p("specific_heat_j_kgk"),
             "specific heat (J/kg·K)",
         );
+        let (lo, hi) = CONDUCTIVITY_W_MK;
+        let values: Vec<f64> = property_values(m.conductivity_w_mk.get_ref())
+            .into_iter()
+            .filter(|v| v.is_finite() && *v > 0.0)
+            .collect();
+        let (min, max) = values
+            .iter()
+            .fold((f64::INFINITY, 0.0_f64), |(a, b), v| (a.min(*v), b.max(*v)));
+        // The value farthest out of the range, if any is.
+        let outside = if max > hi {
+            Some(max)
+        } else if min < lo {
+            Some(min)
+        } else {
+            None
+        };
+        if let Some(v) = outside {
+            self.warning(
+                m.conductivity_w_mk.span(),
+                p("conductivity_w_mk"),
+                format!(
+                    "{} W/(m·K) is outside the {lo} to {hi} W/(m·K) of insulations, refractories and steel shells: check the value and its unit",
+                    num(v)
+                ),
+            );
+        }
         let density_kg_m3 = self.positive(&m.density_kg_m3, &p("density_kg_m3"), "kg/m³");
         let max_service_c = m
             .max_service_c
             .as_ref()
-            .map(|v| self.finite(v, &p("max_service_c")));
+            .map(|v| self.celsius(v, &p("max_service_c")));
         let emissivity = m.emissivity.as_ref().map(|e| {
             let v = *e.get_ref();
             if !(0.0..=1.0).contains(&v) {
@@ -1353,8 +1555,14 @@ impl Validator<'_> {
         let z = sz.get_ref();
         let p = |k: &str| format!("zone[{i}].{k}");
         let name = self.name(&z.name, &p("name"));
-        let area_m2 = self.positive(&z.area_m2, &p("area_m2"), "m²");
-        let interval_s = self.positive(&z.interval_s, &p("interval_s"), "seconds");
+        let area_m2 = self.positive_up_to(&z.area_m2, &p("area_m2"), 1e5, "m²");
+        let interval_s = self.within(
+            &z.interval_s,
+            &p("interval_s"),
+            INTERVAL_S.0,
+            INTERVAL_S.1,
+            "seconds",
+        );
         let model = match z.model.get_ref().as_str() {
             "quadratic" => Model::Quadratic,
             "layered" => Model::Layered,
@@ -1367,7 +1575,10 @@ impl Validator<'_> {
                         "{other:?} is not a model; use \"quadratic\", \"layered\" or \"transient\""
                     ),
                 );
-                Model::Quadratic
+                // The placeholder with no model-specific refusal (any
+                // number of layers, interfaces, a fallback): one error for
+                // a misspelt name, not a cascade.
+                Model::Layered
             }
         };
         let orientation = match z.orientation.as_ref().map(|o| o.get_ref().as_str()) {
@@ -1387,7 +1598,7 @@ impl Validator<'_> {
         let height_m = z
             .height_m
             .as_ref()
-            .map_or(2.0, |h| self.positive(h, &p("height_m"), "m"));
+            .map_or(2.0, |h| self.positive_up_to(h, &p("height_m"), 1000.0, "m"));
         let emissivity = match &z.emissivity {
             Some(e) => {
                 let v = *e.get_ref();
@@ -1417,11 +1628,11 @@ impl Validator<'_> {
         let ambient_c = z
             .ambient_c
             .as_ref()
-            .map_or(25.0, |a| self.finite(a, &p("ambient_c")));
+            .map_or(25.0, |a| self.celsius(a, &p("ambient_c")));
         let surroundings_c = z
             .surroundings_c
             .as_ref()
-            .map_or(ambient_c, |a| self.finite(a, &p("surroundings_c")));
+            .map_or(ambient_c, |a| self.celsius(a, &p("surroundings_c")));
         let wind_m_s = z.wind_m_s.as_ref().map(|w| {
             let v = *w.get_ref();
             if !(v.is_finite() && (0.0..=60.0).contains(&v)) {
@@ -1466,11 +1677,10 @@ impl Validator<'_> {
         let firing_setpoint_c = z
             .firing_setpoint_c
             .as_ref()
-            .map(|f| self.finite(f, &p("firing_setpoint_c")));
-        let baseline_days = z
-            .baseline_days
-            .as_ref()
-            .map_or(7.0, |d| self.positive(d, &p("baseline_days"), "days"));
+            .map(|f| self.celsius(f, &p("firing_setpoint_c")));
+        let baseline_days = z.baseline_days.as_ref().map_or(7.0, |d| {
+            self.positive_up_to(d, &p("baseline_days"), 3650.0, "days")
+        });
         let hot_face_channel = z.hot_face_channel.as_ref().and_then(|c| {
             let i = channels.iter().position(|x| x.name.as_str() == c.get_ref());
             if i.is_none() {
@@ -1510,7 +1720,7 @@ impl Validator<'_> {
             .rate_window_s
             .as_ref()
             .map_or(600.0_f64.max(3.0 * interval_s), |w| {
-                self.positive(w, &p("rate_window_s"), "seconds")
+                self.positive_up_to(w, &p("rate_window_s"), MAX_DELAY_S, "seconds")
             });
 
         let mut layers = Vec::new();
@@ -1545,7 +1755,12 @@ impl Validator<'_> {
                     usize::MAX
                 }
             };
-            let thickness_mm = self.positive(&l.thickness_mm, &format!("{lp}.thickness_mm"), "mm");
+            let thickness_mm = self.positive_up_to(
+                &l.thickness_mm,
+                &format!("{lp}.thickness_mm"),
+                MAX_LAYER_MM,
+                "mm",
+            );
             let last = j + 1 == z.layers.get_ref().len();
             let contact_m2k_w = match &l.contact_m2k_w {
                 Some(c) if last => {
@@ -1582,6 +1797,19 @@ impl Validator<'_> {
             );
         }
         let thickness_m: f64 = layers.iter().map(|l| l.thickness_m).sum();
+        let total_mm = thickness_m * 1000.0;
+        if total_mm.is_finite() && total_mm > 0.0 && !(WALL_MM.0..=WALL_MM.1).contains(&total_mm) {
+            self.warning(
+                z.layers.span(),
+                p("layers"),
+                format!(
+                    "the wall is {} mm thick in total, outside the {} to {} mm of kiln and furnace walls (common practice): thickness_mm and depth_mm are in millimetres",
+                    num(total_mm),
+                    WALL_MM.0,
+                    WALL_MM.1
+                ),
+            );
+        }
 
         let mut probes = Vec::new();
         if z.probes.get_ref().len() > MAX_PROBES {
@@ -1665,6 +1893,24 @@ impl Validator<'_> {
                 depth_m: depth_mm / 1000.0,
                 depth_sigma_m: depth_sigma_mm / 1000.0,
             });
+        }
+        if let [first, rest @ ..] = &probes[..] {
+            if !rest.is_empty()
+                && first.depth_m.is_finite()
+                && rest
+                    .iter()
+                    .all(|q| (q.depth_m - first.depth_m).abs() < 1e-9)
+            {
+                self.problem(
+                    z.probes.span(),
+                    p("probes"),
+                    format!(
+                        "all {} probes are at {} mm: a temperature profile needs probes at two depths at least",
+                        probes.len(),
+                        num(first.depth_m * 1000.0)
+                    ),
+                );
+            }
         }
         Zone {
             name,

@@ -112,6 +112,19 @@ pub enum AlarmKind {
     Diagnostic,
 }
 
+impl AlarmKind {
+    /// The configuration's word (`kind = "..."`, as serialised).
+    pub fn name(self) -> &'static str {
+        match self {
+            AlarmKind::High => "high",
+            AlarmKind::Low => "low",
+            AlarmKind::RateHigh => "rate_high",
+            AlarmKind::Deviation => "deviation",
+            AlarmKind::Diagnostic => "diagnostic",
+        }
+    }
+}
+
 /// How urgent an alarm is. Ordered most urgent first, so sorting ascending
 /// lists critical alarms at the top.
 #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
@@ -121,6 +134,18 @@ pub enum Priority {
     High,
     Medium,
     Low,
+}
+
+impl Priority {
+    /// The configuration's word (`priority = "..."`, as serialised).
+    pub fn name(self) -> &'static str {
+        match self {
+            Priority::Critical => "critical",
+            Priority::High => "high",
+            Priority::Medium => "medium",
+            Priority::Low => "low",
+        }
+    }
 }
 
 /// The configured behaviour of one alarm.
