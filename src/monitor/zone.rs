@@ -15,7 +15,7 @@ use crate::physics::layered::{HotFaceReading, ModelCheck, MAX_LAYERS};
 use crate::physics::profile::{heat_loss_w, ProbeSample};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
 use crate::physics::transient::{
-    Limit, TransientError, TransientEstimator, TransientLayer, TransientSettings,
+    Limit, ShellBoundary, TransientError, TransientEstimator, TransientLayer, TransientSettings,
 };
 use crate::time::Timestamp;
 
@@ -237,7 +237,7 @@ impl ZoneEngine {
                     cells_per_layer: zone.cells_per_layer,
                     ..TransientSettings::default()
                 };
-                TransientEstimator::new(&layers, zone.surface, settings).map(Box::new)
+                TransientEstimator::new(&layers, transient_shell(zone), settings).map(Box::new)
             });
         let mut tracks = HVec::new();
         for _ in zone.probes.iter().take(MAX_PROBES) {
@@ -554,6 +554,19 @@ pub fn shell_surface(zone: &Zone, shell_c: f64) -> SurfaceLoss {
             flux_w_m2: h * (shell_c - zone.surface.ambient_c),
         },
         None => surface_loss(shell_c, &zone.surface),
+    }
+}
+
+/// The transient model's shell boundary: the same law as [`shell_surface`],
+/// a measured `surface_h_w_m2k` to the ambient air when one is given (all
+/// of it convection, as in the steady models), the correlations otherwise.
+pub fn transient_shell(zone: &Zone) -> ShellBoundary {
+    match zone.surface_h_w_m2k {
+        Some(h_w_m2k) => ShellBoundary::Convection {
+            h_w_m2k,
+            ambient_c: zone.surface.ambient_c,
+        },
+        None => ShellBoundary::Surface(zone.surface),
     }
 }
 

@@ -61,7 +61,6 @@ use super::model::{temperature_ok, HotFace, ShellBoundary, StepOperator, WallMod
 use super::steady::{self, Stack};
 use super::{TransientError, TransientLayer, MAX_LAYERS, MAX_NIS_WINDOW, MAX_NODES, MAX_STATE};
 use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
-use crate::physics::surface::SurfaceParams;
 
 /// Seconds in an hour.
 const S_PER_H: f64 = 3600.0;
@@ -262,20 +261,22 @@ pub fn chi_square_quantile_999(dof: f64) -> f64 {
 
 impl TransientEstimator {
     /// An estimator for a wall of `layers` whose shell loses heat through
-    /// `surface`. Not initialised: the first [`Self::step`] with readings
-    /// initialises it.
+    /// `shell`: the zone's surface correlations ([`crate::physics::surface::SurfaceParams`]) or a
+    /// measured coefficient ([`ShellBoundary::Convection`]). Not
+    /// initialised: the first [`Self::step`] with readings initialises it.
     pub fn new(
         layers: &[TransientLayer<'_>],
-        surface: SurfaceParams,
+        shell: impl Into<ShellBoundary>,
         settings: TransientSettings,
     ) -> Result<Self, TransientError> {
         settings.validate()?;
+        let shell = shell.into();
         let fit = (MAX_NODES - 1) / layers.len().max(1);
         let model = WallModel::new(
             layers,
             settings.cells_per_layer.min(fit),
-            ShellBoundary::Surface(surface),
-            surface.ambient_c,
+            shell,
+            shell.ambient_c(),
         )?;
         Ok(TransientEstimator {
             model,

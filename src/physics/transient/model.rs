@@ -62,6 +62,12 @@ pub enum ShellBoundary {
     Convection { h_w_m2k: f64, ambient_c: f64 },
 }
 
+impl From<SurfaceParams> for ShellBoundary {
+    fn from(p: SurfaceParams) -> Self {
+        ShellBoundary::Surface(p)
+    }
+}
+
 impl ShellBoundary {
     /// Checks the parameters.
     pub fn validate(&self) -> Result<(), TransientError> {
