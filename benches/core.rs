@@ -147,6 +147,7 @@ fn wall_models(c: &mut Criterion) {
             material: m,
             thickness_m: t,
             contact_m2k_w: 0.0,
+            contact_m2k_w: 0.0,
         })
         .collect();
     let wall = LayeredWall::new(&specs).unwrap();

@@ -344,3 +344,144 @@ fn a_measured_shell_coefficient_is_the_transient_shell_boundary() {
     }
     assert!(checked >= 14, "states checked: {checked}");
 }
+
+impl RefWall {
+    /// Runs to steady state with the hot face at `hot_c` (backward Euler is
+    /// unconditionally stable: long steps converge to the steady solution).
+    fn settle(&mut self, hot_c: f64) {
+        for _ in 0..3000 {
+            self.step(3600.0, hot_c);
+        }
+    }
+}
+
+const LAYERS_WITH_CONTACT: &str = "{ material = \"a\", thickness_mm = 230, contact_m2k_w = 0.05 }, { material = \"b\", thickness_mm = 115 }, { material = \"c\", thickness_mm = 10 }";
+
+fn contact_wall(initial_c: f64) -> RefWall {
+    let a = RefLayer {
+        contact_m2k_w: 0.05,
+        ..A
+    };
+    RefWall::new(&[a, B, C], 0.001, initial_c, 20.0, 25.0)
+}
+
+/// A steady wall with a 0.05 m²K/W contact between its first two layers:
+/// the transient model's hot-face flux, stored heat, rate and both sides of
+/// the contact against the reference solution (steady, so also against the
+/// series-resistance hand calculation the reference reproduces). Before,
+/// the contact was ignored: the flux came out about a quarter low, with a
+/// stored heat and a rate on a wall that was not changing.
+#[test]
+fn a_contact_resistance_on_a_steady_wall() {
+    let depths = [40.0, 120.0, 250.0, 340.0];
+    let mut w = contact_wall(25.0);
+    w.settle(1000.0);
+    // Hand calculation: R = 0.23/1.2 + 0.05 + 0.115/0.2 + 0.01/50 + 1/20,
+    // q = (1000 − 25)/R.
+    let r_total = 0.23 / 1.2 + 0.05 + 0.115 / 0.2 + 0.01 / 50.0 + 1.0 / 20.0;
+    let q_hand = 975.0 / r_total;
+    assert!(
+        (w.flux_hot_w_m2() - q_hand).abs() < 1e-3 * q_hand,
+        "reference steady flux"
+    );
+    let r = run(&mut w, &depths, 6 * 60, |_| 1000.0);
+    let dir = temp_dir("transient_ref_contact");
+    let cfg = write(
+        &dir,
+        "t.toml",
+        &config(
+            LAYERS_WITH_CONTACT,
+            &depths,
+            "surface_h_w_m2k = 20.0\nfiring_setpoint_c = 1000",
+        ),
+    );
+    let states = states_by_minute(&analyze_csv(&dir, &cfg, &r.csv));
+    let t = &r.truth[0];
+    let (hot_side, cold_side) = t.interfaces[0];
+    assert!(
+        (hot_side - cold_side - q_hand * 0.05).abs() < 0.01,
+        "reference contact drop"
+    );
+    for (m, v) in states.iter().filter(|(m, _)| *m >= 30) {
+        let q0 = num(v, "flux_hot_face_w_m2");
+        assert!(
+            (q0 - q_hand).abs() < 0.01 * q_hand,
+            "minute {m}: q(0) {q0:.1} vs {q_hand:.1}"
+        );
+        assert!(
+            (num(v, "hot_face_c") - 1000.0).abs() < 2.0,
+            "minute {m}: hot face"
+        );
+        assert!(
+            num(v, "stored_w_m2").abs() < 10.0,
+            "minute {m}: stored {}",
+            v["stored_w_m2"]
+        );
+        assert!(
+            num(v, "hot_face_rate_c_per_h").abs() < 1.0,
+            "minute {m}: rate"
+        );
+        assert_eq!(v["status"], "ok", "minute {m}");
+        let hot = v["interface_c"][0].as_f64().unwrap();
+        let cold = v["interface_cold_c"][0].as_f64().unwrap();
+        assert!(
+            (hot - hot_side).abs() < 1.0,
+            "minute {m}: interface hot side {hot:.2} vs {hot_side:.2}"
+        );
+        assert!(
+            (cold - cold_side).abs() < 1.0,
+            "minute {m}: interface cold side {cold:.2} vs {cold_side:.2}"
+        );
+        assert!(
+            v["interface_cold_c"][1].is_null(),
+            "perfect contact: no cold side"
+        );
+    }
+}
+
+/// The same wall heating up from cold: hot face, q(0) and both sides of
+/// the contact follow the reference through the heat-up.
+#[test]
+fn a_contact_resistance_through_a_heat_up() {
+    let depths = [40.0, 120.0, 250.0, 340.0];
+    let mut w = contact_wall(25.0);
+    let r = run(&mut w, &depths, 12 * 60, |t| {
+        (25.0 + 100.0 * t / 3600.0).min(1000.0)
+    });
+    let dir = temp_dir("transient_ref_contact_heat");
+    let cfg = write(
+        &dir,
+        "t.toml",
+        &config(
+            LAYERS_WITH_CONTACT,
+            &depths,
+            "surface_h_w_m2k = 20.0\nfiring_setpoint_c = 1000",
+        ),
+    );
+    let states = states_by_minute(&analyze_csv(&dir, &cfg, &r.csv));
+    let mut checked = 0;
+    for (m, v) in states.iter().filter(|(m, _)| *m >= 180 && m % 60 == 0) {
+        let t = &r.truth[m - 1];
+        let rise = t.hot_c - 25.0;
+        let hot = num(v, "hot_face_c");
+        assert!(
+            (hot - t.hot_c).abs() < 0.03 * rise,
+            "minute {m}: hot face {hot:.1} vs {:.1}",
+            t.hot_c
+        );
+        let cold = v["interface_cold_c"][0].as_f64().unwrap();
+        assert!(
+            (cold - t.interfaces[0].1).abs() < 3.0,
+            "minute {m}: cold side {cold:.1} vs {:.1}",
+            t.interfaces[0].1
+        );
+        let hot_side = v["interface_c"][0].as_f64().unwrap();
+        assert!(
+            (hot_side - t.interfaces[0].0).abs() < 3.0,
+            "minute {m}: hot side {hot_side:.1} vs {:.1}",
+            t.interfaces[0].0
+        );
+        checked += 1;
+    }
+    assert!(checked >= 9, "states checked: {checked}");
+}

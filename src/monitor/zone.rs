@@ -144,6 +144,10 @@ pub struct ZoneReport {
     /// Interface temperatures hot to cold (layered model), °C.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub interface_c: Option<HVec<f64, MAX_LAYERS>>,
+    /// The cold side of each interface, as `interface_c` (which is the hot
+    /// side): null where the contact is perfect, °C.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub interface_cold_c: Option<HVec<Option<f64>, MAX_LAYERS>>,
     /// Thermal resistance hot face → shell (layered model), m²K/W.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub thermal_resistance_m2k_w: Option<f64>,
@@ -230,6 +234,7 @@ impl ZoneEngine {
                         materials.get(l.material).map(|m| TransientLayer {
                             material: &m.material,
                             thickness_m: l.thickness_m,
+                            contact_m2k_w: l.contact_m2k_w,
                         })
                     })
                     .collect();
@@ -418,6 +423,7 @@ impl ZoneEngine {
             balance_mismatch_pct: None,
             stored_w_m2: None,
             interface_c: None,
+            interface_cold_c: None,
             thermal_resistance_m2k_w: None,
             model_check: None,
             model_note: None,
@@ -488,6 +494,19 @@ impl ZoneEngine {
         report.fit_degree = sol.degree;
         if !sol.interface_c.is_empty() {
             report.interface_c = Some(sol.interface_c.iter().map(|&(t, _)| t).collect());
+            // Steady: the one flux crosses each contact, T_cold = T_hot − q R.
+            if zone.layers.iter().any(|l| l.contact_m2k_w > 0.0) {
+                let q = sol.flux_shell_w_m2;
+                report.interface_cold_c = Some(
+                    sol.interface_c
+                        .iter()
+                        .zip(&zone.layers)
+                        .map(|(&(t, _), l)| {
+                            (l.contact_m2k_w > 0.0).then_some(t - q * l.contact_m2k_w)
+                        })
+                        .collect(),
+                );
+            }
         }
         report.thermal_resistance_m2k_w = sol.resistance_m2k_w.map(|(r, _)| r);
         // Lining condition needs a reading at the hot face: steady probes
@@ -670,6 +689,10 @@ impl ZoneEngine {
         let interfaces = est.interface_c();
         if !interfaces.is_empty() {
             report.interface_c = Some(interfaces.iter().map(|&(t, _)| t).collect());
+            let cold = est.interface_cold_c();
+            if cold.iter().any(Option::is_some) {
+                report.interface_cold_c = Some(cold.iter().map(|c| c.map(|(t, _)| t)).collect());
+            }
         }
         let mut sq = 0.0;
         for p in report.probes.iter_mut() {
@@ -1051,7 +1074,7 @@ fn shell_probe(report: &ZoneReport, zone: &Zone) -> Option<(f64, usize)> {
 ///
 /// | number | `unconfirmed` | `not_steady`, `contradicted`, `implausible` |
 /// |---|---|---|
-/// | `hot_face_c`, both fluxes, `heat_loss_w`, `source_w_m3`, `interface_c`, `thermal_resistance_m2k_w`, `resistance_change_pct`, `lining_remaining_mm`, `hot_face_rate_c_per_h`, `forecast`, `time_to_limit_h`, `uncertainty`, each probe's `rate_model_c_per_h` | null | null |
+/// | `hot_face_c`, both fluxes, `heat_loss_w`, `source_w_m3`, `interface_c`, `interface_cold_c`, `thermal_resistance_m2k_w`, `resistance_change_pct`, `lining_remaining_mm`, `hot_face_rate_c_per_h`, `forecast`, `time_to_limit_h`, `uncertainty`, each probe's `rate_model_c_per_h` | null | null |
 /// | `shell_c` and the surface loss from it | the shell thermocouple's reading, else null | the same |
 /// | `balance_mismatch_pct` | kept (the evidence) | null |
 /// | `stored_w_m2` | kept from measured rates, null from the transient estimate | the same |
@@ -1068,6 +1091,7 @@ fn withhold(report: &mut ZoneReport, zone: &Zone) {
     report.heat_loss_w = None;
     report.source_w_m3 = None;
     report.interface_c = None;
+    report.interface_cold_c = None;
     report.thermal_resistance_m2k_w = None;
     report.resistance_change_pct = None;
     report.lining_remaining_mm = None;

@@ -394,9 +394,11 @@ impl TransientEstimator {
             return false;
         };
         let ends = self.model.layer_ends_m();
+        let contacts = self.model.contacts_m2k_w();
         let stack = Stack {
             materials: self.model.materials(),
             ends_m: &ends,
+            contacts_m2k_w: &contacts,
         };
         let n = self.model.node_count();
         let mut t = [0.0; MAX_NODES];
@@ -760,6 +762,22 @@ impl TransientEstimator {
         let t = self.model.node_temperatures_c();
         for &j in self.model.interface_nodes() {
             let _ = out.push((t[j], self.sigma(j)));
+        }
+        out
+    }
+
+    /// The cold side of each internal interface and its standard
+    /// uncertainty, °C: `Some` where the interface has a contact
+    /// resistance, `None` where the contact is perfect (one temperature).
+    pub fn interface_cold_c(&self) -> HVec<Option<(f64, f64)>, MAX_LAYERS> {
+        let mut out = HVec::new();
+        if !self.initialised {
+            return out;
+        }
+        let t = self.model.node_temperatures_c();
+        let m = &self.model;
+        for (&hot, &cold) in m.interface_nodes().iter().zip(m.interface_cold_nodes()) {
+            let _ = out.push((cold > hot).then(|| (t[cold], self.sigma(cold))));
         }
         out
     }

@@ -209,6 +209,7 @@ fn layers_of(m: &[(Material, f64)]) -> heapless::Vec<TransientLayer<'_>, 8> {
         .map(|(material, thickness_m)| TransientLayer {
             material,
             thickness_m: *thickness_m,
+            contact_m2k_w: 0.0,
         })
         .collect()
 }
