@@ -485,3 +485,44 @@ fn a_contact_resistance_through_a_heat_up() {
     }
     assert!(checked >= 9, "states checked: {checked}");
 }
+
+/// `check` refuses the zone settings a transient model cannot honour,
+/// naming the key and its line, instead of ignoring them.
+#[test]
+fn check_refuses_settings_the_transient_model_cannot_honour() {
+    let layers = "{ material = \"a\", thickness_mm = 230 }, { material = \"b\", thickness_mm = 115 }, { material = \"c\", thickness_mm = 10 }";
+    let text = config(
+        layers,
+        &[40.0, 120.0],
+        "hot_face_channel = \"p0\"\nlining_min_mm = 50\nbaseline_days = 3\ncells_per_layer = 32",
+    );
+    let err = wallflux::config::parse(&text, "t.toml", None)
+        .map(|_| ())
+        .unwrap_err()
+        .to_string();
+    let line_of = |key: &str| {
+        text.lines()
+            .position(|l| l.starts_with(key))
+            .map(|i| i + 1)
+            .unwrap()
+    };
+    for key in [
+        "hot_face_channel",
+        "lining_min_mm",
+        "baseline_days",
+        "cells_per_layer",
+    ] {
+        let line = line_of(key);
+        assert!(
+            err.lines()
+                .any(|l| l.contains(&format!(":{line}")) && l.contains(&format!("zone[0].{key}"))),
+            "{key} (line {line}) not refused:\n{err}"
+        );
+    }
+    assert!(
+        err.contains("need 97 nodes, at most 64: use at most 21"),
+        "{err}"
+    );
+    // The same zone without those keys is accepted.
+    assert!(wallflux::config::parse(&config(layers, &[40.0, 120.0], ""), "t.toml", None).is_ok());
+}

@@ -271,7 +271,8 @@ impl TransientEstimator {
     ) -> Result<Self, TransientError> {
         settings.validate()?;
         let shell = shell.into();
-        let fit = (MAX_NODES - 1) / layers.len().max(1);
+        let contacts = layers.iter().filter(|l| l.contact_m2k_w > 0.0).count();
+        let fit = (MAX_NODES - 1).saturating_sub(contacts) / layers.len().max(1);
         let model = WallModel::new(
             layers,
             settings.cells_per_layer.min(fit),
