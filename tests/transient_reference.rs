@@ -526,3 +526,63 @@ fn check_refuses_settings_the_transient_model_cannot_honour() {
     // The same zone without those keys is accepted.
     assert!(wallflux::config::parse(&config(layers, &[40.0, 120.0], ""), "t.toml", None).is_ok());
 }
+
+/// A kiln holding at 1000 °C after its ramp, probes read with noise (±0.3 °C
+/// uniform, deterministic) rounded to 0.1 °C: the 4 h hot-face forecast
+/// stays near the held temperature, and the 4 h shell forecast near the
+/// reference's future. Extrapolating the raw, noisy rate estimate for 4 h
+/// put the hot face far off while the kiln was simply holding.
+#[test]
+fn the_hot_face_forecast_while_holding() {
+    let depths = [40.0, 120.0, 250.0, 340.0];
+    let mut w = RefWall::new(&[A, B, C], 0.001, 25.0, 20.0, 25.0);
+    let mut r = run(&mut w, &depths, 18 * 60, |t| {
+        (25.0 + 100.0 * t / 3600.0).min(1000.0)
+    });
+    let mut state = 0x2545_F491_4F6C_DD1Du64;
+    let mut noise = || {
+        // SplitMix64 → uniform in ±0.3 °C.
+        state = state.wrapping_add(0x9E37_79B9_7F4A_7C15);
+        let mut z = state;
+        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
+        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
+        ((z ^ (z >> 31)) >> 11) as f64 / (1u64 << 53) as f64 * 0.6 - 0.3
+    };
+    let mut csv = String::from("time,channel,value\n");
+    for line in r.csv.lines().skip(1) {
+        let mut f = line.split(',');
+        let (t, ch, v) = (f.next().unwrap(), f.next().unwrap(), f.next().unwrap());
+        let v: f64 = v.parse().unwrap();
+        csv += &format!("{t},{ch},{:.1}\n", v + noise());
+    }
+    r.csv = csv;
+    let dir = temp_dir("transient_ref_hold");
+    let layers = "{ material = \"a\", thickness_mm = 230 }, { material = \"b\", thickness_mm = 115 }, { material = \"c\", thickness_mm = 10 }";
+    let cfg = write(
+        &dir,
+        "t.toml",
+        &config(layers, &depths, "surface_h_w_m2k = 20.0\nforecast_h = [4]"),
+    );
+    let states = states_by_minute(&analyze_csv(&dir, &cfg, &r.csv));
+    let mut worst = 0.0f64;
+    for (m, v) in states
+        .iter()
+        .filter(|(m, _)| *m >= 11 * 60 && m + 240 <= r.truth.len())
+    {
+        let f = &v["forecast"][0];
+        let hot = f["hot_face_c"].as_f64().unwrap();
+        worst = worst.max((hot - 1000.0).abs());
+        let shell = f["shell_c"].as_f64().unwrap();
+        let later = r.truth[m + 240 - 1].shell_c;
+        assert!(
+            (shell - later).abs() < 1.0,
+            "minute {m}: 4 h shell forecast {shell:.2} vs {later:.2}"
+        );
+    }
+    // Measured: 29.5 K with the default 2 h damping; 64 K with the rate
+    // extrapolated undamped (the old forecast) on these same readings.
+    assert!(
+        worst < 35.0,
+        "4 h hot-face forecast off by up to {worst:.1} K while holding"
+    );
+}

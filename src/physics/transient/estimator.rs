@@ -65,6 +65,11 @@ use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
 /// Seconds in an hour.
 const S_PER_H: f64 = 3600.0;
 
+/// Default time constant of the hot-face rate in forecasts, s (2 h, a
+/// choice of ours: a trend of the last interval is not assumed to go on
+/// for a whole shift, but a ramp's next hour is still followed closely).
+pub const FORECAST_RATE_DAMPING_S: f64 = 2.0 * S_PER_H;
+
 /// Time step of forecasts, s (the last step is shortened to end on the
 /// horizon).
 pub const FORECAST_STEP_S: f64 = 60.0;
@@ -115,6 +120,11 @@ pub struct TransientSettings {
     pub initial_hot_face_sigma_c: f64,
     /// Initial standard uncertainty of the hot-face rate, °C/h.
     pub initial_rate_sigma_c_per_h: f64,
+    /// Time constant with which forecasts let the hot-face rate die away,
+    /// s (infinite: the current rate held for the whole horizon). The rate
+    /// estimate is the recent trend: noisy while the kiln holds, and every
+    /// ramp ends; extrapolated for hours it puts the hot face far off.
+    pub forecast_rate_damping_s: f64,
 }
 
 impl Default for TransientSettings {
@@ -130,6 +140,7 @@ impl Default for TransientSettings {
             nis_window: 20,
             initial_hot_face_sigma_c: 100.0,
             initial_rate_sigma_c_per_h: 100.0,
+            forecast_rate_damping_s: FORECAST_RATE_DAMPING_S,
         }
     }
 }
@@ -155,6 +166,13 @@ impl TransientSettings {
                 self.initial_rate_sigma_c_per_h,
             ),
         ];
+        let damping = self.forecast_rate_damping_s;
+        if damping.is_nan() || damping <= 0.0 {
+            return Err(TransientError::Setting {
+                what: "forecast_rate_damping_s",
+                value: damping,
+            });
+        }
         for (what, value) in positive {
             if !(value.is_finite() && value > 0.0) {
                 return Err(TransientError::Setting { what, value });
@@ -815,7 +833,10 @@ impl TransientEstimator {
         }
         while horizon - t > 1e-9 {
             let dt = FORECAST_STEP_S.min(horizon - t);
-            let hot = (t_hot + self.rate_c_per_s * (t + dt)).max(floor).min(cap);
+            let tau = self.settings.forecast_rate_damping_s;
+            let hot = (t_hot + damped_rise(self.rate_c_per_s, t + dt, tau))
+                .max(floor)
+                .min(cap);
             if m.step(dt, hot).is_err() {
                 break;
             }
@@ -829,7 +850,8 @@ impl TransientEstimator {
 
     /// The wall `horizon_s` ahead (at most [`MAX_FORECAST_HORIZON_S`]) from
     /// the current mean state, the hot face following its current trend
-    /// `T_hot + r t`, capped at `hot_face_cap_c` (or at the current hot face
+    /// damped, `T_hot + r τ (1 − e^(−t/τ))` ([`damped_rise`],
+    /// [`TransientSettings::forecast_rate_damping_s`]), capped at `hot_face_cap_c` (or at the current hot face
     /// if that is higher; NaN: no cap) and floored at the ambient (or the
     /// current hot face if lower). `None` before initialisation.
     pub fn forecast(&self, horizon_s: f64, hot_face_cap_c: f64) -> Option<ForecastPoint> {
@@ -882,6 +904,16 @@ impl TransientEstimator {
         })?;
         hit.map(|t_s| t_s / S_PER_H)
     }
+}
+
+/// Rise of the hot face `t_s` ahead under a rate `r` that decays with the
+/// time constant `tau_s`: `r τ (1 − e^(−t/τ))`, °C (at most `r τ`; `r t`
+/// for an infinite `τ`).
+pub fn damped_rise(rate_c_per_s: f64, t_s: f64, tau_s: f64) -> f64 {
+    if tau_s.is_infinite() {
+        return rate_c_per_s * t_s;
+    }
+    rate_c_per_s * tau_s * -(-t_s / tau_s).exp_m1()
 }
 
 /// Applies the transition `F` to `v = [δT_0 … δT_{N−1}, δr]`: the hot face
