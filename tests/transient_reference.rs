@@ -586,3 +586,73 @@ fn the_hot_face_forecast_while_holding() {
         "4 h hot-face forecast off by up to {worst:.1} K while holding"
     );
 }
+
+/// A zone state stamped T holds the readings of T: at 200 °C/h every probe's
+/// `measured_c` is the row stamped T and the transient estimate at the
+/// probe matches it (not the row an interval earlier, 3.3 K colder at the
+/// hot-side probe). A file that ends 30 s after an interval boundary gets a
+/// last state at its last reading.
+#[test]
+fn states_hold_the_readings_of_their_time_and_the_last_partial_interval() {
+    let depths = [40.0, 120.0, 250.0, 340.0];
+    let mut w = RefWall::new(&[A, B, C], 0.001, 25.0, 20.0, 25.0);
+    let hot = |t: f64| (25.0 + 200.0 * t / 3600.0).min(1000.0);
+    let mut r = run(&mut w, &depths, 4 * 60, hot);
+    // Half a minute more.
+    for s in 1..=6 {
+        w.step(5.0, hot(4.0 * 3600.0 + s as f64 * 5.0));
+    }
+    let end = T0 + 4 * 3600 + 30;
+    let mut last_row = Vec::new();
+    for (i, d) in depths.iter().enumerate() {
+        let v = (w.at(d / 1000.0) * 100.0).round() / 100.0;
+        r.csv += &format!("{end},p{i},{v:.2}\n");
+        last_row.push(v);
+    }
+    let dir = temp_dir("transient_ref_stamp");
+    let layers = "{ material = \"a\", thickness_mm = 230 }, { material = \"b\", thickness_mm = 115 }, { material = \"c\", thickness_mm = 10 }";
+    let cfg = write(
+        &dir,
+        "t.toml",
+        &config(layers, &depths, "surface_h_w_m2k = 20.0"),
+    );
+    let out = analyze_csv(&dir, &cfg, &r.csv);
+    let rows: Vec<Vec<f64>> = r
+        .csv
+        .lines()
+        .skip(1)
+        .map(|l| l.rsplit(',').next().unwrap().parse().unwrap())
+        .collect::<Vec<f64>>()
+        .chunks(depths.len())
+        .map(<[f64]>::to_vec)
+        .collect();
+    let mut checked = 0;
+    for (m, v) in states_by_minute(&out)
+        .iter()
+        .filter(|(m, _)| (60..=240).contains(m))
+    {
+        for (k, p) in v["probes"].as_array().unwrap().iter().enumerate() {
+            let measured = p["measured_c"].as_f64().unwrap();
+            let want = rows[m - 1][k];
+            assert!(
+                (measured - want).abs() < 1e-6,
+                "minute {m} probe {k}: {measured} is not the row of its time ({want})"
+            );
+            let fitted = p["fitted_c"].as_f64().unwrap();
+            assert!(
+                (fitted - want).abs() < 1.0,
+                "minute {m} probe {k}: estimate {fitted:.2} vs reading {want:.2}"
+            );
+        }
+        checked += 1;
+    }
+    assert!(checked >= 180, "states checked: {checked}");
+    let last: serde_json::Value = serde_json::from_str(out.lines().last().unwrap()).unwrap();
+    let t = Timestamp::parse(last["time"].as_str().unwrap())
+        .unwrap()
+        .epoch_s();
+    assert_eq!(t, end as f64, "the last partial interval is published");
+    for (k, p) in last["probes"].as_array().unwrap().iter().enumerate() {
+        assert!((p["measured_c"].as_f64().unwrap() - last_row[k]).abs() < 1e-6);
+    }
+}
