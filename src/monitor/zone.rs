@@ -242,7 +242,9 @@ impl ZoneEngine {
                     cells_per_layer: zone.cells_per_layer,
                     ..TransientSettings::default()
                 };
-                TransientEstimator::new(&layers, transient_shell(zone), settings).map(Box::new)
+                let depths: Vec<f64> = zone.probes.iter().map(|p| p.depth_m).collect();
+                TransientEstimator::new(&layers, transient_shell(zone), settings)
+                    .map(|e| Box::new(e.graded(&depths, zone.interval_s)))
             });
         let mut tracks = HVec::new();
         for _ in zone.probes.iter().take(MAX_PROBES) {

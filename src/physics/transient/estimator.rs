@@ -309,6 +309,16 @@ impl TransientEstimator {
         })
     }
 
+    /// The same estimator on a grid graded towards the hot face and the
+    /// probe depths `probe_depths_m` for a zone interval of `interval_s`
+    /// ([`WallModel::graded`]). Before the first step only.
+    pub fn graded(mut self, probe_depths_m: &[f64], interval_s: f64) -> Self {
+        if !self.initialised {
+            self.model = self.model.graded(probe_depths_m, interval_s);
+        }
+        self
+    }
+
     /// Whether the filter holds an estimate (after the first readings).
     pub fn is_initialised(&self) -> bool {
         self.initialised

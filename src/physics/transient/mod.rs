@@ -40,6 +40,7 @@
 //! `docs/transient-model.md`.
 
 pub mod estimator;
+pub mod grid;
 pub mod model;
 mod steady;
 

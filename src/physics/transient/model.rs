@@ -439,6 +439,40 @@ impl WallModel {
         })
     }
 
+    /// Re-places the nodes of every layer graded towards the hot face and
+    /// the depths `focus_m` ([`super::grid`]), for a zone interval of
+    /// `interval_s`; the node count, the layer faces and the temperatures
+    /// stay. Every cell keeps a positive width.
+    pub fn graded(mut self, focus_m: &[f64], interval_s: f64) -> Self {
+        let mut focus: HVec<f64, { MAX_NODES + 1 }> = HVec::new();
+        let _ = focus.push(0.0);
+        for &f in focus_m {
+            if f.is_finite() {
+                let _ = focus.push(f.clamp(0.0, self.thickness_m()));
+            }
+        }
+        let layers = self.materials.len();
+        for i in 0..layers {
+            let first = match i.checked_sub(1) {
+                Some(k) => self.interface_cold_nodes[k],
+                None => 0,
+            };
+            let last = self.interface_nodes.get(i).copied().unwrap_or(self.n - 1);
+            let m = &self.materials[i];
+            let t = self.t_c[first];
+            let alpha = m.conductivity_w_mk.at(t) / (m.density_kg_m3 * m.specific_heat_j_kgk.at(t));
+            let width = super::grid::focus_width_m(alpha, interval_s);
+            let (start, end) = (self.x_m[first], self.x_m[last]);
+            let mut x = [0.0; MAX_NODES];
+            let cells = last - first;
+            super::grid::graded_layer(start, end, &focus, width, &mut x[..=cells]);
+            if x[..=cells].windows(2).all(|w| w[1] > w[0]) {
+                self.x_m[first..=last].copy_from_slice(&x[..=cells]);
+            }
+        }
+        self
+    }
+
     /// The same wall with another time scheme.
     pub fn with_scheme(mut self, scheme: TimeScheme) -> Self {
         self.scheme = scheme;
