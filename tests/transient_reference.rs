@@ -713,3 +713,63 @@ fn a_thick_layer_on_the_default_grid() {
         "hot face off by up to {worst_kink:.1} K after the ramp"
     );
 }
+
+/// A curved polynomial conductivity, `k = 2.0 − 2.4e-3 T + 1.6e-6 T²`
+/// (W/(m·K), T in °C, 0–1400 °C; minimum 1.1 at 750 °C: invented for the
+/// test), on a steady wall: the polynomial is integrated exactly, so the
+/// hot-face flux equals the Kirchhoff closed form `q = ∫_{T_s}^{T_0} k dT / L`
+/// of the reference's own temperatures (Incropera §3.2) to 1e-4, and the
+/// property itself integrates to the closed form. Sampled into a 16-point
+/// table it was off by several times that.
+#[test]
+fn a_polynomial_conductivity_is_exact() {
+    use wallflux::physics::material::Property;
+    let k = |t: f64| 2.0 - 2.4e-3 * t + 1.6e-6 * t * t;
+    let big_k = |t: f64| 2.0 * t - 1.2e-3 * t * t + 1.6e-6 / 3.0 * t * t * t;
+    let p = Property::polynomial("k", &[2.0, -2.4e-3, 1.6e-6], 0.0, 1400.0).unwrap();
+    for (a, b) in [(25.0, 1000.0), (300.0, 310.0), (1000.0, 200.0)] {
+        let want = big_k(b) - big_k(a);
+        assert!(
+            (p.integral(a, b) - want).abs() < 1e-9 * want.abs(),
+            "∫ {a}..{b}"
+        );
+    }
+    assert!(
+        Property::polynomial("k", &[1.0, -1e-3], 0.0, 1400.0).is_err(),
+        "negative k refused"
+    );
+
+    let depths = [30.0, 100.0, 200.0, 290.0];
+    let layer = RefLayer {
+        k,
+        rho_cp_j_m3k: 2100.0 * 1000.0,
+        thickness_m: 0.3,
+        contact_m2k_w: 0.0,
+    };
+    let mut w = RefWall::new(&[layer], 0.0005, 25.0, 20.0, 25.0);
+    w.settle(1000.0);
+    let q_closed = (big_k(w.t[0]) - big_k(w.shell_c())) / 0.3;
+    assert!(
+        (w.flux_hot_w_m2() - q_closed).abs() < 1e-4 * q_closed,
+        "reference vs closed form"
+    );
+    let r = run(&mut w, &depths, 2 * 60, |_| 1000.0);
+    let dir = temp_dir("transient_ref_poly");
+    let text = config("{ material = \"p\", thickness_mm = 300 }", &depths, "surface_h_w_m2k = 20.0")
+        .replace(
+            "[[material]]\nname = \"a\"",
+            "[[material]]\nname = \"p\"\nconductivity_w_mk = { polynomial = [2.0, -2.4e-3, 1.6e-6], from_c = 0.0, to_c = 1400.0 }\ndensity_kg_m3 = 2100.0\nspecific_heat_j_kgk = 1000.0\n[[material]]\nname = \"a\"",
+        );
+    let cfg = write(&dir, "t.toml", &text);
+    let states = states_by_minute(&analyze_csv(&dir, &cfg, &r.csv));
+    let mut worst = 0.0f64;
+    for (_, v) in states.iter().filter(|(m, _)| *m >= 30) {
+        worst = worst.max((num(v, "flux_hot_face_w_m2") - q_closed).abs() / q_closed);
+        worst = worst.max((num(v, "flux_shell_w_m2") - q_closed).abs() / q_closed);
+    }
+    assert!(
+        worst < 1e-4,
+        "flux off the closed form by up to {:.4} %",
+        worst * 100.0
+    );
+}

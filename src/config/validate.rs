@@ -1249,18 +1249,9 @@ impl Validator<'_> {
                     );
                     return Property::Constant(1.0);
                 }
-                // Sampled into the largest table: every model then handles
-                // it exactly as a table (piecewise linear between 16 points;
-                // a quadratic term a2 is off by at most a2·h²/8 between
-                // points, h = (to_c − from_c)/15; clamped outside the range).
-                let n = crate::physics::material::MAX_TABLE_POINTS;
-                let pts: Vec<(f64, f64)> = (0..n)
-                    .map(|i| {
-                        let t = from_c + (to_c - from_c) * i as f64 / (n - 1) as f64;
-                        (t, coefficients.iter().rev().fold(0.0, |acc, a| acc * t + a))
-                    })
-                    .collect();
-                Property::table(what, &pts)
+                // Kept as a polynomial: every model evaluates and integrates
+                // it exactly (clamped to its end values outside the range).
+                Property::polynomial(what, coefficients, *from_c, *to_c)
             }
         };
         match result {

@@ -300,6 +300,16 @@ fn property_ok(p: &Property) -> bool {
                     .all(|&(t, v)| t.is_finite() && v.is_finite() && v > 0.0)
                 && pts.windows(2).all(|w| w[1].0 > w[0].0)
         }
+        Property::Polynomial {
+            coefficients,
+            from_c,
+            to_c,
+        } => {
+            coefficients.iter().all(|a| a.is_finite())
+                && from_c < to_c
+                && p.bounds()
+                    .is_some_and(|(lo, hi)| lo > 0.0 && hi.is_finite())
+        }
     }
 }
 

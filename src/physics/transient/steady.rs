@@ -45,7 +45,7 @@ const MAX_BISECTIONS: usize = 200;
 pub(super) fn invert_kirchhoff(k: &Property, from_c: f64, target_w_m: f64) -> f64 {
     match k {
         Property::Constant(kv) => from_c - target_w_m / kv,
-        Property::Table(_) => {
+        Property::Table(_) | Property::Polynomial { .. } => {
             if target_w_m == 0.0 {
                 return from_c;
             }
@@ -79,14 +79,7 @@ pub(super) fn invert_kirchhoff(k: &Property, from_c: f64, target_w_m: f64) -> f6
 /// Smallest and largest value of a property (a table is clamped at its
 /// ends, so these bound it at every temperature).
 fn bounds(p: &Property) -> (f64, f64) {
-    match p {
-        Property::Constant(v) => (*v, *v),
-        Property::Table(pts) => pts
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(_, v)| {
-                (lo.min(v), hi.max(v))
-            }),
-    }
+    p.bounds().unwrap_or((f64::NAN, f64::NAN))
 }
 
 /// The layers as the steady profile needs them.
