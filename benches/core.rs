@@ -193,6 +193,7 @@ fn wall_models(c: &mut Criterion) {
         .map(|&(m, t)| TransientLayer {
             material: m,
             thickness_m: t,
+            contact_m2k_w: 0.0,
         })
         .collect();
     // 20 cells per layer: 61 nodes.

@@ -136,8 +136,9 @@ pub fn replay(
         }
         let (ch, v) = (ch.trim(), v.trim());
         let mon = monitor.get_or_insert_with(|| Monitor::new(settings.clone(), time));
-        // Everything due before this row's time is complete: emit it.
-        while let Some(r) = mon.poll_zone(time) {
+        // Everything due before this row's time is complete: emit it (a
+        // cycle due at this very time waits for this row).
+        while let Some(r) = mon.poll_zone_before(time) {
             serde_json::to_writer(&mut out, &r).map_err(|e| write_err(e.into()))?;
             out.write_all(b"\n").map_err(write_err)?;
             stats.states += 1;
@@ -189,6 +190,8 @@ pub fn replay(
         }
     }
     if let (Some(mon), Some(t)) = (monitor.as_mut(), last) {
+        // The last partial interval too: its readings are published.
+        mon.close_partial_intervals(t);
         while let Some(r) = mon.poll_zone(t) {
             serde_json::to_writer(&mut out, &r).map_err(|e| write_err(e.into()))?;
             out.write_all(b"\n").map_err(write_err)?;

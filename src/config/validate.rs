@@ -1425,18 +1425,9 @@ impl Validator<'_> {
                     );
                     return Property::Constant(1.0);
                 }
-                // Sampled into the largest table: every model then handles
-                // it exactly as a table (piecewise linear between 16 points;
-                // a quadratic term a2 is off by at most a2·h²/8 between
-                // points, h = (to_c − from_c)/15; clamped outside the range).
-                let n = crate::physics::material::MAX_TABLE_POINTS;
-                let pts: Vec<(f64, f64)> = (0..n)
-                    .map(|i| {
-                        let t = from_c + (to_c - from_c) * i as f64 / (n - 1) as f64;
-                        (t, coefficients.iter().rev().fold(0.0, |acc, a| acc * t + a))
-                    })
-                    .collect();
-                Property::table(what, &pts)
+                // Kept as a polynomial: every model evaluates and integrates
+                // it exactly (clamped to its end values outside the range).
+                Property::polynomial(what, coefficients, *from_c, *to_c)
             }
         };
         match result {
@@ -1716,6 +1707,9 @@ impl Validator<'_> {
             }
             None => 16,
         };
+        if model == Model::Transient {
+            self.transient_zone_keys(z, &p, cells_per_layer);
+        }
         let rate_window_s = z
             .rate_window_s
             .as_ref()
@@ -1948,6 +1942,52 @@ impl Validator<'_> {
 }
 
 impl Validator<'_> {
+    /// Settings of a `transient` zone its model cannot honour, refused
+    /// rather than ignored: the lining baseline and sizing (layered only),
+    /// and a `cells_per_layer` the grid cannot hold.
+    fn transient_zone_keys(&mut self, z: &RawZone, p: &dyn Fn(&str) -> String, cells: usize) {
+        let lining = "the transient model does not size the lining or learn its baseline (that needs model = \"layered\" and a hot_face_channel); remove it";
+        let spans = [
+            (
+                "hot_face_channel",
+                z.hot_face_channel.as_ref().map(|v| v.span()),
+            ),
+            ("lining_min_mm", z.lining_min_mm.as_ref().map(|v| v.span())),
+            ("baseline_days", z.baseline_days.as_ref().map(|v| v.span())),
+            (
+                "baseline_start",
+                z.baseline_start.as_ref().map(|v| v.span()),
+            ),
+        ];
+        for (key, span) in spans {
+            if let Some(span) = span {
+                self.problem(span, p(key), lining);
+            }
+        }
+        if let Some(c) = &z.cells_per_layer {
+            let layers = z.layers.get_ref();
+            let contacts = layers
+                .iter()
+                .filter(|l| {
+                    l.get_ref()
+                        .contact_m2k_w
+                        .as_ref()
+                        .is_some_and(|c| *c.get_ref() > 0.0)
+                })
+                .count();
+            let nodes = layers.len() * cells + 1 + contacts;
+            let most = crate::physics::transient::MAX_NODES;
+            if !layers.is_empty() && nodes > most {
+                let fit = (most - 1 - contacts.min(most - 1)) / layers.len();
+                self.problem(
+                    c.span(),
+                    p("cells_per_layer"),
+                    format!("{} layers × {cells} cells (and a node pair at each contact) need {nodes} nodes, at most {most}: use at most {fit}, or leave cells_per_layer out", layers.len()),
+                );
+            }
+        }
+    }
+
     /// `fallback`: only `"transient"`, for a quadratic or layered zone.
     fn zone_fallback(&mut self, z: &RawZone, model: Model, key: &str) -> Option<Model> {
         let f = z.fallback.as_ref()?;

@@ -273,11 +273,37 @@ impl Monitor {
     /// report is stamped with its due time, so a replay and the live run
     /// give the same times.
     pub fn poll_zone(&mut self, now: Timestamp) -> Option<ZoneReport> {
+        self.poll_due(now, false)
+    }
+
+    /// As [`Self::poll_zone`], but only cycles due strictly before `now`: a
+    /// replay calls it before handling a row stamped `now`, so that a cycle
+    /// due at `now` still sees that row's readings (its estimate holds for
+    /// the time it is stamped with).
+    pub fn poll_zone_before(&mut self, now: Timestamp) -> Option<ZoneReport> {
+        self.poll_due(now, true)
+    }
+
+    /// At the end of a replay: every zone that has had readings since its
+    /// last cycle gets a last cycle at `now` (a partial interval), so the
+    /// readings after the last interval boundary are published too. Then
+    /// call [`Self::poll_zone`] until `None`.
+    pub fn close_partial_intervals(&mut self, now: Timestamp) {
+        for (i, z) in self.zones.iter_mut().enumerate() {
+            let interval = self.settings.zones[i].interval_s;
+            let last_cycle = z.next_due.plus_s(-interval);
+            if z.next_due > now && now > last_cycle {
+                z.next_due = now;
+            }
+        }
+    }
+
+    fn poll_due(&mut self, now: Timestamp, strict: bool) -> Option<ZoneReport> {
         let (i, due) = self
             .zones
             .iter()
             .enumerate()
-            .filter(|(_, z)| z.next_due <= now)
+            .filter(|(_, z)| z.next_due < now || (!strict && z.next_due == now))
             .map(|(i, z)| (i, z.next_due))
             .min_by(|a, b| a.1.epoch_s().total_cmp(&b.1.epoch_s()))?;
         for ch in 0..self.channels.len() {

@@ -16,7 +16,7 @@ use crate::physics::profile::{heat_loss_w, ProbeSample};
 use crate::physics::surface::{surface_loss, SurfaceLoss};
 use crate::physics::transient::MAX_NODES;
 use crate::physics::transient::{
-    Limit, TransientError, TransientEstimator, TransientLayer, TransientSettings,
+    Limit, ShellBoundary, TransientError, TransientEstimator, TransientLayer, TransientSettings,
 };
 use crate::physics::uncertainty::{
     transient_budget, Budget, TransientInputs, TransientLayerInput, OUT_FLUX_HOT_FACE,
@@ -195,6 +195,10 @@ pub struct ZoneReport {
     /// Interface temperatures hot to cold (layered model), °C.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub interface_c: Option<HVec<f64, MAX_LAYERS>>,
+    /// The cold side of each interface, as `interface_c` (which is the hot
+    /// side): null where the contact is perfect, °C.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub interface_cold_c: Option<HVec<Option<f64>, MAX_LAYERS>>,
     /// Thermal resistance hot face → shell (layered model), m²K/W.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub thermal_resistance_m2k_w: Option<f64>,
@@ -287,6 +291,7 @@ impl ZoneEngine {
                         materials.get(l.material).map(|m| TransientLayer {
                             material: &m.material,
                             thickness_m: l.thickness_m,
+                            contact_m2k_w: l.contact_m2k_w,
                         })
                     })
                     .collect();
@@ -294,7 +299,9 @@ impl ZoneEngine {
                     cells_per_layer: zone.cells_per_layer,
                     ..TransientSettings::default()
                 };
-                TransientEstimator::new(&layers, zone.surface, settings).map(Box::new)
+                let depths: Vec<f64> = zone.probes.iter().map(|p| p.depth_m).collect();
+                TransientEstimator::new(&layers, transient_shell(zone), settings)
+                    .map(|e| Box::new(e.graded(&depths, zone.interval_s)))
             });
         let mut tracks = HVec::new();
         for _ in zone.probes.iter().take(MAX_PROBES) {
@@ -481,6 +488,7 @@ impl ZoneEngine {
             balance_mismatch_pct: None,
             stored_w_m2: None,
             interface_c: None,
+            interface_cold_c: None,
             thermal_resistance_m2k_w: None,
             model_check: None,
             model_note: None,
@@ -572,6 +580,19 @@ impl ZoneEngine {
         report.fit_degree = sol.degree;
         if !sol.interface_c.is_empty() {
             report.interface_c = Some(sol.interface_c.iter().map(|&(t, _)| t).collect());
+            // Steady: the one flux crosses each contact, T_cold = T_hot − q R.
+            if zone.layers.iter().any(|l| l.contact_m2k_w > 0.0) {
+                let q = sol.flux_shell_w_m2;
+                report.interface_cold_c = Some(
+                    sol.interface_c
+                        .iter()
+                        .zip(&zone.layers)
+                        .map(|(&(t, _), l)| {
+                            (l.contact_m2k_w > 0.0).then_some(t - q * l.contact_m2k_w)
+                        })
+                        .collect(),
+                );
+            }
         }
         report.thermal_resistance_m2k_w = sol.resistance_m2k_w.map(|(r, _)| r);
         // Lining condition needs a reading at the hot face: steady probes
@@ -677,6 +698,19 @@ pub fn shell_surface(zone: &Zone, shell_c: f64) -> SurfaceLoss {
             flux_w_m2: h * (shell_c - zone.surface.ambient_c),
         },
         None => surface_loss(shell_c, &zone.surface),
+    }
+}
+
+/// The transient model's shell boundary: the same law as [`shell_surface`],
+/// a measured `surface_h_w_m2k` to the ambient air when one is given (all
+/// of it convection, as in the steady models), the correlations otherwise.
+pub fn transient_shell(zone: &Zone) -> ShellBoundary {
+    match zone.surface_h_w_m2k {
+        Some(h_w_m2k) => ShellBoundary::Convection {
+            h_w_m2k,
+            ambient_c: zone.surface.ambient_c,
+        },
+        None => ShellBoundary::Surface(zone.surface),
     }
 }
 
@@ -809,6 +843,10 @@ impl ZoneEngine {
         let interfaces = est.interface_c();
         if !interfaces.is_empty() {
             report.interface_c = Some(interfaces.iter().map(|&(t, _)| t).collect());
+            let cold = est.interface_cold_c();
+            if cold.iter().any(Option::is_some) {
+                report.interface_cold_c = Some(cold.iter().map(|c| c.map(|(t, _)| t)).collect());
+            }
         }
         let mut sq = 0.0;
         for p in report.probes.iter_mut() {
@@ -1221,7 +1259,7 @@ fn shell_probe(report: &ZoneReport, zone: &Zone) -> Option<(f64, usize)> {
 /// | number | `unconfirmed` | `not_steady`, `contradicted`, `implausible` |
 /// |---|---|---|
 /// | `hot_face_c` | the `hot_face_channel` reading, else null | the same |
-/// | both fluxes, `heat_loss_w`, `source_w_m3`, `interface_c`, `thermal_resistance_m2k_w`, `resistance_change_pct`, `lining_remaining_mm`, `hot_face_rate_c_per_h`, `forecast`, `time_to_limit_h`, `uncertainty`, each probe's `rate_model_c_per_h` | null | null |
+/// | both fluxes, `heat_loss_w`, `source_w_m3`, `interface_c`, `interface_cold_c`, `thermal_resistance_m2k_w`, `resistance_change_pct`, `lining_remaining_mm`, `hot_face_rate_c_per_h`, `forecast`, `time_to_limit_h`, `uncertainty`, each probe's `rate_model_c_per_h` | null | null |
 /// | `shell_c` and the surface loss from it | the shell thermocouple's reading, else null | the same |
 /// | `balance_mismatch_pct` | kept (the evidence) | null |
 /// | `stored_w_m2` | kept from measured rates, null from the transient estimate | the same |
@@ -1238,6 +1276,7 @@ fn withhold(report: &mut ZoneReport, zone: &Zone) {
     report.heat_loss_w = None;
     report.source_w_m3 = None;
     report.interface_c = None;
+    report.interface_cold_c = None;
     report.thermal_resistance_m2k_w = None;
     report.resistance_change_pct = None;
     report.lining_remaining_mm = None;

@@ -902,6 +902,13 @@ fn conductivity_bounds(k: &Property) -> Option<(f64, f64)> {
             }
             Some(bounds)
         }
+        Property::Polynomial { coefficients, .. } => {
+            if !coefficients.iter().all(|a| a.is_finite()) {
+                return None;
+            }
+            k.bounds()
+                .filter(|&(lo, hi)| positive(lo) && hi.is_finite())
+        }
     }
 }
 

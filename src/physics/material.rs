@@ -24,8 +24,8 @@ pub enum MaterialError {
     TableOrder { prev_c: f64, next_c: f64 },
 }
 
-/// A property that is either constant or tabulated against temperature
-/// (piecewise linear between points, clamped beyond the ends).
+/// A property that is constant, tabulated against temperature (piecewise
+/// linear between points) or a polynomial, clamped beyond its range.
 // The table is inline (fixed capacity, no heap); properties live in the
 // settings and are not moved around, so the size difference is harmless.
 #[allow(clippy::large_enum_variant)]
@@ -34,6 +34,40 @@ pub enum Property {
     Constant(f64),
     /// Points `(t_c, value)`, temperatures strictly rising.
     Table(HVec<(f64, f64), MAX_TABLE_POINTS>),
+    /// `a0 + a1 T + a2 T² + …` (T in °C) on `from_c..=to_c`, clamped to its
+    /// end values outside; evaluated and integrated exactly.
+    Polynomial {
+        coefficients: HVec<f64, MAX_POLYNOMIAL_TERMS>,
+        from_c: f64,
+        to_c: f64,
+    },
+}
+
+/// Most coefficients of a polynomial property (degree 4).
+pub const MAX_POLYNOMIAL_TERMS: usize = 5;
+
+/// Samples over the range when bounding a polynomial.
+const POLYNOMIAL_BOUND_SAMPLES: usize = 1000;
+
+fn horner(c: &[f64], t: f64) -> f64 {
+    c.iter().rev().fold(0.0, |acc, a| acc * t + a)
+}
+
+/// Antiderivative `Σ a_i T^(i+1)/(i+1)`.
+fn horner_integral(c: &[f64], t: f64) -> f64 {
+    c.iter()
+        .enumerate()
+        .rev()
+        .fold(0.0, |acc, (i, a)| acc * t + a / (i + 1) as f64)
+        * t
+}
+
+fn horner_slope(c: &[f64], t: f64) -> f64 {
+    c.iter()
+        .enumerate()
+        .skip(1)
+        .rev()
+        .fold(0.0, |acc, (i, a)| acc * t + a * i as f64)
 }
 
 impl Property {
@@ -73,6 +107,78 @@ impl Property {
         Ok(Property::Table(v))
     }
 
+    /// A polynomial on `from_c..=to_c`, checked: 1 to 5 finite
+    /// coefficients, a finite rising range, positive over all of it.
+    pub fn polynomial(
+        what: &'static str,
+        coefficients: &[f64],
+        from_c: f64,
+        to_c: f64,
+    ) -> Result<Self, MaterialError> {
+        if coefficients.is_empty() || coefficients.len() > MAX_POLYNOMIAL_TERMS {
+            return Err(MaterialError::TableSize(coefficients.len()));
+        }
+        let mut c = HVec::new();
+        for &a in coefficients {
+            if !a.is_finite() {
+                return Err(MaterialError::NotPositive {
+                    what: "polynomial coefficient (finite)",
+                    value: a,
+                });
+            }
+            let _ = c.push(a);
+        }
+        if !(from_c.is_finite() && to_c.is_finite() && from_c < to_c) {
+            return Err(MaterialError::NotPositive {
+                what: "polynomial range (from_c < to_c)",
+                value: to_c - from_c,
+            });
+        }
+        let p = Property::Polynomial {
+            coefficients: c,
+            from_c,
+            to_c,
+        };
+        match p.bounds() {
+            Some((lo, _)) if lo > 0.0 => Ok(p),
+            _ => Err(MaterialError::NotPositive {
+                what,
+                value: p.bounds().map_or(f64::NAN, |b| b.0),
+            }),
+        }
+    }
+
+    /// Smallest and largest value at any temperature (clamped ends
+    /// included); for a polynomial from 1000 samples of its range and its
+    /// ends, widened by 2 % of the spread and 1e-9 of the value so that a
+    /// bracket built on them holds. `None` for an empty table.
+    pub fn bounds(&self) -> Option<(f64, f64)> {
+        match self {
+            Property::Constant(v) => Some((*v, *v)),
+            Property::Table(pts) => (!pts.is_empty()).then(|| {
+                pts.iter()
+                    .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(_, v)| {
+                        (lo.min(v), hi.max(v))
+                    })
+            }),
+            Property::Polynomial {
+                coefficients,
+                from_c,
+                to_c,
+            } => {
+                let (mut lo, mut hi) = (f64::INFINITY, f64::NEG_INFINITY);
+                for i in 0..=POLYNOMIAL_BOUND_SAMPLES {
+                    let t = from_c + (to_c - from_c) * i as f64 / POLYNOMIAL_BOUND_SAMPLES as f64;
+                    let v = horner(coefficients, t);
+                    lo = lo.min(v);
+                    hi = hi.max(v);
+                }
+                let pad = 0.02 * (hi - lo) + 1e-9 * hi.abs();
+                Some((lo - pad, hi + pad))
+            }
+        }
+    }
+
     /// The value at `t_c`: linear interpolation, clamped outside the table.
     pub fn at(&self, t_c: f64) -> f64 {
         match self {
@@ -95,6 +201,11 @@ impl Property {
                 }
                 last.1
             }
+            Property::Polynomial {
+                coefficients,
+                from_c,
+                to_c,
+            } => horner(coefficients, t_c.clamp(*from_c, *to_c)),
         }
     }
 
@@ -115,6 +226,17 @@ impl Property {
                     }
                 }
                 0.0
+            }
+            Property::Polynomial {
+                coefficients,
+                from_c,
+                to_c,
+            } => {
+                if t_c < *from_c || t_c > *to_c {
+                    0.0
+                } else {
+                    horner_slope(coefficients, t_c)
+                }
             }
         }
     }
@@ -141,6 +263,21 @@ impl Property {
                     }
                 }
                 sum + 0.5 * (self.at(lo) + self.at(b_c)) * (b_c - lo)
+            }
+            Property::Polynomial {
+                coefficients,
+                from_c,
+                to_c,
+            } => {
+                if b_c < a_c {
+                    return -self.integral(b_c, a_c);
+                }
+                // The clamped tails are constant; the middle in closed form.
+                let below = (from_c.min(b_c) - a_c).max(0.0) * horner(coefficients, *from_c);
+                let above = (b_c - to_c.max(a_c)).max(0.0) * horner(coefficients, *to_c);
+                let (lo, hi) = (a_c.clamp(*from_c, *to_c), b_c.clamp(*from_c, *to_c));
+                below + above + horner_integral(coefficients, hi)
+                    - horner_integral(coefficients, lo)
             }
         }
     }
@@ -205,6 +342,21 @@ impl Property {
                 }
                 Property::Table(v)
             }
+            Property::Polynomial {
+                coefficients,
+                from_c,
+                to_c,
+            } => {
+                let mut c = coefficients.clone();
+                for a in c.iter_mut() {
+                    *a *= factor;
+                }
+                Property::Polynomial {
+                    coefficients: c,
+                    from_c: *from_c,
+                    to_c: *to_c,
+                }
+            }
         }
     }
 
@@ -214,6 +366,7 @@ impl Property {
         match self {
             Property::Constant(_) => true,
             Property::Table(pts) => t_c >= pts[0].0 && t_c <= pts[pts.len() - 1].0,
+            Property::Polynomial { from_c, to_c, .. } => t_c >= *from_c && t_c <= *to_c,
         }
     }
 }
@@ -310,6 +463,10 @@ mod tests {
         assert!((s.at(600.0) - 1.15 * 1.2).abs() < 1e-12);
         assert!((s.integral(100.0, 900.0) - 1.15 * p.integral(100.0, 900.0)).abs() < 1e-9);
         assert_eq!(Property::Constant(2.0).scaled(0.5), Property::Constant(1.0));
+        let q = Property::polynomial("k", &[0.8, 4e-4, 2e-7], 20.0, 1200.0).unwrap();
+        let s = q.scaled(0.85);
+        assert!((s.at(700.0) - 0.85 * q.at(700.0)).abs() < 1e-12);
+        assert!((s.integral(100.0, 900.0) - 0.85 * q.integral(100.0, 900.0)).abs() < 1e-9);
     }
 
     #[test]

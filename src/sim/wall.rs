@@ -168,20 +168,23 @@ fn property_ok(p: &Property) -> bool {
                     .all(|&(t, v)| t.is_finite() && v.is_finite() && v > 0.0)
                 && pts.windows(2).all(|w| w[1].0 > w[0].0)
         }
+        Property::Polynomial {
+            coefficients,
+            from_c,
+            to_c,
+        } => {
+            coefficients.iter().all(|a| a.is_finite())
+                && from_c < to_c
+                && p.bounds()
+                    .is_some_and(|(lo, hi)| lo > 0.0 && hi.is_finite())
+        }
     }
 }
 
 /// Smallest and largest value a property takes (its table is clamped at the
 /// ends, so these bound it at every temperature).
 fn property_bounds(p: &Property) -> (f64, f64) {
-    match p {
-        Property::Constant(v) => (*v, *v),
-        Property::Table(pts) => pts
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(_, v)| {
-                (lo.min(v), hi.max(v))
-            }),
-    }
+    p.bounds().unwrap_or((f64::NAN, f64::NAN))
 }
 
 fn temperature_ok(t_c: f64) -> bool {
@@ -194,7 +197,7 @@ fn temperature_ok(t_c: f64) -> bool {
 fn invert_kirchhoff(k: &Property, t_from_c: f64, target_w_m: f64) -> f64 {
     match k {
         Property::Constant(kv) => t_from_c - target_w_m / kv,
-        Property::Table(_) => {
+        Property::Table(_) | Property::Polynomial { .. } => {
             if target_w_m == 0.0 {
                 return t_from_c;
             }

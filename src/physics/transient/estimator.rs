@@ -61,10 +61,14 @@ use super::model::{temperature_ok, HotFace, ShellBoundary, StepOperator, WallMod
 use super::steady::{self, Stack};
 use super::{TransientError, TransientLayer, MAX_LAYERS, MAX_NIS_WINDOW, MAX_NODES, MAX_STATE};
 use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
-use crate::physics::surface::SurfaceParams;
 
 /// Seconds in an hour.
 const S_PER_H: f64 = 3600.0;
+
+/// Default time constant of the hot-face rate in forecasts, s (2 h, a
+/// choice of ours: a trend of the last interval is not assumed to go on
+/// for a whole shift, but a ramp's next hour is still followed closely).
+pub const FORECAST_RATE_DAMPING_S: f64 = 2.0 * S_PER_H;
 
 /// Time step of forecasts, s (the last step is shortened to end on the
 /// horizon).
@@ -116,6 +120,11 @@ pub struct TransientSettings {
     pub initial_hot_face_sigma_c: f64,
     /// Initial standard uncertainty of the hot-face rate, °C/h.
     pub initial_rate_sigma_c_per_h: f64,
+    /// Time constant with which forecasts let the hot-face rate die away,
+    /// s (infinite: the current rate held for the whole horizon). The rate
+    /// estimate is the recent trend: noisy while the kiln holds, and every
+    /// ramp ends; extrapolated for hours it puts the hot face far off.
+    pub forecast_rate_damping_s: f64,
 }
 
 impl Default for TransientSettings {
@@ -131,6 +140,7 @@ impl Default for TransientSettings {
             nis_window: 20,
             initial_hot_face_sigma_c: 100.0,
             initial_rate_sigma_c_per_h: 100.0,
+            forecast_rate_damping_s: FORECAST_RATE_DAMPING_S,
         }
     }
 }
@@ -156,6 +166,13 @@ impl TransientSettings {
                 self.initial_rate_sigma_c_per_h,
             ),
         ];
+        let damping = self.forecast_rate_damping_s;
+        if damping.is_nan() || damping <= 0.0 {
+            return Err(TransientError::Setting {
+                what: "forecast_rate_damping_s",
+                value: damping,
+            });
+        }
         for (what, value) in positive {
             if !(value.is_finite() && value > 0.0) {
                 return Err(TransientError::Setting { what, value });
@@ -262,20 +279,23 @@ pub fn chi_square_quantile_999(dof: f64) -> f64 {
 
 impl TransientEstimator {
     /// An estimator for a wall of `layers` whose shell loses heat through
-    /// `surface`. Not initialised: the first [`Self::step`] with readings
-    /// initialises it.
+    /// `shell`: the zone's surface correlations ([`crate::physics::surface::SurfaceParams`]) or a
+    /// measured coefficient ([`ShellBoundary::Convection`]). Not
+    /// initialised: the first [`Self::step`] with readings initialises it.
     pub fn new(
         layers: &[TransientLayer<'_>],
-        surface: SurfaceParams,
+        shell: impl Into<ShellBoundary>,
         settings: TransientSettings,
     ) -> Result<Self, TransientError> {
         settings.validate()?;
-        let fit = (MAX_NODES - 1) / layers.len().max(1);
+        let shell = shell.into();
+        let contacts = layers.iter().filter(|l| l.contact_m2k_w > 0.0).count();
+        let fit = (MAX_NODES - 1).saturating_sub(contacts) / layers.len().max(1);
         let model = WallModel::new(
             layers,
             settings.cells_per_layer.min(fit),
-            ShellBoundary::Surface(surface),
-            surface.ambient_c,
+            shell,
+            shell.ambient_c(),
         )?;
         Ok(TransientEstimator {
             model,
@@ -287,6 +307,16 @@ impl TransientEstimator {
             nis_history: Deque::new(),
             settling_steps: 0,
         })
+    }
+
+    /// The same estimator on a grid graded towards the hot face and the
+    /// probe depths `probe_depths_m` for a zone interval of `interval_s`
+    /// ([`WallModel::graded`]). Before the first step only.
+    pub fn graded(mut self, probe_depths_m: &[f64], interval_s: f64) -> Self {
+        if !self.initialised {
+            self.model = self.model.graded(probe_depths_m, interval_s);
+        }
+        self
     }
 
     /// Whether the filter holds an estimate (after the first readings).
@@ -393,9 +423,11 @@ impl TransientEstimator {
             return false;
         };
         let ends = self.model.layer_ends_m();
+        let contacts = self.model.contacts_m2k_w();
         let stack = Stack {
             materials: self.model.materials(),
             ends_m: &ends,
+            contacts_m2k_w: &contacts,
         };
         let n = self.model.node_count();
         let mut t = [0.0; MAX_NODES];
@@ -763,6 +795,22 @@ impl TransientEstimator {
         out
     }
 
+    /// The cold side of each internal interface and its standard
+    /// uncertainty, °C: `Some` where the interface has a contact
+    /// resistance, `None` where the contact is perfect (one temperature).
+    pub fn interface_cold_c(&self) -> HVec<Option<(f64, f64)>, MAX_LAYERS> {
+        let mut out = HVec::new();
+        if !self.initialised {
+            return out;
+        }
+        let t = self.model.node_temperatures_c();
+        let m = &self.model;
+        for (&hot, &cold) in m.interface_nodes().iter().zip(m.interface_cold_nodes()) {
+            let _ = out.push((cold > hot).then(|| (t[cold], self.sigma(cold))));
+        }
+        out
+    }
+
     /// Runs the mean state ahead in [`FORECAST_STEP_S`] steps under the
     /// current hot-face trend, calling `visit(t_s, model)` at the start and
     /// after each step until it returns `true` or the horizon is reached.
@@ -795,7 +843,10 @@ impl TransientEstimator {
         }
         while horizon - t > 1e-9 {
             let dt = FORECAST_STEP_S.min(horizon - t);
-            let hot = (t_hot + self.rate_c_per_s * (t + dt)).max(floor).min(cap);
+            let tau = self.settings.forecast_rate_damping_s;
+            let hot = (t_hot + damped_rise(self.rate_c_per_s, t + dt, tau))
+                .max(floor)
+                .min(cap);
             if m.step(dt, hot).is_err() {
                 break;
             }
@@ -809,7 +860,8 @@ impl TransientEstimator {
 
     /// The wall `horizon_s` ahead (at most [`MAX_FORECAST_HORIZON_S`]) from
     /// the current mean state, the hot face following its current trend
-    /// `T_hot + r t`, capped at `hot_face_cap_c` (or at the current hot face
+    /// damped, `T_hot + r τ (1 − e^(−t/τ))` ([`damped_rise`],
+    /// [`TransientSettings::forecast_rate_damping_s`]), capped at `hot_face_cap_c` (or at the current hot face
     /// if that is higher; NaN: no cap) and floored at the ambient (or the
     /// current hot face if lower). `None` before initialisation.
     pub fn forecast(&self, horizon_s: f64, hot_face_cap_c: f64) -> Option<ForecastPoint> {
@@ -862,6 +914,16 @@ impl TransientEstimator {
         })?;
         hit.map(|t_s| t_s / S_PER_H)
     }
+}
+
+/// Rise of the hot face `t_s` ahead under a rate `r` that decays with the
+/// time constant `tau_s`: `r τ (1 − e^(−t/τ))`, °C (at most `r τ`; `r t`
+/// for an infinite `τ`).
+pub fn damped_rise(rate_c_per_s: f64, t_s: f64, tau_s: f64) -> f64 {
+    if tau_s.is_infinite() {
+        return rate_c_per_s * t_s;
+    }
+    rate_c_per_s * tau_s * -(-t_s / tau_s).exp_m1()
 }
 
 /// Applies the transition `F` to `v = [δT_0 … δT_{N−1}, δr]`: the hot face

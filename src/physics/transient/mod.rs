@@ -40,6 +40,7 @@
 //! `docs/transient-model.md`.
 
 pub mod estimator;
+pub mod grid;
 pub mod model;
 mod steady;
 
@@ -73,6 +74,9 @@ pub struct TransientLayer<'a> {
     pub material: &'a Material,
     /// Thickness, m.
     pub thickness_m: f64,
+    /// Contact resistance on the layer's cold side, m²·K/W (0: perfect
+    /// contact; must be 0 on the last layer, whose cold face is the shell).
+    pub contact_m2k_w: f64,
 }
 
 /// Errors building or driving the transient model.
@@ -88,7 +92,7 @@ pub enum TransientError {
     #[error("cells per layer must be at least 1, got {0}")]
     TooFewCells(usize),
     /// The grid would need more than [`MAX_NODES`] nodes.
-    #[error("{layers} layers × {cells_per_layer} cells need {nodes} nodes, more than {MAX_NODES}")]
+    #[error("{layers} layers × {cells_per_layer} cells (and a node pair at each contact) need {nodes} nodes, more than {MAX_NODES}")]
     TooManyNodes {
         layers: usize,
         cells_per_layer: usize,
@@ -103,6 +107,10 @@ pub enum TransientError {
     /// The shell surface parameters are invalid.
     #[error("shell surface: {0}")]
     Surface(#[from] SurfaceError),
+    /// A contact resistance must be finite and not negative, and the last
+    /// layer (whose cold face is the shell surface) has none.
+    #[error("layer {layer}: contact resistance must be a finite number ≥ 0 m²K/W, and none on the last layer; got {value}")]
+    Contact { layer: usize, value: f64 },
     /// A fixed shell coefficient must be finite and not negative.
     #[error("shell heat-transfer coefficient must be a non-negative number of W/(m²·K), got {0}")]
     ShellCoefficient(f64),

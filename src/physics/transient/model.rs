@@ -62,6 +62,12 @@ pub enum ShellBoundary {
     Convection { h_w_m2k: f64, ambient_c: f64 },
 }
 
+impl From<SurfaceParams> for ShellBoundary {
+    fn from(p: SurfaceParams) -> Self {
+        ShellBoundary::Surface(p)
+    }
+}
+
 impl ShellBoundary {
     /// Checks the parameters.
     pub fn validate(&self) -> Result<(), TransientError> {
@@ -255,8 +261,16 @@ impl StepOperator {
 #[derive(Clone, Debug)]
 pub struct WallModel {
     materials: HVec<Material, MAX_LAYERS>,
-    /// Node index of every face between layers (internal interfaces).
+    /// Node index of every face between layers (internal interfaces), on
+    /// the hot side of a contact resistance.
     interface_nodes: HVec<usize, MAX_LAYERS>,
+    /// The same on the cold side: the next node where the interface has a
+    /// contact resistance, the same node otherwise.
+    interface_cold_nodes: HVec<usize, MAX_LAYERS>,
+    /// Contact resistance carried by each segment, m²K/W (0: a conducting
+    /// segment; > 0: a contact of zero thickness between two nodes at the
+    /// same depth).
+    seg_contact: [f64; MAX_NODES],
     n: usize,
     x_m: [f64; MAX_NODES],
     /// Layer of each segment (n − 1 used).
@@ -285,6 +299,16 @@ fn property_ok(p: &Property) -> bool {
                     .iter()
                     .all(|&(t, v)| t.is_finite() && v.is_finite() && v > 0.0)
                 && pts.windows(2).all(|w| w[1].0 > w[0].0)
+        }
+        Property::Polynomial {
+            coefficients,
+            from_c,
+            to_c,
+        } => {
+            coefficients.iter().all(|a| a.is_finite())
+                && from_c < to_c
+                && p.bounds()
+                    .is_some_and(|(lo, hi)| lo > 0.0 && hi.is_finite())
         }
     }
 }
@@ -357,10 +381,11 @@ impl WallModel {
         if cells_per_layer < 1 {
             return Err(TransientError::TooFewCells(cells_per_layer));
         }
+        let contacts = layers.iter().filter(|l| l.contact_m2k_w > 0.0).count();
         let nodes = layers
             .len()
             .checked_mul(cells_per_layer)
-            .and_then(|s| s.checked_add(1))
+            .and_then(|s| s.checked_add(1 + contacts))
             .unwrap_or(usize::MAX);
         if nodes > MAX_NODES {
             return Err(TransientError::TooManyNodes {
@@ -374,7 +399,9 @@ impl WallModel {
 
         let mut x_m = [0.0; MAX_NODES];
         let mut seg_layer = [0u8; MAX_NODES];
+        let mut seg_contact = [0.0; MAX_NODES];
         let mut interface_nodes = HVec::new();
+        let mut interface_cold_nodes = HVec::new();
         let mut x_start = 0.0;
         let mut node = 0;
         for (i, layer) in layers.iter().enumerate() {
@@ -391,6 +418,15 @@ impl WallModel {
             x_start += layer.thickness_m;
             if i + 1 < layers.len() {
                 let _ = interface_nodes.push(node);
+                if layer.contact_m2k_w > 0.0 {
+                    // A zero-thickness segment: the contact's conductance
+                    // 1/R between two nodes at the same depth.
+                    seg_layer[node] = i as u8;
+                    seg_contact[node] = layer.contact_m2k_w;
+                    node += 1;
+                    x_m[node] = x_start;
+                }
+                let _ = interface_cold_nodes.push(node);
             }
         }
         let mut t_c = [0.0; MAX_NODES];
@@ -398,6 +434,8 @@ impl WallModel {
         Ok(WallModel {
             materials,
             interface_nodes,
+            interface_cold_nodes,
+            seg_contact,
             n: nodes,
             x_m,
             seg_layer,
@@ -409,6 +447,40 @@ impl WallModel {
             time_s: 0.0,
             books: EnergyTally::default(),
         })
+    }
+
+    /// Re-places the nodes of every layer graded towards the hot face and
+    /// the depths `focus_m` ([`super::grid`]), for a zone interval of
+    /// `interval_s`; the node count, the layer faces and the temperatures
+    /// stay. Every cell keeps a positive width.
+    pub fn graded(mut self, focus_m: &[f64], interval_s: f64) -> Self {
+        let mut focus: HVec<f64, { MAX_NODES + 1 }> = HVec::new();
+        let _ = focus.push(0.0);
+        for &f in focus_m {
+            if f.is_finite() {
+                let _ = focus.push(f.clamp(0.0, self.thickness_m()));
+            }
+        }
+        let layers = self.materials.len();
+        for i in 0..layers {
+            let first = match i.checked_sub(1) {
+                Some(k) => self.interface_cold_nodes[k],
+                None => 0,
+            };
+            let last = self.interface_nodes.get(i).copied().unwrap_or(self.n - 1);
+            let m = &self.materials[i];
+            let t = self.t_c[first];
+            let alpha = m.conductivity_w_mk.at(t) / (m.density_kg_m3 * m.specific_heat_j_kgk.at(t));
+            let width = super::grid::focus_width_m(alpha, interval_s);
+            let (start, end) = (self.x_m[first], self.x_m[last]);
+            let mut x = [0.0; MAX_NODES];
+            let cells = last - first;
+            super::grid::graded_layer(start, end, &focus, width, &mut x[..=cells]);
+            if x[..=cells].windows(2).all(|w| w[1] > w[0]) {
+                self.x_m[first..=last].copy_from_slice(&x[..=cells]);
+            }
+        }
+        self
     }
 
     /// The same wall with another time scheme.
@@ -543,6 +615,10 @@ impl WallModel {
     /// `G = k_m / Δx` of segment `s` between temperatures `a` and `b`,
     /// W/(m²·K) (Kirchhoff mean conductivity).
     pub(super) fn conductance(&self, s: usize, a_c: f64, b_c: f64) -> f64 {
+        let contact = self.seg_contact.get(s).copied().unwrap_or(0.0);
+        if contact > 0.0 {
+            return 1.0 / contact;
+        }
         match self.segment_material(s) {
             Some(m) => m.conductivity_w_mk.mean_between(a_c, b_c) / self.segment_dx(s),
             None => 0.0,
@@ -624,9 +700,31 @@ impl WallModel {
         &mut self.t_c[..self.n]
     }
 
-    /// Node index of each internal interface, hot face side first.
+    /// Node index of each internal interface, hot face side first (the hot
+    /// side of a contact resistance).
     pub fn interface_nodes(&self) -> &[usize] {
         &self.interface_nodes
+    }
+
+    /// Node index of the cold side of each internal interface: the node
+    /// after the hot side's across a contact resistance, the same node
+    /// where the contact is perfect.
+    pub fn interface_cold_nodes(&self) -> &[usize] {
+        &self.interface_cold_nodes
+    }
+
+    /// Contact resistance of each layer's cold side, m²K/W (0 for the last).
+    pub(super) fn contacts_m2k_w(&self) -> HVec<f64, MAX_LAYERS> {
+        let mut out = HVec::new();
+        for (&hot, &cold) in self.interface_nodes.iter().zip(&self.interface_cold_nodes) {
+            let _ = out.push(if cold > hot {
+                self.seg_contact[hot]
+            } else {
+                0.0
+            });
+        }
+        let _ = out.push(0.0);
+        out
     }
 
     /// Total thickness L, m.
@@ -708,7 +806,7 @@ impl WallModel {
         let (s, f) = self.locate(depth_m)?;
         let layer = usize::from(self.seg_layer[s]);
         let first = match layer.checked_sub(1) {
-            Some(i) => self.interface_nodes.get(i).copied().unwrap_or(0),
+            Some(i) => self.interface_cold_nodes.get(i).copied().unwrap_or(0),
             None => 0,
         };
         let last = self

@@ -45,7 +45,7 @@ const MAX_BISECTIONS: usize = 200;
 pub(super) fn invert_kirchhoff(k: &Property, from_c: f64, target_w_m: f64) -> f64 {
     match k {
         Property::Constant(kv) => from_c - target_w_m / kv,
-        Property::Table(_) => {
+        Property::Table(_) | Property::Polynomial { .. } => {
             if target_w_m == 0.0 {
                 return from_c;
             }
@@ -79,14 +79,7 @@ pub(super) fn invert_kirchhoff(k: &Property, from_c: f64, target_w_m: f64) -> f6
 /// Smallest and largest value of a property (a table is clamped at its
 /// ends, so these bound it at every temperature).
 fn bounds(p: &Property) -> (f64, f64) {
-    match p {
-        Property::Constant(v) => (*v, *v),
-        Property::Table(pts) => pts
-            .iter()
-            .fold((f64::INFINITY, f64::NEG_INFINITY), |(lo, hi), &(_, v)| {
-                (lo.min(v), hi.max(v))
-            }),
-    }
+    p.bounds().unwrap_or((f64::NAN, f64::NAN))
 }
 
 /// The layers as the steady profile needs them.
@@ -94,6 +87,8 @@ pub(super) struct Stack<'a> {
     pub materials: &'a [Material],
     /// Depth of each layer's shell-side face, m (rising; the last is L).
     pub ends_m: &'a [f64],
+    /// Contact resistance on each layer's cold side, m²K/W.
+    pub contacts_m2k_w: &'a [f64],
 }
 
 impl Stack<'_> {
@@ -110,29 +105,63 @@ impl Stack<'_> {
 
     /// Steady temperature at `to_m` with flux `q` through a point at
     /// `from_m` at `from_c` (either direction), or `None` if it falls to
-    /// absolute zero or is not finite.
-    pub fn march(&self, from_m: f64, from_c: f64, q_w_m2: f64, to_m: f64) -> Option<f64> {
+    /// absolute zero or is not finite. A contact resistance `R` on a
+    /// layer's cold side drops the temperature by `q R` where the path
+    /// crosses it (Incropera §3.1.4). A point exactly on an interface is on
+    /// its hot side, except `to_m` when `to_cold_side` is set.
+    pub fn march(
+        &self,
+        from_m: f64,
+        from_c: f64,
+        q_w_m2: f64,
+        to_m: f64,
+        to_cold_side: bool,
+    ) -> Option<f64> {
+        let layers = self.materials.len().min(self.ends_m.len());
+        if layers == 0 {
+            return None;
+        }
+        let contact = |i: usize| self.contacts_m2k_w.get(i).copied().unwrap_or(0.0);
         let mut x = from_m;
         let mut t = from_c;
-        let layers = self.materials.iter().zip(self.ends_m.iter()).enumerate();
-        let piece = |k: &Property, x_next: f64, x: &mut f64, t: &mut f64| {
-            *t = invert_kirchhoff(k, *t, q_w_m2 * (x_next - *x));
+        // The layer holding the start (the hot one at an interface).
+        let mut i = self.ends_m[..layers]
+            .iter()
+            .position(|&e| e >= from_m)
+            .unwrap_or(layers - 1);
+        let piece = |i: usize, x_next: f64, x: &mut f64, t: &mut f64| {
+            *t = invert_kirchhoff(
+                &self.materials[i].conductivity_w_mk,
+                *t,
+                q_w_m2 * (x_next - *x),
+            );
             *x = x_next;
         };
         if to_m >= from_m {
-            for (i, (m, &end)) in layers {
-                if end <= x || self.start_of(i) >= to_m {
-                    continue;
+            loop {
+                let end = self.ends_m[i];
+                piece(i, to_m.min(end), &mut x, &mut t);
+                if to_m < end || i + 1 == layers || (to_m == end && !to_cold_side) {
+                    break;
                 }
-                piece(&m.conductivity_w_mk, end.min(to_m), &mut x, &mut t);
+                t -= q_w_m2 * contact(i);
+                i += 1;
+                if to_m == end {
+                    break;
+                }
             }
         } else {
-            for (i, (m, &end)) in layers.rev() {
+            loop {
                 let start = self.start_of(i);
-                if start >= x || end <= to_m {
-                    continue;
+                piece(i, to_m.max(start), &mut x, &mut t);
+                if to_m > start || i == 0 || (to_m == start && to_cold_side) {
+                    break;
                 }
-                piece(&m.conductivity_w_mk, start.max(to_m), &mut x, &mut t);
+                t += q_w_m2 * contact(i - 1);
+                i -= 1;
+                if to_m == start {
+                    break;
+                }
             }
         }
         temperature_ok(t).then_some(t)
@@ -151,6 +180,13 @@ impl Stack<'_> {
                 r_min += overlap / k_max;
                 r_max += overlap / k_min;
             }
+            // A contact the span crosses (points on an interface are on its
+            // hot side).
+            if a_m <= end && end < b_m {
+                let r = self.contacts_m2k_w.get(i).copied().unwrap_or(0.0);
+                r_min += r;
+                r_max += r;
+            }
         }
         let dt = a_c - b_c;
         let (x, y) = (dt / r_max, dt / r_min);
@@ -164,7 +200,7 @@ impl Stack<'_> {
                 break;
             }
             // Too large a flux ends too cold (or below absolute zero).
-            match self.march(a_m, a_c, mid, b_m) {
+            match self.march(a_m, a_c, mid, b_m, false) {
                 Some(t) if t >= b_c => q_lo = mid,
                 _ => q_hi = mid,
             }
@@ -201,7 +237,7 @@ pub(super) fn shell_balance_flux(
         }
         // A trial flux whose shell falls below absolute zero is far too
         // large: a positive residual.
-        let too_large = match stack.march(depth_m, temp_c, mid, l) {
+        let too_large = match stack.march(depth_m, temp_c, mid, l, false) {
             Some(t_shell) => mid > shell.flux_w_m2(t_shell),
             None => true,
         };
@@ -282,16 +318,18 @@ pub(super) fn initial_profile(
             None => return false,
         }
     }
-    for (&x, t) in depths_m.iter().zip(out.iter_mut()) {
+    for (j, (&x, t)) in depths_m.iter().zip(out.iter_mut()).enumerate() {
+        // The second of two nodes at one depth is a contact's cold side.
+        let cold = j > 0 && depths_m[j - 1] == x;
         let value = if x <= first.0 {
-            stack.march(first.0, first.1, q_hot, x)
+            stack.march(first.0, first.1, q_hot, x, cold)
         } else if x >= last.0 {
-            stack.march(last.0, last.1, q_shell, x)
+            stack.march(last.0, last.1, q_shell, x, cold)
         } else {
             // The span [a, b] that holds x; points rise strictly in depth.
             let i = points.partition_point(|p| p.0 <= x).saturating_sub(1);
             match (points.get(i), span_q.get(i)) {
-                (Some(&a), Some(&q)) => stack.march(a.0, a.1, q, x),
+                (Some(&a), Some(&q)) => stack.march(a.0, a.1, q, x, cold),
                 _ => None,
             }
         };
