@@ -149,14 +149,24 @@ where
     let mut plus = [0.0; MAX_OUTPUTS];
     let mut minus = [0.0; MAX_OUTPUTS];
 
-    // Accumulates (contribution)² of one input: `scale` × (plus − minus).
+    // Accumulates the variance of one input stepped by ±u: the first-order
+    // term (`scale` × (plus − minus))², and for a symmetric ±u step
+    // (`scale` = ½) the second-order term of the GUM (JCGM 100:2008,
+    // 5.1.2, note: ½ (∂²f/∂x²)² u⁴ = 2 c² with c = (plus + minus)/2 − f),
+    // which a strongly curved dependence (a conductivity known to 15 %)
+    // needs.
     let add = |acc: &mut Outputs, plus: &Outputs, minus: &Outputs, scale: f64| {
         for i in 0..n {
             let d = (plus[i] - minus[i]) * scale;
             if plus[i].is_nan() && minus[i].is_nan() {
                 continue; // an output this model does not have
             }
-            acc[i] += d * d;
+            let c = if scale == 0.5 {
+                0.5 * (plus[i] + minus[i]) - nominal[i]
+            } else {
+                0.0
+            };
+            acc[i] += d * d + 2.0 * c * c;
         }
     };
 
@@ -212,6 +222,42 @@ where
             model(&work, &scale, &mut minus)?;
             scale[layer] = 1.0;
             add(&mut budget.conductivity, &plus, &minus, 0.5);
+        }
+    }
+    // Mixed second-order terms between layers (JCGM 100:2008, 5.1.2,
+    // note: (∂²f/∂k_i∂k_j)² u_i² u_j² for each pair): a wear estimate
+    // depends on the product of the layers' conductivities.
+    let n_layers = inputs.conductivity_rel.len().min(MAX_LAYERS);
+    for a in 0..n_layers {
+        for b in (a + 1)..n_layers {
+            let (ua, ub) = (inputs.conductivity_rel[a], inputs.conductivity_rel[b]);
+            if !(ua > 0.0 && ub > 0.0) {
+                continue;
+            }
+            let mut corner = |sa: f64, sb: f64, out: &mut Outputs| {
+                scale[a] = 1.0 + sa * ua;
+                scale[b] = 1.0 + sb * ub;
+                let r = model(&work, &scale, out);
+                scale[a] = 1.0;
+                scale[b] = 1.0;
+                r
+            };
+            let (mut pp, mut pm, mut mp, mut mm) = (
+                [0.0; MAX_OUTPUTS],
+                [0.0; MAX_OUTPUTS],
+                [0.0; MAX_OUTPUTS],
+                [0.0; MAX_OUTPUTS],
+            );
+            corner(1.0, 1.0, &mut pp)?;
+            corner(1.0, -1.0, &mut pm)?;
+            corner(-1.0, 1.0, &mut mp)?;
+            corner(-1.0, -1.0, &mut mm)?;
+            for i in 0..n {
+                let m = 0.25 * (pp[i] - pm[i] - mp[i] + mm[i]);
+                if m.is_finite() {
+                    budget.conductivity[i] += m * m;
+                }
+            }
         }
     }
     for acc in [
