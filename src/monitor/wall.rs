@@ -200,6 +200,7 @@ impl Wall<'_> {
             conductivity_rel,
             thickness_m: self.thickness_m(),
             readings: true,
+            mixed_terms: false,
         };
         match self {
             Wall::Quadratic(q) => unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
@@ -324,6 +325,7 @@ pub fn wear_sigma_mm(
         conductivity_rel,
         thickness_m: l.thickness_m(),
         readings: false,
+        mixed_terms: true,
     };
     let b = unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
         let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();

@@ -118,6 +118,10 @@ pub struct SteadyInputs<'s> {
     /// Step the readings too (false: their part is known otherwise and
     /// left at 0).
     pub readings: bool,
+    /// Add the mixed second-order terms of each pair of layers (four more
+    /// model runs per pair): for a strongly curved number such as a wear
+    /// estimate.
+    pub mixed_terms: bool,
 }
 
 /// The budget of a steady model by central differences.
@@ -227,7 +231,11 @@ where
     // Mixed second-order terms between layers (JCGM 100:2008, 5.1.2,
     // note: (∂²f/∂k_i∂k_j)² u_i² u_j² for each pair): a wear estimate
     // depends on the product of the layers' conductivities.
-    let n_layers = inputs.conductivity_rel.len().min(MAX_LAYERS);
+    let n_layers = if inputs.mixed_terms {
+        inputs.conductivity_rel.len().min(MAX_LAYERS)
+    } else {
+        0
+    };
     for a in 0..n_layers {
         for b in (a + 1)..n_layers {
             let (ua, ub) = (inputs.conductivity_rel[a], inputs.conductivity_rel[b]);
