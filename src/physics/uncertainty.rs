@@ -118,6 +118,11 @@ pub struct SteadyInputs<'s> {
     /// Step the readings too (false: their part is known otherwise and
     /// left at 0).
     pub readings: bool,
+    /// The fitted profile's slope dT/dx at each sample, °C/m, if known
+    /// (else empty): a depth step δx then counts as the reading step
+    /// −T'·δx it is equivalent to in the fit's residual (first order), so
+    /// each probe costs two model runs instead of four.
+    pub slope_c_per_m: &'s [f64],
     /// Add the mixed second-order terms of each pair of layers (four more
     /// model runs per pair): for a strongly curved number such as a wear
     /// estimate.
@@ -185,10 +190,19 @@ where
             model(&work, &ones, &mut minus)?;
             work[j].temp_c = inputs.samples[j].temp_c;
             add(&mut budget.thermocouple, &plus, &minus, 0.5);
+            if let Some(&g) = inputs.slope_c_per_m.get(j) {
+                let ratio = (g * inputs.depth_sigma_m[j] / sd).abs();
+                for i in 0..n {
+                    let d = 0.5 * (plus[i] - minus[i]) * ratio;
+                    if d.is_finite() {
+                        budget.depth[i] += d * d;
+                    }
+                }
+            }
         }
         // Depth: ±σ_x inside the wall, else one-sided inward.
         let sx = inputs.depth_sigma_m[j];
-        if sx > 0.0 {
+        if sx > 0.0 && inputs.slope_c_per_m.is_empty() {
             let x = inputs.samples[j].depth_m;
             let room = x.min(inputs.thickness_m - x).max(0.0);
             if room >= sx {
