@@ -285,7 +285,13 @@ fn shipped_materials_load() {
 /// negative, absurd or non-finite value refused with its key and line.
 #[test]
 fn uncertainty_keys_default_and_refuse_the_absurd() {
-    let s = parse(EXAMPLE, "example.toml", None).unwrap();
+    // The example without its uncertainty keys takes the defaults.
+    let plain = EXAMPLE
+        .replace("conductivity_uncertainty_pct = 15\n", "")
+        .replace("heat_capacity_uncertainty_pct = 10\n", "")
+        .replace(", depth_sigma_mm = 2 }", " }");
+    assert!(!plain.contains("uncertainty_pct =") && !plain.contains("depth_sigma_mm ="));
+    let s = parse(&plain, "example.toml", None).unwrap();
     let m = &s.materials[0];
     assert_eq!(
         m.conductivity_uncertainty_pct,
@@ -301,15 +307,15 @@ fn uncertainty_keys_default_and_refuse_the_absurd() {
     assert_eq!(z.probes[3].depth_sigma_m, 0.0);
 
     let text = EXAMPLE
-        .replacen(
-            "[[material]]\n",
-            "[[material]]\nconductivity_uncertainty_pct = -5\nheat_capacity_uncertainty_pct = 250\n",
-            1,
+        .replace(
+            "conductivity_uncertainty_pct = 15",
+            "conductivity_uncertainty_pct = -5",
         )
         .replace(
-            "{ channel = \"w1-40\", depth_mm = 40 }",
-            "{ channel = \"w1-40\", depth_mm = 40, depth_sigma_mm = 80 }",
+            "heat_capacity_uncertainty_pct = 10",
+            "heat_capacity_uncertainty_pct = 250",
         )
+        .replace("depth_sigma_mm = 2 }", "depth_sigma_mm = 80 }")
         .replace(
             "{ channel = \"w1-120\", depth_mm = 120 }",
             "{ channel = \"w1-120\", depth_mm = 120, depth_sigma_mm = nan }",

@@ -6,7 +6,7 @@ use heapless::Vec as HVec;
 
 use crate::config::{Model, Settings, Zone};
 use crate::physics::layered::{
-    self, LayerSpec, LayeredSolution, LayeredWall, ModelCheck, MAX_LAYERS,
+    self, LayerSpec, LayeredSolution, LayeredWall, ModelCheck, MAX_LAYERS, MAX_PROBES,
 };
 use crate::physics::material::Material;
 use crate::physics::profile::{ProbeSample, QuadraticWall, WallSolution};
@@ -194,12 +194,27 @@ impl Wall<'_> {
         depth_sigma_m: &[f64],
         conductivity_rel: &[f64],
     ) -> Option<Budget> {
+        // The fitted profile's slope at each probe (quadratic: the depth
+        // counts as its equivalent reading step).
+        let mut slopes: HVec<f64, MAX_PROBES> = HVec::new();
+        if let Wall::Quadratic(_) = self {
+            let l = self.thickness_m();
+            for s in samples {
+                let h = 1e-4;
+                let (a, b) = ((s.depth_m - h).max(0.0), (s.depth_m + h).min(l));
+                let ta = self.fitted(fit, a)?.0;
+                let tb = self.fitted(fit, b)?.0;
+                let _ = slopes.push((tb - ta) / (b - a));
+            }
+        }
         let inputs = SteadyInputs {
             samples,
             depth_sigma_m,
             conductivity_rel,
             thickness_m: self.thickness_m(),
             readings: true,
+            slope_c_per_m: &slopes,
+            mixed_terms: false,
         };
         match self {
             Wall::Quadratic(q) => unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
@@ -324,6 +339,8 @@ pub fn wear_sigma_mm(
         conductivity_rel,
         thickness_m: l.thickness_m(),
         readings: false,
+        slope_c_per_m: &[],
+        mixed_terms: true,
     };
     let b = unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
         let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();

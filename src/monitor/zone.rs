@@ -108,6 +108,11 @@ pub struct Uncertainty {
     /// Which input dominates each number's uncertainty.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub budget: Option<UncertaintyBudget>,
+    /// The readings' part alone of (hot face, shell, shell flux): the
+    /// tolerance of the physical sanity checks, which a wrong conductivity
+    /// or depth should trip rather than widen (not published).
+    #[serde(skip)]
+    pub readings_only: [f64; 3],
 }
 
 /// The share of each source in the variance of a number, % (they sum to
@@ -665,6 +670,11 @@ impl ZoneEngine {
             thermal_resistance_m2k_w: sol.resistance_m2k_w.map(|(_, s)| s),
             lining_remaining_mm: lining_sigma_mm,
             budget: None,
+            readings_only: [
+                sol.sigma_hot_face_c,
+                sol.sigma_shell_c,
+                sol.sigma_flux_shell_w_m2,
+            ],
         };
         if let Some(b) = &budget {
             u.hot_face_c = b.total(OUT_HOT_FACE);
@@ -875,6 +885,7 @@ impl ZoneEngine {
             thermal_resistance_m2k_w: None,
             lining_remaining_mm: None,
             budget: None,
+            readings_only: [s_hot, s_shell, s_ql],
         };
         // Conductivity, heat capacity and probe depths on top of the
         // filter's σ (the readings' part): physics::uncertainty.
@@ -1376,9 +1387,11 @@ fn implausibility(
     {
         return Some("a flux came out above 1 MW/m², more than any kiln wall carries: the model's numbers are withheld (check that thickness_mm and depth_mm are in millimetres, and the conductivity)");
     }
+    // The readings' part of each σ: a wrong conductivity or probe depth
+    // must trip these checks, not widen them.
     let u = report.uncertainty.as_ref();
-    let s_hot = u.map_or(0.0, |u| u.hot_face_c);
-    let s_shell = u.map_or(0.0, |u| u.shell_c);
+    let s_hot = u.map_or(0.0, |u| u.readings_only[0]);
+    let s_shell = u.map_or(0.0, |u| u.readings_only[1]);
     let air = zone.ambient_c;
     let shell_at = shell_probe(report, zone);
     // (valid probe, its σ) inside the wall (the shell probe aside), by depth.
@@ -1431,7 +1444,7 @@ fn implausibility(
     let shell_t = shell_at.map(|(t, _)| t).or(report.shell_c);
     if let Some(ts) = shell_t {
         let margin = VET_COVERAGE * s_shell + VET_FLOOR_K;
-        let s_q = u.map_or(0.0, |u| u.flux_shell_w_m2);
+        let s_q = u.map_or(0.0, |u| u.readings_only[2]);
         let slack_w_m2 = VET_COVERAGE * s_q + 1.0;
         let flux = report
             .flux_shell_w_m2

@@ -118,6 +118,15 @@ pub struct SteadyInputs<'s> {
     /// Step the readings too (false: their part is known otherwise and
     /// left at 0).
     pub readings: bool,
+    /// The fitted profile's slope dT/dx at each sample, °C/m, if known
+    /// (else empty): a depth step δx then counts as the reading step
+    /// −T'·δx it is equivalent to in the fit's residual (first order), so
+    /// each probe costs two model runs instead of four.
+    pub slope_c_per_m: &'s [f64],
+    /// Add the mixed second-order terms of each pair of layers (four more
+    /// model runs per pair): for a strongly curved number such as a wear
+    /// estimate.
+    pub mixed_terms: bool,
 }
 
 /// The budget of a steady model by central differences.
@@ -149,14 +158,24 @@ where
     let mut plus = [0.0; MAX_OUTPUTS];
     let mut minus = [0.0; MAX_OUTPUTS];
 
-    // Accumulates (contribution)² of one input: `scale` × (plus − minus).
+    // Accumulates the variance of one input stepped by ±u: the first-order
+    // term (`scale` × (plus − minus))², and for a symmetric ±u step
+    // (`scale` = ½) the second-order term of the GUM (JCGM 100:2008,
+    // 5.1.2, note: ½ (∂²f/∂x²)² u⁴ = 2 c² with c = (plus + minus)/2 − f),
+    // which a strongly curved dependence (a conductivity known to 15 %)
+    // needs.
     let add = |acc: &mut Outputs, plus: &Outputs, minus: &Outputs, scale: f64| {
         for i in 0..n {
             let d = (plus[i] - minus[i]) * scale;
             if plus[i].is_nan() && minus[i].is_nan() {
                 continue; // an output this model does not have
             }
-            acc[i] += d * d;
+            let c = if scale == 0.5 {
+                0.5 * (plus[i] + minus[i]) - nominal[i]
+            } else {
+                0.0
+            };
+            acc[i] += d * d + 2.0 * c * c;
         }
     };
 
@@ -171,10 +190,19 @@ where
             model(&work, &ones, &mut minus)?;
             work[j].temp_c = inputs.samples[j].temp_c;
             add(&mut budget.thermocouple, &plus, &minus, 0.5);
+            if let Some(&g) = inputs.slope_c_per_m.get(j) {
+                let ratio = (g * inputs.depth_sigma_m[j] / sd).abs();
+                for i in 0..n {
+                    let d = 0.5 * (plus[i] - minus[i]) * ratio;
+                    if d.is_finite() {
+                        budget.depth[i] += d * d;
+                    }
+                }
+            }
         }
         // Depth: ±σ_x inside the wall, else one-sided inward.
         let sx = inputs.depth_sigma_m[j];
-        if sx > 0.0 {
+        if sx > 0.0 && inputs.slope_c_per_m.is_empty() {
             let x = inputs.samples[j].depth_m;
             let room = x.min(inputs.thickness_m - x).max(0.0);
             if room >= sx {
@@ -212,6 +240,46 @@ where
             model(&work, &scale, &mut minus)?;
             scale[layer] = 1.0;
             add(&mut budget.conductivity, &plus, &minus, 0.5);
+        }
+    }
+    // Mixed second-order terms between layers (JCGM 100:2008, 5.1.2,
+    // note: (∂²f/∂k_i∂k_j)² u_i² u_j² for each pair): a wear estimate
+    // depends on the product of the layers' conductivities.
+    let n_layers = if inputs.mixed_terms {
+        inputs.conductivity_rel.len().min(MAX_LAYERS)
+    } else {
+        0
+    };
+    for a in 0..n_layers {
+        for b in (a + 1)..n_layers {
+            let (ua, ub) = (inputs.conductivity_rel[a], inputs.conductivity_rel[b]);
+            if !(ua > 0.0 && ub > 0.0) {
+                continue;
+            }
+            let mut corner = |sa: f64, sb: f64, out: &mut Outputs| {
+                scale[a] = 1.0 + sa * ua;
+                scale[b] = 1.0 + sb * ub;
+                let r = model(&work, &scale, out);
+                scale[a] = 1.0;
+                scale[b] = 1.0;
+                r
+            };
+            let (mut pp, mut pm, mut mp, mut mm) = (
+                [0.0; MAX_OUTPUTS],
+                [0.0; MAX_OUTPUTS],
+                [0.0; MAX_OUTPUTS],
+                [0.0; MAX_OUTPUTS],
+            );
+            corner(1.0, 1.0, &mut pp)?;
+            corner(1.0, -1.0, &mut pm)?;
+            corner(-1.0, 1.0, &mut mp)?;
+            corner(-1.0, -1.0, &mut mm)?;
+            for i in 0..n {
+                let m = 0.25 * (pp[i] - pm[i] - mp[i] + mm[i]);
+                if m.is_finite() {
+                    budget.conductivity[i] += m * m;
+                }
+            }
         }
     }
     for acc in [
