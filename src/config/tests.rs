@@ -474,7 +474,7 @@ fn shipped_configs_have_no_warnings() {
 fn implausible_settings_warn_with_key_and_line() {
     let metres = EXAMPLE
         .replace("thickness_mm = 250 }", "thickness_mm = 0.25 }")
-        .replace("depth_mm = 40 }", "depth_mm = 0.04 }")
+        .replace("depth_mm = 40,", "depth_mm = 0.04,")
         .replace("depth_mm = 120 }", "depth_mm = 0.12 }")
         .replace("depth_mm = 200 }", "depth_mm = 0.2 }")
         .replace("depth_mm = 250 }", "depth_mm = 0.25 }");
@@ -551,7 +551,7 @@ fn implausible_settings_warn_with_key_and_line() {
 #[test]
 fn useless_settings_are_refused() {
     let one_depth = EXAMPLE
-        .replace("depth_mm = 40 }", "depth_mm = 120 }")
+        .replace("depth_mm = 40,", "depth_mm = 120,")
         .replace("depth_mm = 200 }", "depth_mm = 120 }")
         .replace("depth_mm = 250 }", "depth_mm = 120 }");
     let cases = [
