@@ -254,23 +254,10 @@ impl Wall<'_> {
                             // The nominal: already solved.
                             fill_layered(l, sol.hot_face_c, sol.flux_w_m2, out)
                         } else {
-                            let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();
-                            for (i, spec) in l.layers.iter().enumerate() {
-                                let _ = mats.push(Material {
-                                    conductivity_w_mk: spec.material.conductivity_w_mk.scaled(f[i]),
-                                    ..spec.material.clone()
-                                });
-                            }
-                            let mut specs: HVec<LayerSpec<'_>, MAX_LAYERS> = HVec::new();
-                            for (spec, m) in l.layers.iter().zip(&mats) {
-                                let _ = specs.push(LayerSpec {
-                                    material: m,
-                                    ..*spec
-                                });
-                            }
-                            let w = LayeredWall::new(&specs).ok()?;
-                            let s = w.solve(samples).ok()?;
-                            fill_layered(&w, s.hot_face_c, s.flux_w_m2, out)
+                            with_scaled_conductivity(l, f, |w| {
+                                let s = w.solve(samples).ok()?;
+                                fill_layered(w, s.hot_face_c, s.flux_w_m2, out)
+                            })
                         }
                     },
                 )?;
@@ -343,26 +330,39 @@ pub fn wear_sigma_mm(
         mixed_terms: true,
     };
     let b = unc::steady_budget(&inputs, |s, f, out: &mut Outputs| {
-        let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();
-        for (i, spec) in l.layers.iter().enumerate() {
-            let _ = mats.push(Material {
-                conductivity_w_mk: spec.material.conductivity_w_mk.scaled(f[i]),
-                ..spec.material.clone()
-            });
-        }
-        let mut specs: HVec<LayerSpec<'_>, MAX_LAYERS> = HVec::new();
-        for (spec, m) in l.layers.iter().zip(&mats) {
-            let _ = specs.push(LayerSpec {
-                material: m,
-                ..*spec
-            });
-        }
-        let w = LayeredWall::new(&specs)
-            .ok()?
-            .remaining_hot_layer(s, hot)
-            .ok()?;
+        let w = with_scaled_conductivity(l, f, |w| w.remaining_hot_layer(s, hot).ok())?;
         out[0] = w.remaining_mm;
         Some(1)
     })?;
     Some((b.depth[0], b.conductivity[0]))
+}
+
+/// `use_wall` on the layered wall `l` with layer i's conductivity scaled by
+/// `factors[i]` (a perturbed wall of the uncertainty budget; no allocation:
+/// the materials and layers are inline).
+fn with_scaled_conductivity<R>(
+    l: &LayeredWall<'_>,
+    factors: &[f64],
+    use_wall: impl FnOnce(&LayeredWall<'_>) -> Option<R>,
+) -> Option<R> {
+    let mut mats: HVec<Material, MAX_LAYERS> = HVec::new();
+    for (spec, &f) in l.layers.iter().zip(factors) {
+        mats.push(Material {
+            conductivity_w_mk: spec.material.conductivity_w_mk.scaled(f),
+            ..spec.material.clone()
+        })
+        .ok()?;
+    }
+    let mut specs: HVec<LayerSpec<'_>, MAX_LAYERS> = HVec::new();
+    for (spec, m) in l.layers.iter().zip(&mats) {
+        specs
+            .push(LayerSpec {
+                material: m,
+                thickness_m: spec.thickness_m,
+                contact_m2k_w: spec.contact_m2k_w,
+            })
+            .ok()?;
+    }
+    let wall = LayeredWall::new(&specs).ok()?;
+    use_wall(&wall)
 }
