@@ -197,6 +197,14 @@ fn tc_edge_values() {
     }
     let o = ends_well(&["tc", "--type", "K", "--celsius", "nan"]);
     assert_eq!(o.status.code(), Some(2));
+    // A huge number is written short, not as 309 digits.
+    let o = ends_well(&["tc", "--type", "K", "--mv", "1.0", "--cj-c", "1e308"]);
+    let err = text(&o.stderr);
+    assert_eq!(o.status.code(), Some(2));
+    assert!(
+        err.contains("cold junction at 1e308 °C") && err.len() < 200,
+        "{err}"
+    );
     ends_well(&["tc", "--type", "K"]);
     ends_well(&["tc", "--type", "K", "--celsius", "1", "--mv", "1"]);
     ends_well(&["tc", "--type", "K", "--celsius", "1", "--cj-c", "1"]);

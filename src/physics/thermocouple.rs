@@ -146,11 +146,30 @@ impl fmt::Display for TcType {
     }
 }
 
+/// A number for a message: exponent form when huge (`1e308`, not 309
+/// digits).
+fn short(v: f64) -> String {
+    if v.is_finite() && v.abs() >= 1e9 {
+        format!("{v:e}")
+    } else {
+        format!("{v}")
+    }
+}
+
+/// As [`short`], with four decimals in the ordinary range.
+fn short4(v: f64) -> String {
+    if v.is_finite() && v.abs() >= 1e9 {
+        format!("{v:e}")
+    } else {
+        format!("{v:.4}")
+    }
+}
+
 /// Errors of the thermocouple conversions.
 #[derive(Debug, Clone, Copy, PartialEq, thiserror::Error)]
 pub enum TcError {
     /// The hot-junction temperature is outside the type's ITS-90 range.
-    #[error("type {tc}: {celsius} °C is outside the ITS-90 range {min} to {max} °C")]
+    #[error("type {tc}: {} °C is outside the ITS-90 range {min} to {max} °C", short(*.celsius))]
     TemperatureOutOfRange {
         tc: TcType,
         celsius: f64,
@@ -160,7 +179,8 @@ pub enum TcError {
     /// The EMF, referred to a 0 °C junction, is outside the invertible range
     /// (a wiring fault, reversed polarity, wrong type or a broken amplifier).
     #[error(
-        "type {tc}: {mv:.4} mV (0 °C reference) is outside the invertible range {min:.3} to {max:.3} mV"
+        "type {tc}: {} mV (0 °C reference) is outside the invertible range {min:.3} to {max:.3} mV",
+        short4(*.mv)
     )]
     EmfOutOfRange {
         tc: TcType,
@@ -169,7 +189,7 @@ pub enum TcError {
         max: f64,
     },
     /// The cold-junction temperature is outside the type's ITS-90 range.
-    #[error("type {tc}: cold junction at {cj_c} °C is outside the ITS-90 range {min} to {max} °C")]
+    #[error("type {tc}: cold junction at {} °C is outside the ITS-90 range {min} to {max} °C", short(*.cj_c))]
     ColdJunctionOutOfRange {
         tc: TcType,
         cj_c: f64,
