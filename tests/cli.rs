@@ -214,3 +214,49 @@ fn analyze_reproduces_a_closed_form_wall() {
         }
     }
 }
+
+/// A record with a gap of a year (a logger stopped over the summer): the
+/// zone says once that it has no data, then resumes at the interval
+/// boundary before the readings come back, instead of writing one state
+/// per empty 10 s interval (3.2 million of them).
+#[test]
+fn analyze_across_a_long_gap_publishes_the_gap_once() {
+    let depths = [30.0, 100.0, 200.0, 300.0];
+    let dir = temp_dir("cli-analyze-gap");
+    let cfg = write(
+        &dir,
+        "wall.toml",
+        &one_zone_config("/dev/null", 1883, 1.2, 300.0, &depths, 10.0),
+    );
+    let temp = |d: f64| 1000.0 - 2.5 * d;
+    let mut csv = String::from("time,channel,value\n");
+    let year_s = 365.0 * 86400.0;
+    for t0 in [1_800_000_000.0, 1_800_000_000.0 + year_s] {
+        for s in 0..=30 {
+            let t = t0 + f64::from(s) * 10.0;
+            for (i, d) in depths.iter().enumerate() {
+                csv += &format!("{t},p{i},{:.2}\n", temp(*d));
+            }
+        }
+    }
+    let states: Vec<serde_json::Value> = analyze_csv(&dir, &cfg, &csv)
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    assert!(states.len() < 100, "{} states", states.len());
+    let status = |v: &serde_json::Value| v["status"].as_str().unwrap().to_string();
+    let empty = states
+        .iter()
+        .filter(|v| status(v) == "insufficient_data")
+        .count();
+    assert!((1..=2).contains(&empty), "{empty} empty states");
+    // The readings after the gap are analysed as before it.
+    let ok_after = states
+        .iter()
+        .filter(|v| status(v) == "ok" && v["time"].as_str().is_some_and(|t| t.starts_with("2028")))
+        .count();
+    assert!(
+        ok_after >= 25,
+        "{ok_after} ok states after the gap: {states:?}"
+    );
+}

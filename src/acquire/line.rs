@@ -246,6 +246,41 @@ pub struct LineCounters {
     pub restarts: u64,
 }
 
+/// `frames 120, bad_crc 2, ...`: each counter by its field name, zero
+/// counts left out (frames always shown). For log lines.
+impl core::fmt::Display for LineCounters {
+    fn fmt(&self, f: &mut core::fmt::Formatter<'_>) -> core::fmt::Result {
+        let all = [
+            ("frames", self.frames),
+            ("overlong", self.overlong),
+            ("not_ascii", self.not_ascii),
+            ("control_bytes", self.control_bytes),
+            ("missing_crc", self.missing_crc),
+            ("bad_crc", self.bad_crc),
+            ("syntax", self.syntax),
+            ("bad_input", self.bad_input),
+            ("duplicate_input", self.duplicate_input),
+            ("bad_value", self.bad_value),
+            ("duplicate_seq", self.duplicate_seq),
+            ("empty_lines", self.empty_lines),
+            ("lost_scans", self.lost_scans),
+            ("restarts", self.restarts),
+        ];
+        let mut first = true;
+        for (name, n) in all {
+            if n == 0 && name != "frames" {
+                continue;
+            }
+            if !first {
+                f.write_str(", ")?;
+            }
+            write!(f, "{name} {n}")?;
+            first = false;
+        }
+        Ok(())
+    }
+}
+
 impl LineCounters {
     /// Lines rejected, all kinds together (empty lines are not rejections).
     pub fn rejected(&self) -> u64 {
@@ -795,6 +830,18 @@ fn write_number(
 
 #[cfg(test)]
 mod tests {
+    #[test]
+    fn counters_read_as_words_in_a_log_line() {
+        let c = super::LineCounters {
+            frames: 120,
+            bad_crc: 2,
+            lost_scans: 5,
+            ..Default::default()
+        };
+        assert_eq!(c.to_string(), "frames 120, bad_crc 2, lost_scans 5");
+        assert_eq!(super::LineCounters::default().to_string(), "frames 0");
+    }
+
     use super::*;
     use proptest::prelude::*;
 

@@ -185,7 +185,7 @@ impl ErrorLog {
             .last_summary
             .is_none_or(|t| now.duration_since(t) >= ERROR_SUMMARY_EVERY)
         {
-            warn!(source, errors = self.since_summary, last_error = %e, counters = ?counters,
+            warn!(source, errors = self.since_summary, last_error = %e, counters = %counters,
                 "bad lines on the serial source since the last report");
             self.last_summary = Some(now);
             self.since_summary = 0;

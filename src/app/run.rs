@@ -395,10 +395,10 @@ impl Engine {
                 warn!(alarm = %c.name, priority, value = %value, unit = c.unit(), reason, "alarm: {text}")
             }
             (_, false) if !operator => {
-                info!(alarm = %c.name, to = t.to.name(), cause = ?t.cause, value = %value, "alarm change not announced (shelved, suppressed or out of service)")
+                info!(alarm = %c.name, to = t.to.name(), cause = t.cause.name(), value = %value, "alarm change not announced (shelved, suppressed or out of service)")
             }
             _ => {
-                info!(alarm = %c.name, from = t.from.name(), to = t.to.name(), cause = ?t.cause, by, "alarm")
+                info!(alarm = %c.name, from = t.from.name(), to = t.to.name(), cause = t.cause.name(), by, "alarm")
             }
         }
     }
@@ -502,7 +502,7 @@ impl Engine {
                 let r = self.monitor.command(&cmd, now);
                 match &r {
                     Ok(_) => {
-                        info!(id = %cmd.id, action = cmd.action.name(), alarm = %cmd.alarm, by = %cmd.by, minutes = ?cmd.minutes, "operator command")
+                        info!(id = %cmd.id, action = cmd.action.name(), alarm = %cmd.alarm, by = %cmd.by, minutes = cmd.minutes.map_or(String::new(), |m| format!("{m} min")), "operator command")
                     }
                     Err(e) => {
                         warn!(id = %cmd.id, action = cmd.action.name(), alarm = %cmd.alarm, by = %cmd.by, error = %e, "operator command refused")

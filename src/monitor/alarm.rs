@@ -323,6 +323,25 @@ pub enum Cause {
     Unsuppressed,
 }
 
+impl Cause {
+    /// The word on the events topic and in the log (the serde spelling).
+    pub fn name(self) -> &'static str {
+        match self {
+            Cause::Activated => "activated",
+            Cause::Returned => "returned",
+            Cause::ShelveExpired => "shelve_expired",
+            Cause::Acknowledged => "acknowledged",
+            Cause::Shelved => "shelved",
+            Cause::Unshelved => "unshelved",
+            Cause::Reset => "reset",
+            Cause::OutOfService => "out_of_service",
+            Cause::InService => "in_service",
+            Cause::Suppressed => "suppressed",
+            Cause::Unsuppressed => "unsuppressed",
+        }
+    }
+}
+
 /// An operator's name in a transition: at most [`MAX_TEXT_CHARS`]
 /// characters, so four bytes each fit without allocation.
 pub type User = heapless::String<{ 4 * MAX_TEXT_CHARS }>;
@@ -707,6 +726,27 @@ mod tests {
 
     /// 2026-12-02T08:00:00Z.
     const T0: f64 = 1_796_198_400.0;
+
+    /// A log line and the events topic spell a cause the same way.
+    #[test]
+    fn cause_names_are_the_event_words() {
+        use Cause::*;
+        for c in [
+            Activated,
+            Returned,
+            ShelveExpired,
+            Acknowledged,
+            Shelved,
+            Unshelved,
+            Reset,
+            OutOfService,
+            InService,
+            Suppressed,
+            Unsuppressed,
+        ] {
+            assert_eq!(serde_json::to_value(c).unwrap(), c.name(), "{c:?}");
+        }
+    }
 
     fn at(s: f64) -> Timestamp {
         Timestamp::from_epoch_s(T0 + s)

@@ -315,7 +315,16 @@ impl Monitor {
         if has_baseline(zone) {
             report.lining_baseline = Some(self.zones[i].baseline.report(due, zone.baseline_days));
         }
-        self.zones[i].next_due = due.plus_s(interval);
+        let mut next = due.plus_s(interval);
+        if report.status == zone::ZoneStatus::InsufficientData && next < now {
+            // A gap in the readings (a replay across days the logger was
+            // stopped): this state says so, and the zone resumes at the last
+            // interval boundary before `now` rather than publishing every
+            // empty interval of the gap.
+            let skipped = (now.since(next) / interval).floor();
+            next = next.plus_s(skipped * interval);
+        }
+        self.zones[i].next_due = next;
         // Zone-level faults (stuck, outlier) become the channels' health.
         let settings = self.settings.clone();
         for (p, d) in settings.zones[i]
