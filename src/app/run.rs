@@ -219,22 +219,22 @@ impl Engine {
         let mut any_zone = false;
         while let Some(report) = self.monitor.poll_zone(now) {
             any_zone = true;
-            let zi = settings
-                .zones
-                .iter()
-                .position(|z| z.name == report.zone)
-                .unwrap_or(0);
-            self.meter.record(
-                zi,
-                report.heat_loss_w,
-                report.hot_face_c,
-                settings.zones[zi].interval_s,
-                report.time,
-            );
-            let cycles = self.monitor.zone_cycles(zi);
-            let every = u64::from(settings.log.summary_every);
-            if every == 1 || cycles % every == 1 {
-                log_summary(&report);
+            // The monitor names only configured zones; a report it could
+            // not place is still published, but never booked to another
+            // zone's energy.
+            if let Some(zi) = settings.zones.iter().position(|z| z.name == report.zone) {
+                self.meter.record(
+                    zi,
+                    report.heat_loss_w,
+                    report.hot_face_c,
+                    settings.zones[zi].interval_s,
+                    report.time,
+                );
+                let cycles = self.monitor.zone_cycles(zi);
+                let every = u64::from(settings.log.summary_every);
+                if every == 1 || cycles % every == 1 {
+                    log_summary(&report);
+                }
             }
             self.push_json(
                 format!("{root}/zone/{}/state", report.zone),
