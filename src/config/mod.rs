@@ -19,10 +19,13 @@ pub use validate::{format_problem, parse, ConfigError, Problem, DEFAULT_SHELL_TO
 /// Longest name of a zone, channel, source or material (they appear in MQTT
 /// topics and fixed-capacity payloads).
 pub const MAX_NAME: usize = 48;
-/// Most probes in one zone (fixed capacity of the zone cycle).
-pub const MAX_PROBES: usize = 16;
-/// Most layers in one wall.
-pub const MAX_LAYERS: usize = 8;
+/// Most probes in one zone and most layers in one wall: the physics'
+/// fixed capacities (one definition each, in `physics::layered`), which
+/// validation enforces.
+pub use crate::physics::layered::{MAX_LAYERS, MAX_PROBES};
+/// Most `forecast_h` horizons of a transient zone (fixed capacity of its
+/// zone state).
+pub const MAX_FORECASTS: usize = 8;
 /// Most channels in one configuration.
 pub const MAX_CHANNELS: usize = 256;
 

@@ -1651,14 +1651,16 @@ impl Validator<'_> {
             Some(f) => {
                 let v = f.get_ref().clone();
                 if v.is_empty()
-                    || v.len() > 8
+                    || v.len() > MAX_FORECASTS
                     || v.iter()
                         .any(|h| !(h.is_finite() && *h > 0.0 && *h <= 168.0))
                 {
                     self.problem(
                         f.span(),
                         p("forecast_h"),
-                        "1 to 8 horizons, each more than 0 and at most 168 h",
+                        format!(
+                            "1 to {MAX_FORECASTS} horizons, each more than 0 and at most 168 h"
+                        ),
                     );
                 }
                 v

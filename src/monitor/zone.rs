@@ -9,7 +9,7 @@ use super::channel::{ChannelState, Health, Reading};
 use super::lining::Baseline;
 use super::wall::Wall;
 use crate::config::{Model, NamedMaterial};
-use crate::config::{Name, Settings, Zone, MAX_PROBES};
+use crate::config::{Name, Settings, Zone, MAX_FORECASTS, MAX_PROBES};
 use crate::physics::fit::linear_slope;
 use crate::physics::layered::{HotFaceReading, ModelCheck, MAX_LAYERS};
 use crate::physics::profile::{heat_loss_w, ProbeSample};
@@ -222,7 +222,7 @@ pub struct ZoneReport {
     pub filter_nis: Option<f64>,
     /// Transient model: the profile run ahead under the hot-face trend.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub forecast: Option<HVec<ForecastReport, 8>>,
+    pub forecast: Option<HVec<ForecastReport, MAX_FORECASTS>>,
     /// Transient model: hours until each limit is reached, within the
     /// longest forecast horizon.
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -934,7 +934,7 @@ impl ZoneEngine {
             .into_iter()
             .chain(zone.firing_setpoint_c)
             .fold(f64::INFINITY, f64::min);
-        let mut forecast: HVec<ForecastReport, 8> = HVec::new();
+        let mut forecast: HVec<ForecastReport, MAX_FORECASTS> = HVec::new();
         for &h in zone.forecast_h.iter().take(8) {
             if let Some(f) = est.forecast(h * 3600.0, cap) {
                 let _ = forecast.push(ForecastReport {

@@ -58,8 +58,9 @@ use crate::physics::surface::SurfaceError;
 /// Most nodes of the grid (faces and interfaces included).
 pub const MAX_NODES: usize = 64;
 
-/// Most layers of a wall (so at most `MAX_LAYERS − 1` internal interfaces).
-pub const MAX_LAYERS: usize = 8;
+/// Most layers of a wall (so at most `MAX_LAYERS − 1` internal interfaces):
+/// the one capacity of `physics::layered`.
+pub use crate::physics::layered::MAX_LAYERS;
 
 /// Size of the filter state: every node plus the hot-face rate.
 pub const MAX_STATE: usize = MAX_NODES + 1;
