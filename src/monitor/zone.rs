@@ -570,11 +570,11 @@ impl ZoneEngine {
             report.status = ZoneStatus::NotSteady;
             report.model_note = Some(NOTE_NOT_STEADY);
         }
-        report.hot_face_measured_c = zone
+        let hot_reading = zone
             .hot_face_channel
             .and_then(|hf| channels.get(hf))
-            .and_then(|c| c.fresh(now, max_age_s))
-            .map(|r| r.celsius);
+            .and_then(|c| c.fresh(now, max_age_s));
+        report.hot_face_measured_c = hot_reading.map(|r| r.celsius);
         report.hot_face_c = Some(sol.hot_face_c);
         report.shell_c = Some(sol.shell_c);
         report.flux_hot_face_w_m2 = Some(sol.flux_hot_face_w_m2);
@@ -605,39 +605,39 @@ impl ZoneEngine {
         // `LayeredWall::remaining_hot_layer`). With one, the measured
         // resistance (T_hot,measured − T_shell) / q is compared with its
         // commissioning baseline, and the hot layer is sized.
+        // Each layer's relative standard uncertainty of k, for the wear σ
+        // and the budget.
+        let mut k_rel = [0.0; MAX_LAYERS];
+        for (u, l) in k_rel.iter_mut().zip(&zone.layers) {
+            *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
+        }
+        let conductivity_rel = &k_rel[..zone.layers.len().min(MAX_LAYERS)];
         let mut lining_sigma_mm = None;
-        if let (Wall::Layered(l), Some(hf)) = (&wall, zone.hot_face_channel) {
-            if let Some(reading) = channels.get(hf).and_then(|c| c.fresh(now, max_age_s)) {
-                if sol.flux_shell_w_m2.abs() > 1.0 {
-                    let r = (reading.celsius - sol.shell_c) / sol.flux_shell_w_m2;
-                    if sol.check == ModelCheck::Consistent && !unsteady {
-                        self.baseline
-                            .record(now, zone.baseline_days, reading.celsius, r);
-                    }
-                    report.resistance_change_pct =
-                        self.baseline
-                            .change_pct(now, zone.baseline_days, reading.celsius, r);
+        if let (Wall::Layered(l), Some(reading)) = (&wall, hot_reading) {
+            if sol.flux_shell_w_m2.abs() > 1.0 {
+                let r = (reading.celsius - sol.shell_c) / sol.flux_shell_w_m2;
+                if sol.check == ModelCheck::Consistent && !unsteady {
+                    self.baseline
+                        .record(now, zone.baseline_days, reading.celsius, r);
                 }
-                let hot = HotFaceReading {
-                    temp_c: reading.celsius,
-                    sigma_c: reading.sigma_c,
-                };
-                if let Ok(w) = l.remaining_hot_layer(&samples, hot) {
-                    report.lining_remaining_mm = Some(w.remaining_mm);
-                    // The readings' σ of the estimate, with the probes'
-                    // depths and the layers' conductivities added.
-                    let mut k_rel = [0.0; MAX_LAYERS];
-                    for (u, l) in k_rel.iter_mut().zip(&zone.layers) {
-                        *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
-                    }
-                    let n = zone.layers.len().min(MAX_LAYERS);
-                    let extra =
-                        super::wall::wear_sigma_mm(l, &samples, hot, &depth_sigma_m, &k_rel[..n]);
-                    lining_sigma_mm = Some(match extra {
-                        Some((d, k)) => (w.sigma_mm.powi(2) + d * d + k * k).sqrt(),
-                        None => w.sigma_mm,
-                    });
-                }
+                report.resistance_change_pct =
+                    self.baseline
+                        .change_pct(now, zone.baseline_days, reading.celsius, r);
+            }
+            let hot = HotFaceReading {
+                temp_c: reading.celsius,
+                sigma_c: reading.sigma_c,
+            };
+            if let Ok(w) = l.remaining_hot_layer(&samples, hot) {
+                report.lining_remaining_mm = Some(w.remaining_mm);
+                // The readings' σ of the estimate, with the probes'
+                // depths and the layers' conductivities added.
+                let extra =
+                    super::wall::wear_sigma_mm(l, &samples, hot, &depth_sigma_m, conductivity_rel);
+                lining_sigma_mm = Some(match extra {
+                    Some((d, k)) => (w.sigma_mm.powi(2) + d * d + k * k).sqrt(),
+                    None => w.sigma_mm,
+                });
             }
         }
         let surface = shell_surface(zone, sol.shell_c);
@@ -648,17 +648,7 @@ impl ZoneEngine {
         // The complete budget: readings, depths and conductivities through
         // the same fit. Should a perturbed fit fail (a wall at the edge of
         // what the model can fit), the probes-only σ of the fit is kept.
-        let mut conductivity_rel = [0.0; MAX_LAYERS];
-        for (u, l) in conductivity_rel.iter_mut().zip(&zone.layers) {
-            *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
-        }
-        let n_layers = zone.layers.len().min(MAX_LAYERS);
-        let budget = wall.budget(
-            &sol,
-            &samples,
-            &depth_sigma_m,
-            &conductivity_rel[..n_layers],
-        );
+        let budget = wall.budget(&sol, &samples, &depth_sigma_m, conductivity_rel);
         let mut u = Uncertainty {
             hot_face_c: sol.sigma_hot_face_c,
             shell_c: sol.sigma_shell_c,
