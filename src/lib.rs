@@ -6,9 +6,12 @@
 //! heat loss, equivalent source and rates, published over MQTT.
 //!
 //! # Layout
-//! Folder names are the data flow. The pure core (`physics`, the protocol
-//! parser `acquire::line`, `monitor`, `time`) does no IO and reads no clock;
-//! the edges (`acquire::serial`, `publish::mqtt`, `app`) own the IO.
+//! A workspace whose crate boundaries are the rules. The pure core lives in
+//! `crates/wallflux-core` (re-exported here as `config`, `monitor`,
+//! `physics`, `protocol`, `time`): it has no IO, clock or async runtime among
+//! its dependencies. The simulator is `crates/wallflux-sim`, built only with
+//! the `demo` feature. This package holds the edges (`acquire::serial`,
+//! `publish::mqtt`, `app`), which own the IO.
 //!
 //! - [`physics`]: thermocouples (ITS-90), tolerances, materials, the profile
 //!   fit, the single-layer wall solution, the steady layered wall, the
@@ -31,9 +34,8 @@
 
 pub mod acquire;
 pub mod app;
-pub mod config;
-pub mod monitor;
-pub mod physics;
 pub mod publish;
-pub mod sim;
-pub mod time;
+
+pub use wallflux_core::{config, monitor, physics, protocol, time};
+#[cfg(feature = "demo")]
+pub use wallflux_sim as sim;

@@ -21,6 +21,7 @@ use crate::config::{self, Settings, Signal};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
 use crate::physics::thermocouple;
 use crate::sim::firing::FiringSchedule;
+use crate::sim::rng::SplitMix64;
 use crate::sim::pty::Pty;
 use crate::sim::wall::{Layer, WallSim};
 use crate::time::Timestamp;
@@ -185,7 +186,7 @@ fn simulate(
             })
         })
         .collect();
-    let mut rng = SplitMix64(0x2545_F491_4F6C_DD1D);
+    let mut rng = SplitMix64::new(0x2545_F491_4F6C_DD1D);
     let mut seq: u32 = 0;
     let mut t_sim = 0.0;
     let mut finished = false;
@@ -207,14 +208,14 @@ fn simulate(
             w.step(SCAN_S, hot_face_c(&z.name, setpoint, z.ambient_c));
         }
         // The box's terminals warm a little with the kiln (demo data).
-        let cj_c = 24.0 + 6.0 * ((setpoint - 20.0) / 1250.0).clamp(0.0, 1.0) + 0.05 * rng.gauss();
+        let cj_c = 24.0 + 6.0 * ((setpoint - 20.0) / 1250.0).clamp(0.0, 1.0) + 0.05 * rng.normal();
         for (si, pty) in ptys.iter_mut().enumerate() {
             values.clear();
             for (ci, c) in settings.channels.iter().enumerate() {
                 let (Some((zi, depth)), true) = (place[ci], c.source == si) else {
                     continue;
                 };
-                let t = walls[zi].temperature_at(depth) + 0.15 * rng.gauss();
+                let t = walls[zi].temperature_at(depth) + 0.15 * rng.normal();
                 let v = match c.signal {
                     Signal::Celsius => Value::Reading {
                         value: round(t, 1),
@@ -309,22 +310,4 @@ fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> su
             );
         }
     })
-}
-
-/// SplitMix64 with a Box–Muller normal: small, deterministic demo noise.
-struct SplitMix64(u64);
-
-impl SplitMix64 {
-    fn next_f64(&mut self) -> f64 {
-        self.0 = self.0.wrapping_add(0x9E37_79B9_7F4A_7C15);
-        let mut z = self.0;
-        z = (z ^ (z >> 30)).wrapping_mul(0xBF58_476D_1CE4_E5B9);
-        z = (z ^ (z >> 27)).wrapping_mul(0x94D0_49BB_1331_11EB);
-        z ^= z >> 31;
-        ((z >> 11) as f64 + 0.5) / (1u64 << 53) as f64
-    }
-    fn gauss(&mut self) -> f64 {
-        let (u1, u2) = (self.next_f64(), self.next_f64());
-        (-2.0 * u1.ln()).sqrt() * (std::f64::consts::TAU * u2).cos()
-    }
 }

@@ -3,8 +3,8 @@
 
 use super::*;
 
-const EXAMPLE: &str = include_str!("../../config/example.toml");
-const DEMO: &str = include_str!("../../config/demo.toml");
+const EXAMPLE: &str = include_str!("../../../../config/example.toml");
+const DEMO: &str = include_str!("../../../../config/demo.toml");
 
 fn problems(text: &str) -> Vec<Problem> {
     match parse(text, "t.toml", None) {
@@ -243,7 +243,7 @@ fn alarms_are_validated_and_built_in_ones_tuned() {
 /// for steel, k = 54 − 0.0333 θ: 47.34 W/mK at 200 °C).
 #[test]
 fn shipped_materials_load() {
-    let materials = include_str!("../../config/materials.toml");
+    let materials = include_str!("../../../../config/materials.toml");
     let text = format!("{EXAMPLE}\n{materials}");
     let s = parse(&text, "t", None).unwrap();
     let m = |n: &str| {
@@ -462,7 +462,7 @@ fn line_in(text: &str, needle: &str) -> Option<usize> {
 
 #[test]
 fn shipped_configs_have_no_warnings() {
-    let materials = include_str!("../../config/materials.toml");
+    let materials = include_str!("../../../../config/materials.toml");
     for text in [EXAMPLE, DEMO, &format!("{EXAMPLE}\n{materials}")] {
         assert_eq!(warnings(text), vec![]);
     }

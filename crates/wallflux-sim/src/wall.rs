@@ -8,7 +8,7 @@
 //! hot face (`x = 0`) to the shell outer surface (`x = L`) and `q = −k ∂T/∂x`
 //! positive outward (DEVELOPERS.md conventions). Boundary conditions: Dirichlet at
 //! the hot face (the kiln atmosphere set-point), and at the shell
-//! `q(L) = surface_loss(T(L))` ([`crate::physics::surface`]).
+//! `q(L) = surface_loss(T(L))` ([`wallflux_core::physics::surface`]).
 //!
 //! # Discretisation (vertex-centred finite volumes)
 //!
@@ -39,8 +39,8 @@
 //! Storage is `std::vec::Vec`, allocated once in [`WallSim::new`]; `step`
 //! allocates nothing. This is not a hot path of the daemon.
 
-use crate::physics::material::{Material, Property};
-use crate::physics::surface::{surface_loss, SurfaceError, SurfaceParams, ZERO_CELSIUS_K};
+use wallflux_core::physics::material::{Material, Property};
+use wallflux_core::physics::surface::{surface_loss, SurfaceError, SurfaceParams, ZERO_CELSIUS_K};
 
 /// Most nodes a simulated wall may have (bounds the memory a bad
 /// configuration can ask for).
@@ -742,8 +742,8 @@ impl WallSim {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use crate::physics::surface::Orientation;
-    use crate::sim::firing::FiringSchedule;
+    use wallflux_core::physics::surface::Orientation;
+    use crate::firing::FiringSchedule;
 
     // --- Oracles -------------------------------------------------------------
 

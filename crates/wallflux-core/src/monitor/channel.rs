@@ -3,7 +3,7 @@
 
 use serde::Serialize;
 
-use crate::acquire::line::{Unit, Value};
+use crate::protocol::line::{Unit, Value};
 use crate::config::{Channel, ChannelKind, Name, Signal};
 use crate::physics::thermocouple::{self, TcError};
 use crate::physics::tolerance;

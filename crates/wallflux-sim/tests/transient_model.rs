@@ -1,14 +1,14 @@
 //! Tests of the transient model against analytic solutions, the independent
-//! wall simulator (`sim::wall`) and statistics of the filter.
+//! wall simulator (`wallflux_sim::wall`) and statistics of the filter.
 
-use super::estimator::chi_square_quantile_999;
-use super::*;
-use crate::physics::fit::test_rng::SplitMix64;
-use crate::physics::material::{Material, Property};
-use crate::physics::profile::ProbeSample;
-use crate::physics::surface::{Orientation, SurfaceParams};
-use crate::sim::firing::FiringSchedule;
-use crate::sim::wall::{Layer, WallSim};
+use wallflux_core::physics::material::{Material, Property};
+use wallflux_core::physics::profile::ProbeSample;
+use wallflux_core::physics::surface::{Orientation, SurfaceParams};
+use wallflux_core::physics::transient::estimator::chi_square_quantile_999;
+use wallflux_core::physics::transient::*;
+use wallflux_sim::firing::FiringSchedule;
+use wallflux_sim::rng::SplitMix64;
+use wallflux_sim::wall::{Layer, WallSim};
 
 // --- Oracles -----------------------------------------------------------------
 

@@ -44,8 +44,6 @@ pub mod grid;
 pub mod model;
 mod steady;
 
-#[cfg(test)]
-mod tests;
 
 pub use estimator::{
     ForecastPoint, Limit, NodeEstimate, StepReport, TransientEstimator, TransientSettings,

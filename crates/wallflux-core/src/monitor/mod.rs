@@ -18,7 +18,7 @@ use std::sync::Arc;
 
 use heapless::Deque;
 
-use crate::acquire::line::{Frame, Value};
+use crate::protocol::line::{Frame, Value};
 use crate::config::{BaselineStart, Model, Settings, Zone};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
@@ -227,7 +227,7 @@ impl Monitor {
         let result = match (value, cj) {
             (
                 Value::Reading {
-                    unit: crate::acquire::line::Unit::Millivolts,
+                    unit: crate::protocol::line::Unit::Millivolts,
                     ..
                 },
                 Err(reason),

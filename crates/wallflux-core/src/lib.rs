@@ -1,0 +1,22 @@
+//! The pure core of wallflux: everything that turns readings into zone
+//! states, alarms and energy, with no IO, no clock and no async runtime.
+//! Every call that depends on time is given `now`; the edges (serial,
+//! MQTT, files, signals) live in the root package.
+//!
+//! - [`physics`]: thermocouples (ITS-90), tolerances, materials, the profile
+//!   fit, the single-layer wall solution, the steady layered wall, the
+//!   transient wall model and its Kalman estimator, surface heat loss, the
+//!   complete uncertainty budget.
+//! - [`protocol`]: the line protocol v1 (sans-IO parser and encoder).
+//! - [`monitor`]: per-channel signal chain and health, per-zone engine
+//!   (fit schedule, rate histories, diagnostics, zone reports), alarm state
+//!   machines and the alarm engine, commands, trend alerts, energy and
+//!   lining accounting. Driven by `handle_*`, read by `poll_*`.
+//! - [`config`]: the TOML text and its validated settings.
+//! - [`time`]: UTC timestamps and RFC 3339.
+
+pub mod config;
+pub mod monitor;
+pub mod physics;
+pub mod protocol;
+pub mod time;

@@ -1,0 +1,2 @@
+//! Decoders of the inputs' wire formats, sans IO: bytes in, frames out.
+pub mod line;
