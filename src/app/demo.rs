@@ -21,8 +21,8 @@ use crate::config::{self, Settings, Signal};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
 use crate::physics::thermocouple;
 use crate::sim::firing::FiringSchedule;
-use crate::sim::rng::SplitMix64;
 use crate::sim::pty::Pty;
+use crate::sim::rng::SplitMix64;
 use crate::sim::wall::{Layer, WallSim};
 use crate::time::Timestamp;
 

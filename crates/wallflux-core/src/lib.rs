@@ -20,3 +20,4 @@ pub mod monitor;
 pub mod physics;
 pub mod protocol;
 pub mod time;
+pub mod words;

@@ -742,8 +742,8 @@ impl WallSim {
 #[cfg(test)]
 mod tests {
     use super::*;
-    use wallflux_core::physics::surface::Orientation;
     use crate::firing::FiringSchedule;
+    use wallflux_core::physics::surface::Orientation;
 
     // --- Oracles -------------------------------------------------------------
 

@@ -252,22 +252,14 @@ pub struct Source {
     pub silence_s: f64,
 }
 
-/// What a channel's values are.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Signal {
-    /// Linearised °C from the source.
-    Celsius,
-    /// Raw thermocouple EMF in mV; needs a cold-junction temperature.
-    Millivolts,
-}
-
-impl Signal {
-    /// The configuration's word (`signal = "..."`).
-    pub fn name(self) -> &'static str {
-        match self {
-            Signal::Celsius => "celsius",
-            Signal::Millivolts => "millivolts",
-        }
+crate::word_enum! {
+    /// What a channel's values are.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Signal {
+        /// Linearised °C from the source.
+        Celsius = "celsius",
+        /// Raw thermocouple EMF in mV; needs a cold-junction temperature.
+        Millivolts = "millivolts",
     }
 }
 
@@ -364,25 +356,17 @@ pub const MAX_PROPERTY_UNCERTAINTY_PCT: f64 = 100.0;
 /// known at all.
 pub const MAX_DEPTH_SIGMA_MM: f64 = 50.0;
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum Model {
-    /// One homogeneous layer; weighted quadratic fit of T(x).
-    Quadratic,
-    /// Any number of layers at steady state, k(T) solved exactly (Kirchhoff
-    /// transform), hot-face temperature and flux fitted to the probes.
-    Layered,
-    /// The 1-D heat equation across the layers with a Kalman estimator of
-    /// the nodal temperatures and the (unmeasured) hot face; forecasts.
-    Transient,
-}
-
-impl Model {
-    pub fn name(self) -> &'static str {
-        match self {
-            Model::Quadratic => "quadratic",
-            Model::Layered => "layered",
-            Model::Transient => "transient",
-        }
+crate::word_enum! {
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Model {
+        /// One homogeneous layer; weighted quadratic fit of T(x).
+        Quadratic = "quadratic",
+        /// Any number of layers at steady state, k(T) solved exactly (Kirchhoff
+        /// transform), hot-face temperature and flux fitted to the probes.
+        Layered = "layered",
+        /// The 1-D heat equation across the layers with a Kalman estimator of
+        /// the nodal temperatures and the (unmeasured) hot face; forecasts.
+        Transient = "transient",
     }
 }
 

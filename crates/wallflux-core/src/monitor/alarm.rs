@@ -92,59 +92,36 @@ pub const MAX_SHELVE_MIN: f64 = 24.0 * 60.0;
 /// signal).
 pub const DIAGNOSTIC_FAULT_AT: f64 = 0.5;
 
-/// What an alarm watches, and so how its value is compared with the setpoint.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum AlarmKind {
-    /// Activates at `value ≥ setpoint`; returns at `value < setpoint − deadband`.
-    High,
-    /// Activates at `value ≤ setpoint`; returns at `value > setpoint + deadband`.
-    Low,
-    /// `value` is a rate per hour supplied by the caller (e.g. °C/h);
-    /// activates at `|value| ≥ setpoint`, returns at
-    /// `|value| < setpoint − deadband`.
-    RateHigh,
-    /// `value` is a percentage deviation from a baseline supplied by the
-    /// caller; the same magnitude test as [`AlarmKind::RateHigh`].
-    Deviation,
-    /// `value` 1.0 = fault present, 0.0 = healthy; setpoint and deadband are
-    /// ignored (see [`DIAGNOSTIC_FAULT_AT`]).
-    Diagnostic,
-}
-
-impl AlarmKind {
-    /// The configuration's word (`kind = "..."`, as serialised).
-    pub fn name(self) -> &'static str {
-        match self {
-            AlarmKind::High => "high",
-            AlarmKind::Low => "low",
-            AlarmKind::RateHigh => "rate_high",
-            AlarmKind::Deviation => "deviation",
-            AlarmKind::Diagnostic => "diagnostic",
-        }
+crate::word_enum! {
+    /// What an alarm watches, and so how its value is compared with the setpoint.
+    #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+    pub enum AlarmKind {
+        /// Activates at `value ≥ setpoint`; returns at `value < setpoint − deadband`.
+        High = "high",
+        /// Activates at `value ≤ setpoint`; returns at `value > setpoint + deadband`.
+        Low = "low",
+        /// `value` is a rate per hour supplied by the caller (e.g. °C/h);
+        /// activates at `|value| ≥ setpoint`, returns at
+        /// `|value| < setpoint − deadband`.
+        RateHigh = "rate_high",
+        /// `value` is a percentage deviation from a baseline supplied by the
+        /// caller; the same magnitude test as [`AlarmKind::RateHigh`].
+        Deviation = "deviation",
+        /// `value` 1.0 = fault present, 0.0 = healthy; setpoint and deadband are
+        /// ignored (see [`DIAGNOSTIC_FAULT_AT`]).
+        Diagnostic = "diagnostic",
     }
 }
 
-/// How urgent an alarm is. Ordered most urgent first, so sorting ascending
-/// lists critical alarms at the top.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Priority {
-    Critical,
-    High,
-    Medium,
-    Low,
-}
-
-impl Priority {
-    /// The configuration's word (`priority = "..."`, as serialised).
-    pub fn name(self) -> &'static str {
-        match self {
-            Priority::Critical => "critical",
-            Priority::High => "high",
-            Priority::Medium => "medium",
-            Priority::Low => "low",
-        }
+crate::word_enum! {
+    /// How urgent an alarm is. Ordered most urgent first, so sorting ascending
+    /// lists critical alarms at the top.
+    #[derive(Clone, Copy, Debug, PartialEq, Eq, PartialOrd, Ord, Hash)]
+    pub enum Priority {
+        Critical = "critical",
+        High = "high",
+        Medium = "medium",
+        Low = "low",
     }
 }
 
@@ -257,88 +234,55 @@ pub struct AlarmFlags {
     pub last_user: Option<String>,
 }
 
-/// The one state an alarm shows (see the module doc for the order).
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum AlarmState {
-    /// Condition gone, nothing owed.
-    Normal,
-    /// Condition present, not yet acknowledged.
-    Unacknowledged,
-    /// Condition present, acknowledged.
-    Acknowledged,
-    /// Condition gone before it was acknowledged.
-    RtnUnacknowledged,
-    /// Condition gone, latch holding until reset.
-    Latched,
-    /// Hidden by an operator until `shelved_until`.
-    Shelved,
-    /// Hidden by design logic.
-    Suppressed,
-    /// Taken away for maintenance.
-    OutOfService,
-}
-
-impl AlarmState {
-    /// The wire name (as serialised).
-    pub fn name(self) -> &'static str {
-        match self {
-            AlarmState::Normal => "normal",
-            AlarmState::Unacknowledged => "unacknowledged",
-            AlarmState::Acknowledged => "acknowledged",
-            AlarmState::RtnUnacknowledged => "rtn_unacknowledged",
-            AlarmState::Latched => "latched",
-            AlarmState::Shelved => "shelved",
-            AlarmState::Suppressed => "suppressed",
-            AlarmState::OutOfService => "out_of_service",
-        }
+crate::word_enum! {
+    /// The one state an alarm shows (see the module doc for the order).
+    #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+    pub enum AlarmState {
+        /// Condition gone, nothing owed.
+        Normal = "normal",
+        /// Condition present, not yet acknowledged.
+        Unacknowledged = "unacknowledged",
+        /// Condition present, acknowledged.
+        Acknowledged = "acknowledged",
+        /// Condition gone before it was acknowledged.
+        RtnUnacknowledged = "rtn_unacknowledged",
+        /// Condition gone, latch holding until reset.
+        Latched = "latched",
+        /// Hidden by an operator until `shelved_until`.
+        Shelved = "shelved",
+        /// Hidden by design logic.
+        Suppressed = "suppressed",
+        /// Taken away for maintenance.
+        OutOfService = "out_of_service",
     }
 }
 
-/// What made a transition.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Cause {
-    /// The condition appeared (after its on-delay).
-    Activated,
-    /// The condition went (after its off-delay).
-    Returned,
-    /// A shelve ran out.
-    ShelveExpired,
-    /// An operator acknowledged.
-    Acknowledged,
-    /// An operator shelved (or shelved again, restarting the time).
-    Shelved,
-    /// An operator unshelved.
-    Unshelved,
-    /// An operator reset a latch.
-    Reset,
-    /// Taken out of service.
-    OutOfService,
-    /// Returned to service.
-    InService,
-    /// Design logic suppressed it.
-    Suppressed,
-    /// Design logic lifted its suppression.
-    Unsuppressed,
-}
-
-impl Cause {
-    /// The word on the events topic and in the log (the serde spelling).
-    pub fn name(self) -> &'static str {
-        match self {
-            Cause::Activated => "activated",
-            Cause::Returned => "returned",
-            Cause::ShelveExpired => "shelve_expired",
-            Cause::Acknowledged => "acknowledged",
-            Cause::Shelved => "shelved",
-            Cause::Unshelved => "unshelved",
-            Cause::Reset => "reset",
-            Cause::OutOfService => "out_of_service",
-            Cause::InService => "in_service",
-            Cause::Suppressed => "suppressed",
-            Cause::Unsuppressed => "unsuppressed",
-        }
+crate::word_enum! {
+    /// What made a transition.
+    #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+    pub enum Cause {
+        /// The condition appeared (after its on-delay).
+        Activated = "activated",
+        /// The condition went (after its off-delay).
+        Returned = "returned",
+        /// A shelve ran out.
+        ShelveExpired = "shelve_expired",
+        /// An operator acknowledged.
+        Acknowledged = "acknowledged",
+        /// An operator shelved (or shelved again, restarting the time).
+        Shelved = "shelved",
+        /// An operator unshelved.
+        Unshelved = "unshelved",
+        /// An operator reset a latch.
+        Reset = "reset",
+        /// Taken out of service.
+        OutOfService = "out_of_service",
+        /// Returned to service.
+        InService = "in_service",
+        /// Design logic suppressed it.
+        Suppressed = "suppressed",
+        /// Design logic lifted its suppression.
+        Unsuppressed = "unsuppressed",
     }
 }
 

@@ -3,51 +3,36 @@
 
 use serde::Serialize;
 
-use crate::protocol::line::{Unit, Value};
 use crate::config::{Channel, ChannelKind, Name, Signal};
 use crate::physics::thermocouple::{self, TcError};
 use crate::physics::tolerance;
+use crate::protocol::line::{Unit, Value};
 use crate::time::Timestamp;
 
-/// Health of a channel, as published on its topic.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Health {
-    /// A valid, fresh reading.
-    Ok,
-    /// The source reports an open thermocouple.
-    Open,
-    /// A value outside the thermocouple type's range (reversed polarity,
-    /// a short, a wrong type configured).
-    OutOfRange,
-    /// A value the channel cannot use (millivolts with no cold junction,
-    /// a unit that does not match the configured signal).
-    Invalid,
-    /// A step faster than any wall can heat (rejected until confirmed).
-    Spike,
-    /// No change while the zone's other probes change.
-    Stuck,
-    /// Inconsistent with the zone's other probes (leave-one-out residual).
-    Outlier,
-    /// No reading for longer than the staleness limit.
-    Stale,
-    /// Nothing received yet since start.
-    NoData,
-}
-
-impl Health {
-    pub fn name(self) -> &'static str {
-        match self {
-            Health::Ok => "ok",
-            Health::Open => "open",
-            Health::OutOfRange => "out_of_range",
-            Health::Invalid => "invalid",
-            Health::Spike => "spike",
-            Health::Stuck => "stuck",
-            Health::Outlier => "outlier",
-            Health::Stale => "stale",
-            Health::NoData => "no_data",
-        }
+crate::word_enum! {
+    /// Health of a channel, as published on its topic.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Health {
+        /// A valid, fresh reading.
+        Ok = "ok",
+        /// The source reports an open thermocouple.
+        Open = "open",
+        /// A value outside the thermocouple type's range (reversed polarity,
+        /// a short, a wrong type configured).
+        OutOfRange = "out_of_range",
+        /// A value the channel cannot use (millivolts with no cold junction,
+        /// a unit that does not match the configured signal).
+        Invalid = "invalid",
+        /// A step faster than any wall can heat (rejected until confirmed).
+        Spike = "spike",
+        /// No change while the zone's other probes change.
+        Stuck = "stuck",
+        /// Inconsistent with the zone's other probes (leave-one-out residual).
+        Outlier = "outlier",
+        /// No reading for longer than the staleness limit.
+        Stale = "stale",
+        /// Nothing received yet since start.
+        NoData = "no_data",
     }
 }
 

@@ -46,40 +46,26 @@ pub const MAX_COMMAND_BYTES: usize = 4096;
 /// The longest `id`, `alarm` or `by`, characters.
 pub const MAX_TEXT_CHARS: usize = 64;
 
-/// What a command asks for.
-#[derive(Clone, Copy, Debug, PartialEq, Eq, Hash, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Action {
-    Ack,
-    Shelve,
-    Unshelve,
-    Reset,
-    OutOfService,
-    InService,
-    /// A zone's lining baseline: start learning.
-    BaselineStart,
-    /// End learning now and use what is learned.
-    BaselineStop,
-    /// Forget the baseline (after a reline).
-    BaselineReset,
+crate::word_enum! {
+    /// What a command asks for.
+    #[derive(Clone, Copy, Debug, PartialEq, Eq, Hash)]
+    pub enum Action {
+        Ack = "ack",
+        Shelve = "shelve",
+        Unshelve = "unshelve",
+        Reset = "reset",
+        OutOfService = "out_of_service",
+        InService = "in_service",
+        /// A zone's lining baseline: start learning.
+        BaselineStart = "baseline_start",
+        /// End learning now and use what is learned.
+        BaselineStop = "baseline_stop",
+        /// Forget the baseline (after a reline).
+        BaselineReset = "baseline_reset",
+    }
 }
 
 impl Action {
-    /// The wire name.
-    pub fn name(self) -> &'static str {
-        match self {
-            Action::Ack => "ack",
-            Action::Shelve => "shelve",
-            Action::Unshelve => "unshelve",
-            Action::Reset => "reset",
-            Action::OutOfService => "out_of_service",
-            Action::InService => "in_service",
-            Action::BaselineStart => "baseline_start",
-            Action::BaselineStop => "baseline_stop",
-            Action::BaselineReset => "baseline_reset",
-        }
-    }
-
     /// Whether the action addresses a zone's lining baseline (`zone`)
     /// rather than an alarm (`alarm`).
     pub fn is_baseline(self) -> bool {
@@ -87,21 +73,6 @@ impl Action {
             self,
             Action::BaselineStart | Action::BaselineStop | Action::BaselineReset
         )
-    }
-
-    fn from_name(name: &str) -> Option<Self> {
-        Some(match name {
-            "ack" => Action::Ack,
-            "shelve" => Action::Shelve,
-            "unshelve" => Action::Unshelve,
-            "reset" => Action::Reset,
-            "out_of_service" => Action::OutOfService,
-            "in_service" => Action::InService,
-            "baseline_start" => Action::BaselineStart,
-            "baseline_stop" => Action::BaselineStop,
-            "baseline_reset" => Action::BaselineReset,
-            _ => return None,
-        })
     }
 }
 

@@ -28,22 +28,13 @@ pub const BINS: usize = 40;
 /// States in a bin before it serves as a reference.
 pub const MIN_SAMPLES: u32 = 10;
 
-/// Where a baseline is in its life (see the module doc).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Serialize, Deserialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Phase {
-    None,
-    Learning,
-    Learned,
-}
-
-impl Phase {
-    pub fn name(self) -> &'static str {
-        match self {
-            Phase::None => "none",
-            Phase::Learning => "learning",
-            Phase::Learned => "learned",
-        }
+crate::word_enum! {
+    /// Where a baseline is in its life (see the module doc).
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Phase {
+        None = "none",
+        Learning = "learning",
+        Learned = "learned",
     }
 }
 

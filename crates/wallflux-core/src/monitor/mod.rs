@@ -18,8 +18,8 @@ use std::sync::Arc;
 
 use heapless::Deque;
 
-use crate::protocol::line::{Frame, Value};
 use crate::config::{BaselineStart, Model, Settings, Zone};
+use crate::protocol::line::{Frame, Value};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
 use alarm_engine::{AlarmEngine, AlarmOutput, AlarmReport};

@@ -31,51 +31,40 @@ pub const STALE_INTERVALS: f64 = 3.0;
 /// Points kept per probe for the measured-rate regression.
 pub const RATE_POINTS: usize = 64;
 
-/// How far a zone's numbers can be trusted, in order of severity (each
-/// later status withholds more; see docs/mqtt-topics.md for what each
-/// nulls and what an operator should do). `Ord` follows this order, so the
-/// worse of two is their `max`.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord, Serialize)]
-#[serde(rename_all = "snake_case")]
-pub enum ZoneStatus {
-    /// Every probe valid, the full model order fitted, the model's checks
-    /// passed.
-    Ok,
-    /// Numbers published from fewer probes than configured (or a reduced
-    /// model order); still vouched for by the checks.
-    Degraded,
-    /// The fit has no redundancy (its probes cannot test it) and the
-    /// surface cross-check disagrees beyond the combined uncertainty: the
-    /// extrapolated numbers (hot face, fluxes, loss) are withheld.
-    Unconfirmed,
-    /// A steady model contradicted by its probes while the wall heats or
-    /// cools: the model's numbers are withheld until the wall settles.
-    NotSteady,
-    /// The probes contradict the model while the wall is not changing fast
-    /// (wrong depths, materials or a bad probe), or the transient filter
-    /// diverged and was reset: the model's numbers are withheld.
-    Contradicted,
-    /// A published number failed a physical sanity check (a face outside
-    /// what its neighbouring measurements allow, a heat loss of the wrong
-    /// sign, a flux not finite or beyond any kiln's): withheld.
-    Implausible,
-    /// Too few valid probes: no model numbers at all.
-    InsufficientData,
+crate::word_enum! {
+    /// How far a zone's numbers can be trusted, in order of severity (each
+    /// later status withholds more; see docs/mqtt-topics.md for what each
+    /// nulls and what an operator should do). `Ord` follows this order, so the
+    /// worse of two is their `max`.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, PartialOrd, Ord)]
+    pub enum ZoneStatus {
+        /// Every probe valid, the full model order fitted, the model's checks
+        /// passed.
+        Ok = "ok",
+        /// Numbers published from fewer probes than configured (or a reduced
+        /// model order); still vouched for by the checks.
+        Degraded = "degraded",
+        /// The fit has no redundancy (its probes cannot test it) and the
+        /// surface cross-check disagrees beyond the combined uncertainty: the
+        /// extrapolated numbers (hot face, fluxes, loss) are withheld.
+        Unconfirmed = "unconfirmed",
+        /// A steady model contradicted by its probes while the wall heats or
+        /// cools: the model's numbers are withheld until the wall settles.
+        NotSteady = "not_steady",
+        /// The probes contradict the model while the wall is not changing fast
+        /// (wrong depths, materials or a bad probe), or the transient filter
+        /// diverged and was reset: the model's numbers are withheld.
+        Contradicted = "contradicted",
+        /// A published number failed a physical sanity check (a face outside
+        /// what its neighbouring measurements allow, a heat loss of the wrong
+        /// sign, a flux not finite or beyond any kiln's): withheld.
+        Implausible = "implausible",
+        /// Too few valid probes: no model numbers at all.
+        InsufficientData = "insufficient_data",
+    }
 }
 
 impl ZoneStatus {
-    pub fn name(self) -> &'static str {
-        match self {
-            ZoneStatus::Ok => "ok",
-            ZoneStatus::Degraded => "degraded",
-            ZoneStatus::Unconfirmed => "unconfirmed",
-            ZoneStatus::NotSteady => "not_steady",
-            ZoneStatus::Contradicted => "contradicted",
-            ZoneStatus::Implausible => "implausible",
-            ZoneStatus::InsufficientData => "insufficient_data",
-        }
-    }
-
     /// Does this status withhold the model's numbers (published as null)?
     pub fn withholds(self) -> bool {
         matches!(

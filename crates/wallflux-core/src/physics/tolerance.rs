@@ -17,46 +17,20 @@
 
 use super::thermocouple::TcType;
 
-/// A manufacturing tolerance class of a thermocouple (wire or assembly).
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum ToleranceClass {
-    /// IEC 60584-1:2013 class 1.
-    Iec1,
-    /// IEC 60584-1:2013 class 2.
-    Iec2,
-    /// IEC 60584-1:2013 class 3.
-    Iec3,
-    /// ASTM E230 standard limits of error.
-    AstmStandard,
-    /// ASTM E230 special limits of error.
-    AstmSpecial,
-}
-
-impl ToleranceClass {
-    /// All five classes.
-    pub const ALL: [ToleranceClass; 5] = [
-        ToleranceClass::Iec1,
-        ToleranceClass::Iec2,
-        ToleranceClass::Iec3,
-        ToleranceClass::AstmStandard,
-        ToleranceClass::AstmSpecial,
-    ];
-
-    /// The class named in a configuration file: `"iec-class-1"`,
-    /// `"iec-class-2"`, `"iec-class-3"`, `"astm-standard"`, `"astm-special"`.
-    pub fn from_name(s: &str) -> Option<Self> {
-        ToleranceClass::ALL.into_iter().find(|c| c.name() == s)
-    }
-
-    /// The configuration name (see [`ToleranceClass::from_name`]).
-    pub fn name(self) -> &'static str {
-        match self {
-            ToleranceClass::Iec1 => "iec-class-1",
-            ToleranceClass::Iec2 => "iec-class-2",
-            ToleranceClass::Iec3 => "iec-class-3",
-            ToleranceClass::AstmStandard => "astm-standard",
-            ToleranceClass::AstmSpecial => "astm-special",
-        }
+crate::word_enum! {
+    /// A manufacturing tolerance class of a thermocouple (wire or assembly).
+    #[derive(Clone, Copy, Debug, PartialEq, Eq)]
+    pub enum ToleranceClass {
+        /// IEC 60584-1:2013 class 1.
+        Iec1 = "iec-class-1",
+        /// IEC 60584-1:2013 class 2.
+        Iec2 = "iec-class-2",
+        /// IEC 60584-1:2013 class 3.
+        Iec3 = "iec-class-3",
+        /// ASTM E230 standard limits of error.
+        AstmStandard = "astm-standard",
+        /// ASTM E230 special limits of error.
+        AstmSpecial = "astm-special",
     }
 }
 
@@ -349,7 +323,7 @@ mod tests {
     fn bands_are_continuous_and_positive() {
         // No jumps inside a band (the R/S knee joins at 1100 °C), and every
         // defined tolerance is positive and finite.
-        for class in ToleranceClass::ALL {
+        for &class in ToleranceClass::ALL {
             for tc in TcType::ALL {
                 let Some((lo, hi)) = tolerance_range_c(class, tc) else {
                     continue;
@@ -387,7 +361,7 @@ mod tests {
 
     #[test]
     fn names_round_trip() {
-        for class in ToleranceClass::ALL {
+        for &class in ToleranceClass::ALL {
             assert_eq!(ToleranceClass::from_name(class.name()), Some(class));
         }
         assert_eq!(ToleranceClass::from_name("iec-class-1"), Some(Iec1));

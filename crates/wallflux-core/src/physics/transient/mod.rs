@@ -44,7 +44,6 @@ pub mod grid;
 pub mod model;
 mod steady;
 
-
 pub use estimator::{
     ForecastPoint, Limit, NodeEstimate, StepReport, TransientEstimator, TransientSettings,
 };
