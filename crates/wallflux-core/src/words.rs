@@ -27,6 +27,21 @@ impl fmt::Display for Choices {
     }
 }
 
+/// What [`word_enum!`] gives every enum, for code generic over them
+/// (config validation picks any enum's word the same way).
+pub trait Word: Sized + Copy + 'static {
+    /// Every variant's word, in declaration order.
+    const WORDS: &'static [&'static str];
+    /// The variant's word.
+    fn word(self) -> &'static str;
+    /// The variant whose word is `s`, if any.
+    fn from_word(s: &str) -> Option<Self>;
+    /// All words listed for an error message (`"a, b or c"`).
+    fn word_choices() -> Choices {
+        Choices(Self::WORDS)
+    }
+}
+
 /// Declares a field-less enum whose variants each carry their word:
 ///
 /// ```
@@ -80,6 +95,16 @@ macro_rules! word_enum {
             /// All words listed for an error message (`"a, b or c"`).
             pub const fn choices() -> $crate::words::Choices {
                 $crate::words::Choices(Self::WORDS)
+            }
+        }
+
+        impl $crate::words::Word for $name {
+            const WORDS: &'static [&'static str] = $name::WORDS;
+            fn word(self) -> &'static str {
+                self.name()
+            }
+            fn from_word(s: &str) -> Option<Self> {
+                Self::from_name(s)
             }
         }
 

@@ -229,10 +229,13 @@ pub struct LogSettings {
     pub summary_every: u32,
 }
 
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum SourceKind {
-    /// Line protocol v1 over a serial port.
-    Line,
+crate::word_enum! {
+    /// What a source speaks (`[[source]] kind`).
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum SourceKind {
+        /// Line protocol v1 over a serial port.
+        Line = "line",
+    }
 }
 
 #[derive(Debug, Clone)]
@@ -460,25 +463,28 @@ impl Settings {
     }
 }
 
-/// How a kiln is run (`[site] operation`), for its energy books.
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default, serde::Serialize)]
-#[serde(rename_all = "snake_case")]
-pub enum Operation {
-    /// Batch firings (a periodic kiln): energy per firing as well as per day.
-    #[default]
-    Periodic,
-    /// Always hot (a tunnel or roller kiln): per day and rolling 24 h, no firings.
-    Continuous,
+crate::word_enum! {
+    /// How a kiln is run (`[site] operation`), for its energy books.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+    pub enum Operation {
+        /// Batch firings (a periodic kiln): energy per firing as well as per day.
+        #[default]
+        Periodic = "periodic",
+        /// Always hot (a tunnel or roller kiln): per day and rolling 24 h, no firings.
+        Continuous = "continuous",
+    }
 }
 
-/// When a zone's lining baseline begins to learn (`[[zone]] baseline_start`).
-#[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
-pub enum BaselineStart {
-    /// At the first consistent state after the first run (a wall in service).
-    #[default]
-    FirstRun,
-    /// Only on the `baseline_start` command (a new or relined wall, after dry-out).
-    Command,
+crate::word_enum! {
+    /// When a zone's lining baseline begins to learn (`[[zone]] baseline_start`).
+    #[derive(Debug, Clone, Copy, PartialEq, Eq, Default)]
+    pub enum BaselineStart {
+        /// At the first consistent state after the first run (a wall in service).
+        #[default]
+        FirstRun = "first_run",
+        /// Only on the `baseline_start` command (a new or relined wall, after dry-out).
+        Command = "command",
+    }
 }
 
 /// What a channel measures (`[[channel]] type`).

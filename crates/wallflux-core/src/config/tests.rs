@@ -614,3 +614,68 @@ fn useless_settings_are_refused() {
         assert!(p[0].message.contains(words), "{path}: {}", p[0].message);
     }
 }
+
+#[test]
+fn a_misspelt_word_is_refused_listing_the_words_of_its_table() {
+    // Each key's refusal lists its enum's words in the config's spelling,
+    // from the one table that also parses and prints them.
+    let cases = [
+        (
+            "kind = \"line\"",
+            "kind = \"serial\"",
+            "source[0].kind",
+            "line",
+        ),
+        (
+            "signal = \"celsius\"",
+            "signal = \"Celsius\"",
+            "channel[0].signal",
+            "celsius or millivolts",
+        ),
+        (
+            "tolerance = \"iec-class-1\"\n",
+            "tolerance = \"class1\"\n",
+            "channel[0].tolerance",
+            "iec-class-1, iec-class-2, iec-class-3, astm-standard or astm-special",
+        ),
+        (
+            "model = \"quadratic\"",
+            "model = \"parabolic\"",
+            "zone[0].model",
+            "quadratic, layered or transient",
+        ),
+        (
+            "orientation = \"vertical\"",
+            "orientation = \"wall\"",
+            "zone[0].orientation",
+            "vertical, roof or floor",
+        ),
+        (
+            "kind = \"high\"",
+            "kind = \"RateHigh\"",
+            "alarm[0].kind",
+            "high, low, rate_high, deviation or diagnostic",
+        ),
+        (
+            "priority = \"low\"",
+            "priority = \"urgent\"",
+            "alarm[0].priority",
+            "critical, high, medium or low",
+        ),
+    ];
+    for (good, bad, path, words) in cases {
+        assert!(EXAMPLE.contains(good), "{good}");
+        let p = problems(&EXAMPLE.replacen(good, bad, 1));
+        let hit = p.iter().find(|p| p.path == path);
+        let Some(hit) = hit else {
+            panic!("{bad}: no problem at {path}: {p:?}")
+        };
+        let given = bad.split('"').nth(1).unwrap();
+        assert!(
+            hit.message.starts_with(&format!("{given:?} is not "))
+                && hit.message.ends_with(&format!("; use {words}")),
+            "{bad}: {}",
+            hit.message
+        );
+    }
+}

@@ -7,6 +7,8 @@ use std::path::PathBuf;
 
 use toml::Spanned;
 
+use crate::words::Word;
+
 use super::raw::*;
 use super::*;
 use crate::monitor::alarm::{AlarmKind, AlarmSpec, Priority};
@@ -230,6 +232,27 @@ impl Validator<'_> {
         });
     }
 
+    /// The variant of `T` whose word `s` is; else a problem that lists
+    /// every word, and `default` so that validation goes on.
+    fn word<T: Word>(&mut self, s: &Spanned<String>, path: &str, what: &str, default: T) -> T {
+        T::from_word(s.get_ref()).unwrap_or_else(|| {
+            let message = format!("{:?} is not {what}; use {}", s.get_ref(), T::word_choices());
+            self.problem(s.span(), path, message);
+            default
+        })
+    }
+
+    /// [`Self::word`] of an optional key, `default` when it is absent.
+    fn word_or<T: Word>(
+        &mut self,
+        s: Option<&Spanned<String>>,
+        path: &str,
+        what: &str,
+        default: T,
+    ) -> T {
+        s.map_or(default, |s| self.word(s, path, what, default))
+    }
+
     fn name(&mut self, s: &Spanned<String>, path: &str) -> Name {
         let v = s.get_ref();
         let ok_chars = v
@@ -385,18 +408,12 @@ impl Validator<'_> {
                 .firing_start_c
                 .as_ref()
                 .map_or(150.0, |f| self.celsius(f, "site.firing_start_c"));
-            let operation = match s.operation.as_ref().map(|o| (o, o.get_ref().as_str())) {
-                None | Some((_, "periodic")) => Operation::Periodic,
-                Some((_, "continuous")) => Operation::Continuous,
-                Some((o, other)) => {
-                    self.problem(
-                        o.span(),
-                        "site.operation",
-                        format!("{other:?} is not an operation; use \"periodic\" (batch firings) or \"continuous\" (always hot)"),
-                    );
-                    Operation::Periodic
-                }
-            };
+            let operation = self.word_or(
+                s.operation.as_ref(),
+                "site.operation",
+                "an operation (periodic: batch firings; continuous: always hot)",
+                Operation::Periodic,
+            );
             Site {
                 plant: self.name(&s.plant, "site.plant"),
                 kiln: self.name(&s.kiln, "site.kiln"),
@@ -828,35 +845,14 @@ impl Validator<'_> {
             }
             seen.push(name.clone());
             let builtin = alarms.iter().position(|b| b.builtin && b.name == name);
-            let kind = a.kind.as_ref().map(|k| match k.get_ref().as_str() {
-                "high" => AlarmKind::High,
-                "low" => AlarmKind::Low,
-                "rate_high" => AlarmKind::RateHigh,
-                "deviation" => AlarmKind::Deviation,
-                "diagnostic" => AlarmKind::Diagnostic,
-                other => {
-                    self.problem(
-                        k.span(),
-                        p("kind"),
-                        format!("{other:?} is not an alarm kind; use high, low, rate_high, deviation or diagnostic"),
-                    );
-                    AlarmKind::High
-                }
-            });
-            let priority = a.priority.as_ref().map(|k| match k.get_ref().as_str() {
-                "critical" => Priority::Critical,
-                "high" => Priority::High,
-                "medium" => Priority::Medium,
-                "low" => Priority::Low,
-                other => {
-                    self.problem(
-                        k.span(),
-                        p("priority"),
-                        format!("{other:?} is not a priority; use critical, high, medium or low"),
-                    );
-                    Priority::Medium
-                }
-            });
+            let kind = a
+                .kind
+                .as_ref()
+                .map(|k| self.word(k, &p("kind"), "an alarm kind", AlarmKind::High));
+            let priority = a
+                .priority
+                .as_ref()
+                .map(|k| self.word(k, &p("priority"), "a priority", Priority::Medium));
             let mut cfg = match builtin {
                 Some(b) => {
                     for (given, key) in [
@@ -1189,24 +1185,18 @@ impl Validator<'_> {
     fn source(&mut self, i: usize, s: &RawSource) -> Source {
         let p = |k: &str| format!("source[{i}].{k}");
         let name = self.name(&s.name, &p("name"));
-        let kind = match s.kind.get_ref().as_str() {
-            "line" => SourceKind::Line,
-            "modbus-rtu" => {
-                self.problem(
-                    s.kind.span(),
-                    p("kind"),
-                    "\"modbus-rtu\" is not supported by this version yet; use \"line\"",
-                );
-                SourceKind::Line
-            }
-            other => {
-                self.problem(
-                    s.kind.span(),
-                    p("kind"),
-                    format!("{other:?} is not a source kind; use \"line\""),
-                );
-                SourceKind::Line
-            }
+        let kind = if s.kind.get_ref() == "modbus-rtu" {
+            self.problem(
+                s.kind.span(),
+                p("kind"),
+                format!(
+                    "\"modbus-rtu\" is not supported by this version yet; use {}",
+                    SourceKind::choices()
+                ),
+            );
+            SourceKind::Line
+        } else {
+            self.word(&s.kind, &p("kind"), "a source kind", SourceKind::Line)
         };
         if s.port.get_ref().is_empty() {
             self.problem(
@@ -1297,36 +1287,13 @@ impl Validator<'_> {
                 TcType::K
             }
         };
-        let signal = match c.signal.as_ref().map(|s| s.get_ref().as_str()) {
-            None | Some("celsius") => Signal::Celsius,
-            Some("millivolts") => Signal::Millivolts,
-            Some(other) => {
-                let span = c.signal.as_ref().map(|s| s.span()).unwrap_or_default();
-                self.problem(
-                    span,
-                    p("signal"),
-                    format!("{other:?} is not a signal; use \"celsius\" or \"millivolts\""),
-                );
-                Signal::Celsius
-            }
-        };
-        let tolerance = match &c.tolerance {
-            None => ToleranceClass::Iec2,
-            Some(t) => match ToleranceClass::from_name(t.get_ref()) {
-                Some(class) => class,
-                None => {
-                    self.problem(
-                        t.span(),
-                        p("tolerance"),
-                        format!(
-                            "{:?} is not a tolerance class; use iec-class-1, iec-class-2, iec-class-3, astm-standard or astm-special",
-                            t.get_ref()
-                        ),
-                    );
-                    ToleranceClass::Iec2
-                }
-            },
-        };
+        let signal = self.word_or(c.signal.as_ref(), &p("signal"), "a signal", Signal::Celsius);
+        let tolerance = self.word_or(
+            c.tolerance.as_ref(),
+            &p("tolerance"),
+            "a tolerance class",
+            ToleranceClass::Iec2,
+        );
         let uncertainty_c = c
             .uncertainty_c
             .as_ref()
@@ -1554,38 +1521,16 @@ impl Validator<'_> {
             INTERVAL_S.1,
             "seconds",
         );
-        let model = match z.model.get_ref().as_str() {
-            "quadratic" => Model::Quadratic,
-            "layered" => Model::Layered,
-            "transient" => Model::Transient,
-            other => {
-                self.problem(
-                    z.model.span(),
-                    p("model"),
-                    format!(
-                        "{other:?} is not a model; use \"quadratic\", \"layered\" or \"transient\""
-                    ),
-                );
-                // The placeholder with no model-specific refusal (any
-                // number of layers, interfaces, a fallback): one error for
-                // a misspelt name, not a cascade.
-                Model::Layered
-            }
-        };
-        let orientation = match z.orientation.as_ref().map(|o| o.get_ref().as_str()) {
-            None | Some("vertical") => Orientation::Vertical,
-            Some("roof") => Orientation::Roof,
-            Some("floor") => Orientation::Floor,
-            Some(other) => {
-                let span = z.orientation.as_ref().map(|o| o.span()).unwrap_or_default();
-                self.problem(
-                    span,
-                    p("orientation"),
-                    format!("{other:?} is not an orientation; use vertical, roof or floor"),
-                );
-                Orientation::Vertical
-            }
-        };
+        // A misspelt model stands in as `layered`, the one with no
+        // model-specific refusal (any number of layers, interfaces, a
+        // fallback): one error for the name, not a cascade.
+        let model = self.word(&z.model, &p("model"), "a model", Model::Layered);
+        let orientation = self.word_or(
+            z.orientation.as_ref(),
+            &p("orientation"),
+            "an orientation",
+            Orientation::Vertical,
+        );
         let height_m = z
             .height_m
             .as_ref()
@@ -1685,18 +1630,12 @@ impl Validator<'_> {
             }
             i
         });
-        let baseline_start = match z.baseline_start.as_ref().map(|b| (b, b.get_ref().as_str())) {
-            None | Some((_, "first_run")) => BaselineStart::FirstRun,
-            Some((_, "command")) => BaselineStart::Command,
-            Some((b, other)) => {
-                self.problem(
-                    b.span(),
-                    p("baseline_start"),
-                    format!("{other:?} is not a baseline start; use \"first_run\" or \"command\""),
-                );
-                BaselineStart::FirstRun
-            }
-        };
+        let baseline_start = self.word_or(
+            z.baseline_start.as_ref(),
+            &p("baseline_start"),
+            "a baseline start",
+            BaselineStart::FirstRun,
+        );
         let lining_min_mm = z
             .lining_min_mm
             .as_ref()

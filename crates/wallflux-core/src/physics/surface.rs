@@ -49,17 +49,19 @@ pub const RE_TRANSITION: f64 = 5e5;
 /// laminar to the turbulent branch (Incropera eqs. 9.30–9.31).
 pub const RA_HORIZONTAL_UP_TURBULENT: f64 = 1e7;
 
-/// Which way the shell surface faces.
-#[derive(Clone, Copy, Debug, PartialEq, Eq)]
-pub enum Orientation {
-    /// A vertical wall; the characteristic length is its height.
-    Vertical,
-    /// A horizontal surface facing up (a roof or crown, hot surface up); the
-    /// characteristic length is area / perimeter.
-    Roof,
-    /// A horizontal surface facing down (the underside of a floor or hearth,
-    /// hot surface down); the characteristic length is area / perimeter.
-    Floor,
+crate::word_enum! {
+    /// Which way the shell surface faces.
+    #[derive(Clone, Copy, Debug, PartialEq, Eq)]
+    pub enum Orientation {
+        /// A vertical wall; the characteristic length is its height.
+        Vertical = "vertical",
+        /// A horizontal surface facing up (a roof or crown, hot surface up); the
+        /// characteristic length is area / perimeter.
+        Roof = "roof",
+        /// A horizontal surface facing down (the underside of a floor or hearth,
+        /// hot surface down); the characteristic length is area / perimeter.
+        Floor = "floor",
+    }
 }
 
 /// The shell surface and its environment.
