@@ -203,7 +203,12 @@ fn layered_zone_during_a_heat_up_is_not_steady_and_withholds_what_it_cannot_vouc
                 assert_eq!(r.hot_face_c, None);
                 assert_eq!(r.flux_shell_w_m2, None);
                 assert_eq!(r.heat_loss_w, None);
-                assert!(r.model_note.is_some_and(|n| n.contains("steady")), "{r:?}");
+                assert!(
+                    r.model_note
+                        .as_deref()
+                        .is_some_and(|n| n.contains("steady")),
+                    "{r:?}"
+                );
                 // The measured values stay.
                 assert!(r.probes.iter().all(|p| p.measured_c.is_some()));
                 assert_eq!(r.shell_c, r.probes[4].measured_c);
@@ -299,7 +304,10 @@ fn quadratic_zone_without_redundancy_is_not_steady_while_its_rates_disagree() {
                 assert_eq!(r.heat_loss_w, None);
                 assert_eq!(r.flux_shell_w_m2, None);
                 assert_eq!(r.hot_face_c, None);
-                assert!(r.model_note.is_some_and(|n| n.contains("steady")));
+                assert!(r
+                    .model_note
+                    .as_deref()
+                    .is_some_and(|n| n.contains("steady")));
             }
         }
     }
@@ -524,5 +532,62 @@ fn a_transient_filter_that_diverges_is_contradicted() {
     assert!(
         !counts.contains_key("degraded"),
         "every probe is valid: {counts:?}"
+    );
+}
+
+/// A model that gives no numbers says why: the model's own typed error
+/// reaches the zone state as `model_note` (not a bare `insufficient_data`).
+/// Here only the shallowest of three probes reports, so a steady fit has
+/// one depth where it needs at least two, and the transient filter has a
+/// reading to start from only once one arrives.
+#[test]
+fn a_model_without_numbers_says_why_in_its_note() {
+    let depths = [40.0, 120.0, 200.0];
+    let layers = "{ material = \"dense\", thickness_mm = 230 }";
+    for (model, expected) in [
+        (
+            "layered",
+            "the layered model gave no numbers this cycle: too few",
+        ),
+        (
+            "quadratic",
+            "the quadratic model gave no numbers this cycle: too few",
+        ),
+    ] {
+        let settings = Arc::new(config::parse(&config(model, layers, &depths), "t", None).unwrap());
+        let mut m = Monitor::new(settings, Timestamp::from_epoch_s(T0));
+        let mut notes = Vec::new();
+        for minute in 1..=5 {
+            let now = Timestamp::from_epoch_s(T0 + 60.0 * f64::from(minute));
+            m.handle_value(
+                0,
+                Value::Reading {
+                    value: 400.0,
+                    unit: Unit::Celsius,
+                },
+                None,
+                now,
+            );
+            while let Some(r) = m.poll_zone(now) {
+                assert_eq!(r.status, ZoneStatus::InsufficientData, "{model}");
+                assert_eq!(r.hot_face_c, None, "{model}");
+                notes.push(r.model_note.expect("a note").to_string());
+            }
+        }
+        assert!(!notes.is_empty(), "{model}: no zone state");
+        for n in &notes {
+            assert!(n.starts_with(expected), "{model}: {n}");
+        }
+    }
+    // The transient model with no reading at all waits, and says so.
+    let settings =
+        Arc::new(config::parse(&config("transient", layers, &depths), "t", None).unwrap());
+    let mut m = Monitor::new(settings, Timestamp::from_epoch_s(T0));
+    let now = Timestamp::from_epoch_s(T0 + 120.0);
+    let r = m.poll_zone(now).expect("a zone state");
+    assert_eq!(r.status, ZoneStatus::InsufficientData);
+    assert_eq!(
+        r.model_note.as_deref(),
+        Some("the transient model gave no numbers this cycle: no valid probe reading this cycle (the model needs at least one to start from and to publish its estimate)")
     );
 }

@@ -10,6 +10,7 @@ pub mod channel;
 pub mod command;
 pub mod energy;
 pub mod lining;
+pub mod model;
 pub mod trend;
 pub mod wall;
 pub mod zone;

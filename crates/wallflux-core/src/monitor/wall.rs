@@ -5,8 +5,9 @@
 use heapless::Vec as HVec;
 
 use crate::config::{Model, Settings, Zone};
+use crate::physics::fit::FitError;
 use crate::physics::layered::{
-    self, LayerSpec, LayeredSolution, LayeredWall, ModelCheck, MAX_LAYERS, MAX_PROBES,
+    self, LayerSpec, LayeredError, LayeredSolution, LayeredWall, ModelCheck, MAX_LAYERS, MAX_PROBES,
 };
 use crate::physics::material::Material;
 use crate::physics::profile::{ProbeSample, QuadraticWall, WallSolution};
@@ -51,29 +52,57 @@ enum Solution {
     Layered(LayeredSolution),
 }
 
+/// Why a zone has no steady wall, or its fit failed.
+#[derive(Debug, Clone, PartialEq, thiserror::Error)]
+pub enum WallError {
+    /// The zone's model is not a steady one.
+    #[error("the {0} model has no steady wall")]
+    NotSteady(Model),
+    /// A layer names no known material (validation refuses such a config).
+    #[error("a layer's material is not known")]
+    NoMaterial,
+    #[error(transparent)]
+    Layered(#[from] LayeredError),
+    #[error(transparent)]
+    Fit(#[from] FitError),
+}
+
 impl<'a> Wall<'a> {
+    /// The zone's steady wall (`quadratic` or `layered`), if it has one.
     pub fn new(zone: &Zone, settings: &'a Settings) -> Option<Wall<'a>> {
+        Self::try_new(zone, settings).ok()
+    }
+
+    /// The zone's steady wall, or why it has none.
+    pub fn try_new(zone: &Zone, settings: &'a Settings) -> Result<Wall<'a>, WallError> {
+        let material = |i: usize| {
+            settings
+                .materials
+                .get(i)
+                .map(|m| &m.material)
+                .ok_or(WallError::NoMaterial)
+        };
         match zone.model {
             Model::Quadratic => {
-                let layer = zone.layers.first()?;
-                Some(Wall::Quadratic(QuadraticWall {
+                let layer = zone.layers.first().ok_or(WallError::NoMaterial)?;
+                Ok(Wall::Quadratic(QuadraticWall {
                     thickness_m: zone.thickness_m(),
-                    material: &settings.materials.get(layer.material)?.material,
+                    material: material(layer.material)?,
                 }))
             }
             Model::Layered => {
                 let mut specs: HVec<LayerSpec<'a>, MAX_LAYERS> = HVec::new();
                 for l in &zone.layers {
                     let _ = specs.push(LayerSpec {
-                        material: &settings.materials.get(l.material)?.material,
+                        material: material(l.material)?,
                         thickness_m: l.thickness_m,
                         contact_m2k_w: l.contact_m2k_w,
                     });
                 }
-                LayeredWall::new(&specs).ok().map(Wall::Layered)
+                Ok(Wall::Layered(LayeredWall::new(&specs)?))
             }
-            // Stateful: the zone engine runs it (see `ZoneEngine`).
-            Model::Transient => None,
+            // Stateful: `monitor::model::transient` runs it.
+            Model::Transient => Err(WallError::NotSteady(zone.model)),
         }
     }
 
@@ -101,12 +130,13 @@ impl<'a> Wall<'a> {
         }
     }
 
-    pub fn solve(&self, samples: &[ProbeSample]) -> Option<Fit> {
+    /// The fit to `samples`, or the model's reason for none.
+    pub fn solve(&self, samples: &[ProbeSample]) -> Result<Fit, WallError> {
         match self {
             Wall::Quadratic(q) => {
-                let s = q.solve(samples).ok()?;
+                let s = q.solve(samples)?;
                 let dof = s.fit.dof;
-                Some(Fit {
+                Ok(Fit {
                     hot_face_c: s.hot_face_c,
                     shell_c: s.shell_c,
                     flux_hot_face_w_m2: s.flux_hot_face_w_m2,
@@ -127,12 +157,12 @@ impl<'a> Wall<'a> {
                 })
             }
             Wall::Layered(l) => {
-                let s = l.solve(samples).ok()?;
+                let s = l.solve(samples)?;
                 let mut interface_c = HVec::new();
                 for (t, sd) in s.interface_c.iter().zip(&s.sigma_interface_c) {
                     let _ = interface_c.push((*t, *sd));
                 }
-                Some(Fit {
+                Ok(Fit {
                     hot_face_c: s.hot_face_c,
                     shell_c: s.shell_c,
                     flux_hot_face_w_m2: s.flux_w_m2,

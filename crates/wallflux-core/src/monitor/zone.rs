@@ -7,22 +7,23 @@ use serde::Serialize;
 
 use super::channel::{ChannelState, Health, Reading};
 use super::lining::Baseline;
+use super::model::transient::MAX_LIMITS;
+use super::model::{self, note, ModelInput, Note, ZoneModel};
 use super::wall::Wall;
 use crate::config::{Model, NamedMaterial};
 use crate::config::{Name, Settings, Zone, MAX_FORECASTS, MAX_PROBES};
 use crate::physics::fit::linear_slope;
-use crate::physics::layered::{HotFaceReading, ModelCheck, MAX_LAYERS};
-use crate::physics::profile::{heat_loss_w, ProbeSample};
+use crate::physics::layered::MAX_LAYERS;
+use crate::physics::profile::ProbeSample;
 use crate::physics::surface::{surface_loss, SurfaceLoss};
-use crate::physics::transient::MAX_NODES;
-use crate::physics::transient::{
-    Limit, ShellBoundary, TransientError, TransientEstimator, TransientLayer, TransientSettings,
-};
+use crate::physics::transient::ShellBoundary;
 use crate::physics::uncertainty::{
-    transient_budget, Budget, TransientInputs, TransientLayerInput, OUT_FLUX_HOT_FACE,
-    OUT_FLUX_SHELL, OUT_HOT_FACE, OUT_INTERFACE, OUT_RESISTANCE, OUT_SHELL,
+    Budget, OUT_FLUX_HOT_FACE, OUT_FLUX_SHELL, OUT_HOT_FACE, OUT_SHELL,
 };
 use crate::time::Timestamp;
+
+pub use super::model::steady::FAST_RATE_C_PER_H;
+pub use super::model::transient::{ForecastReport, LimitReport};
 
 /// Schema tag of the zone-state payload.
 pub const ZONE_SCHEMA: &str = "wallflux.zone/1";
@@ -201,7 +202,7 @@ pub struct ZoneReport {
     pub model_check: Option<&'static str>,
     /// Why, in words, when the check says contradicted.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub model_note: Option<&'static str>,
+    pub model_note: Option<Note>,
     /// Transient model: the estimated hot-face rate, °C/h.
     #[serde(skip_serializing_if = "Option::is_none")]
     pub hot_face_rate_c_per_h: Option<f64>,
@@ -215,7 +216,7 @@ pub struct ZoneReport {
     /// Transient model: hours until each limit is reached, within the
     /// longest forecast horizon.
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub time_to_limit_h: Option<HVec<LimitReport, 9>>,
+    pub time_to_limit_h: Option<HVec<LimitReport, MAX_LIMITS>>,
     /// Layered model with a hot-face reading: the measured thermal
     /// resistance (T_hot − T_shell)/q against its baseline learned over
     /// `baseline_days` at comparable hot-face temperature, % (negative: less
@@ -254,7 +255,7 @@ struct ProbeTrack {
 }
 
 /// One zone's engine state.
-#[derive(Debug, Clone)]
+#[derive(Debug)]
 pub struct ZoneEngine {
     index: usize,
     pub next_due: Timestamp,
@@ -264,39 +265,36 @@ pub struct ZoneEngine {
     pub cycles: u64,
     /// Zone-level faults of each probe from the last cycle (stuck, outlier).
     pub diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES>,
-    /// The transient model's estimator (model = "transient"), or why it
-    /// could not be built.
-    transient: Option<Result<Box<TransientEstimator>, TransientError>>,
-    last_step: Option<Timestamp>,
+    /// The zone's `model`.
+    model: Box<dyn ZoneModel>,
+    /// The zone's `fallback`: run every cycle beside a steady model, so that
+    /// it has followed the wall when the steady model cannot.
+    fallback: Option<Box<dyn ZoneModel>>,
     /// Learned thermal-resistance baseline (layered model).
     pub baseline: Baseline,
 }
 
+/// Each probe's reading this cycle, in configured probe order.
+struct Freshened {
+    /// The fresh reading (None: stale or missing).
+    fresh: HVec<Option<Reading>, MAX_PROBES>,
+    /// Measured rate over the rate window, °C/h.
+    rates: HVec<Option<f64>, MAX_PROBES>,
+    /// Span of the readings over the rate window, °C (stuck test).
+    spans: HVec<Option<f64>, MAX_PROBES>,
+}
+
+/// The samples that survive the diagnostics.
+struct Valid {
+    samples: HVec<ProbeSample, MAX_PROBES>,
+    /// The probe of each sample.
+    probe: HVec<usize, MAX_PROBES>,
+    /// Each sample's depth standard uncertainty, m.
+    depth_sigma_m: HVec<f64, MAX_PROBES>,
+}
+
 impl ZoneEngine {
     pub fn new(index: usize, zone: &Zone, materials: &[NamedMaterial], start: Timestamp) -> Self {
-        // The transient estimator is built once (its covariance is large):
-        // no allocation per cycle.
-        let transient = (zone.model == Model::Transient || zone.fallback == Some(Model::Transient))
-            .then(|| {
-                let layers: Vec<TransientLayer<'_>> = zone
-                    .layers
-                    .iter()
-                    .filter_map(|l| {
-                        materials.get(l.material).map(|m| TransientLayer {
-                            material: &m.material,
-                            thickness_m: l.thickness_m,
-                            contact_m2k_w: l.contact_m2k_w,
-                        })
-                    })
-                    .collect();
-                let settings = TransientSettings {
-                    cells_per_layer: zone.cells_per_layer,
-                    ..TransientSettings::default()
-                };
-                let depths: Vec<f64> = zone.probes.iter().map(|p| p.depth_m).collect();
-                TransientEstimator::new(&layers, transient_shell(zone), settings)
-                    .map(|e| Box::new(e.graded(&depths, zone.interval_s)))
-            });
         let mut tracks = HVec::new();
         for _ in zone.probes.iter().take(MAX_PROBES) {
             let _ = tracks.push(ProbeTrack {
@@ -310,67 +308,65 @@ impl ZoneEngine {
             origin: start,
             cycles: 0,
             diagnosis: HVec::new(),
-            transient,
-            last_step: None,
+            model: model::build(zone.model, zone, materials),
+            fallback: zone
+                .fallback
+                .filter(|&f| f != zone.model)
+                .map(|f| model::build(f, zone, materials)),
             baseline: Baseline::default(),
         }
     }
 
-    /// Runs one cycle at `now` over the channels' current states: the
-    /// model's numbers, then [`vet`] over every published number.
+    /// Runs one cycle at `now` over the channels' current states:
+    /// freshen (readings and their rates) → diagnose (stuck, outlier) →
+    /// fit (the model, and the fallback's view) → report ([`vet`] over
+    /// every published number, the fallback's view where the steady model
+    /// cannot follow the wall).
     pub fn cycle(
         &mut self,
         settings: &Settings,
         channels: &[ChannelState],
         now: Timestamp,
     ) -> ZoneReport {
-        let mut view = None;
-        let mut report = self.cycle_models(settings, channels, now, &mut view);
-        let zone = &settings.zones[self.index];
-        // Each probe's standard uncertainty, for the checks' tolerances.
-        let mut sigma_c: HVec<Option<f64>, MAX_PROBES> = HVec::new();
-        for p in zone.probes.iter().take(MAX_PROBES) {
-            // Cannot fail: as many as the probes, at most MAX_PROBES.
-            let _ = sigma_c.push(
-                channels
-                    .get(p.channel)
-                    .and_then(|c| c.latest)
-                    .map(|r| r.sigma_c),
-            );
-        }
-        vet(&mut report, zone, &sigma_c);
-        if let Some(mut v) = view {
-            vet(&mut v, zone, &sigma_c);
-            report.model_used = Some(zone.model.name());
-            if report.status == ZoneStatus::NotSteady && v.status < ZoneStatus::Unconfirmed {
-                v.model = report.model;
-                v.model_used = Some(Model::Transient.name());
-                v.model_note = Some(NOTE_FALLBACK);
-                report = v;
-            }
-        }
-        report
-    }
-
-    /// The model's numbers for one cycle, before vetting; `view`: the
-    /// transient view of a zone whose `fallback` is `transient`.
-    fn cycle_models(
-        &mut self,
-        settings: &Settings,
-        channels: &[ChannelState],
-        now: Timestamp,
-        view: &mut Option<ZoneReport>,
-    ) -> ZoneReport {
         let zone = &settings.zones[self.index];
         self.cycles += 1;
         let max_age_s = STALE_INTERVALS * zone.interval_s;
-        let spacing_s = zone.rate_window_s / (RATE_POINTS as f64 - 1.0);
-        let wall = Wall::new(zone, settings);
+        let readings = self.freshen(zone, channels, now, max_age_s);
+        let valid = self.diagnose(settings, zone, &readings);
+        let measured = self.measured(settings, zone, channels, &readings, &valid, now, max_age_s);
+        let input = ModelInput {
+            settings,
+            zone_index: self.index,
+            zone,
+            channels,
+            samples: &valid.samples,
+            depth_sigma_m: &valid.depth_sigma_m,
+            max_age_s,
+            now,
+        };
+        let baseline = &mut self.baseline;
+        let view = self
+            .fallback
+            .as_mut()
+            .map(|m| fit(m.as_mut(), &input, baseline, measured.clone()));
+        let report = fit(self.model.as_mut(), &input, baseline, measured);
+        reported(zone, channels, report, view)
+    }
 
-        // 1. Fresh readings and their histories.
-        let mut fresh: HVec<Option<Reading>, MAX_PROBES> = HVec::new();
-        let mut rates: HVec<Option<f64>, MAX_PROBES> = HVec::new();
-        let mut spans: HVec<Option<f64>, MAX_PROBES> = HVec::new();
+    /// The fresh reading of each probe, its history and measured rate.
+    fn freshen(
+        &mut self,
+        zone: &Zone,
+        channels: &[ChannelState],
+        now: Timestamp,
+        max_age_s: f64,
+    ) -> Freshened {
+        let spacing_s = zone.rate_window_s / (RATE_POINTS as f64 - 1.0);
+        let mut out = Freshened {
+            fresh: HVec::new(),
+            rates: HVec::new(),
+            spans: HVec::new(),
+        };
         let now_s = now.since(self.origin);
         for (probe, track) in zone.probes.iter().zip(self.tracks.iter_mut()) {
             let r = channels[probe.channel].fresh(now, max_age_s);
@@ -384,68 +380,91 @@ impl ZoneEngine {
                     track.history.write((t, r.celsius));
                 }
             }
-            let _ = rates.push(r.and_then(|_| {
+            let _ = out.rates.push(r.and_then(|_| {
                 measured_rate_c_per_h(&track.history, now_s, zone.rate_window_s, zone.interval_s)
             }));
-            let _ = spans
+            let _ = out
+                .spans
                 .push(r.and_then(|_| history_span_c(&track.history, now_s, zone.rate_window_s)));
-            let _ = fresh.push(r);
+            let _ = out.fresh.push(r);
         }
+        out
+    }
 
-        // 2. Diagnostics the zone can make and a channel alone cannot.
+    /// Diagnostics the zone can make and a channel alone cannot (stuck,
+    /// outlier), into `self.diagnosis`; the samples that remain.
+    fn diagnose(&mut self, settings: &Settings, zone: &Zone, readings: &Freshened) -> Valid {
         let mut depths: HVec<f64, MAX_PROBES> = HVec::new();
         for p in zone.probes.iter().take(MAX_PROBES) {
             let _ = depths.push(p.depth_m);
         }
         let mut diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES> = HVec::new();
-        for i in 0..fresh.len() {
-            let _ = diagnosis.push(stuck(&spans, &depths, i).then_some((
+        for i in 0..readings.fresh.len() {
+            let _ = diagnosis.push(stuck(&readings.spans, &depths, i).then_some((
                 Health::Stuck,
                 "the same value repeated exactly while a neighbouring probe changes",
             )));
         }
-        let mut samples: HVec<ProbeSample, MAX_PROBES> = HVec::new();
-        let mut sample_probe: HVec<usize, MAX_PROBES> = HVec::new();
-        for (i, (probe, r)) in zone.probes.iter().zip(&fresh).enumerate() {
+        let mut valid = Valid {
+            samples: HVec::new(),
+            probe: HVec::new(),
+            depth_sigma_m: HVec::new(),
+        };
+        for (i, (probe, r)) in zone.probes.iter().zip(&readings.fresh).enumerate() {
             if let (Some(r), None) = (r, diagnosis[i]) {
-                let _ = samples.push(ProbeSample {
+                let _ = valid.samples.push(ProbeSample {
                     depth_m: probe.depth_m,
                     temp_c: r.celsius,
                     sigma_c: r.sigma_c,
                 });
-                let _ = sample_probe.push(i);
+                let _ = valid.probe.push(i);
             }
         }
         // Outliers only while the wall is near steady state: in a
         // transient the model's own misfit (steep curvature near the hot
         // face) would be blamed on a healthy probe. So every probe must be
         // changing slowly, the suspect too (a probe that jumped is judged
-        // once its rate window has passed the jump).
+        // once its rate window has passed the jump). The test needs a
+        // steady wall; a transient zone has none and skips it.
         let mut sample_rates: HVec<Option<f64>, MAX_PROBES> = HVec::new();
-        for &i in &sample_probe {
-            let _ = sample_rates.push(rates[i]);
+        for &i in &valid.probe {
+            let _ = sample_rates.push(readings.rates[i]);
         }
-        if let Some(k) = wall
+        if let Some(k) = Wall::new(zone, settings)
             .as_ref()
-            .and_then(|w| outlier(w, &samples, &sample_rates))
+            .and_then(|w| outlier(w, &valid.samples, &sample_rates))
         {
-            diagnosis[sample_probe[k]] = Some((
+            diagnosis[valid.probe[k]] = Some((
                 Health::Outlier,
                 "inconsistent with the zone's other probes (leave-one-out residual)",
             ));
-            samples.remove(k);
-            sample_probe.remove(k);
+            valid.samples.remove(k);
+            valid.probe.remove(k);
         }
-        // Each sample's depth uncertainty, for the uncertainty budget.
-        let mut depth_sigma_m: HVec<f64, MAX_PROBES> = HVec::new();
-        for &i in &sample_probe {
-            let _ = depth_sigma_m.push(zone.probes[i].depth_sigma_m);
+        for &i in &valid.probe {
+            let _ = valid.depth_sigma_m.push(zone.probes[i].depth_sigma_m);
         }
+        self.diagnosis = diagnosis;
+        valid
+    }
 
+    /// The report of what was measured, before any model: each probe's
+    /// reading, rate and status; status `insufficient_data`.
+    #[allow(clippy::too_many_arguments)]
+    fn measured(
+        &self,
+        settings: &Settings,
+        zone: &Zone,
+        channels: &[ChannelState],
+        readings: &Freshened,
+        valid: &Valid,
+        now: Timestamp,
+        max_age_s: f64,
+    ) -> ZoneReport {
         let mut probes: HVec<ProbeReport, MAX_PROBES> = HVec::new();
         for (i, probe) in zone.probes.iter().enumerate() {
             let (health, _) = channels[probe.channel].health_at(now, max_age_s);
-            let status = match (fresh[i], diagnosis[i]) {
+            let status = match (readings.fresh[i], self.diagnosis[i]) {
                 (_, Some((h, _))) => h,
                 (Some(_), None) => Health::Ok,
                 (None, None) => health,
@@ -453,16 +472,14 @@ impl ZoneEngine {
             let _ = probes.push(ProbeReport {
                 channel: settings.channels[probe.channel].name.clone(),
                 depth_mm: probe.depth_m * 1000.0,
-                measured_c: fresh[i].map(|r| r.celsius),
+                measured_c: readings.fresh[i].map(|r| r.celsius),
                 fitted_c: None,
-                rate_measured_c_per_h: rates[i],
+                rate_measured_c_per_h: readings.rates[i],
                 rate_model_c_per_h: None,
                 status,
             });
         }
-        self.diagnosis = diagnosis;
-
-        let mut report = ZoneReport {
+        ZoneReport {
             schema: ZONE_SCHEMA,
             time: now,
             zone: zone.name.clone(),
@@ -492,188 +509,64 @@ impl ZoneEngine {
             time_to_limit_h: None,
             resistance_change_pct: None,
             lining_remaining_mm: None,
-            probes_used: samples.len() as u8,
+            probes_used: valid.samples.len() as u8,
             uncertainty: None,
             probes,
             lining_baseline: None,
             model_used: None,
             hot_face_measured_c: None,
-        };
-        // The fallback's transient view runs every cycle, so that it has
-        // followed the wall when the steady model needs it.
-        if zone.model != Model::Transient && zone.fallback == Some(Model::Transient) {
-            let mut v = report.clone();
-            v.model = Model::Transient.name();
-            self.transient_cycle(settings, &samples, &depth_sigma_m, &mut v, now);
-            *view = Some(v);
         }
-        if zone.model == Model::Transient {
-            self.transient_cycle(settings, &samples, &depth_sigma_m, &mut report, now);
-            return report;
-        }
-        let Some(wall) = wall else {
-            return report;
-        };
-        report.stored_w_m2 = stored_w_m2(&report.probes, &wall);
-        let Some(sol) = wall.solve(&samples) else {
-            return report;
-        };
-        let full_order = match zone.model {
-            Model::Quadratic => sol.degree == Some(if zone.probes.len() >= 3 { 2 } else { 1 }),
-            Model::Layered | Model::Transient => true,
-        };
-        // Data that contradict the model (residuals beyond what the probes'
-        // uncertainties allow: the wall is not at steady state, or a probe
-        // or the model is wrong) degrade the zone, with the reason.
-        report.model_check = Some(check_name(sol.check));
-        report.model_note = (sol.check == ModelCheck::Contradicted).then(|| {
-            if changing_fast(&report.probes) {
-                NOTE_NOT_STEADY
-            } else {
-                NOTE_CONTRADICTED
-            }
-        });
-        report.status = if sol.check == ModelCheck::Contradicted {
-            if changing_fast(&report.probes) {
-                ZoneStatus::NotSteady
-            } else {
-                ZoneStatus::Contradicted
-            }
-        } else if samples.len() == zone.probes.len() && full_order {
-            ZoneStatus::Ok
-        } else {
-            ZoneStatus::Degraded
-        };
-        for p in report.probes.iter_mut() {
-            let x = p.depth_mm / 1000.0;
-            p.fitted_c = wall.fitted(&sol, x).map(|(t, _)| t);
-            p.rate_model_c_per_h = wall.model_rate_c_per_s(&sol, x).map(|r| r * 3600.0);
-        }
-        // A steady model's own heat equation fixes the rate at every probe
-        // (zero for a layered or linear profile, the curvature's uniform
-        // rate for a quadratic one). Measured rates that differ say the
-        // wall is not in the state the model assumes, even where the fit
-        // passes through every probe and so cannot be checked by them.
-        let unsteady = rates_contradict_steady(&report.probes);
-        if !report.status.withholds() && unsteady {
-            report.status = ZoneStatus::NotSteady;
-            report.model_note = Some(NOTE_NOT_STEADY);
-        }
-        let hot_reading = zone
-            .hot_face_channel
-            .and_then(|hf| channels.get(hf))
-            .and_then(|c| c.fresh(now, max_age_s));
-        report.hot_face_measured_c = hot_reading.map(|r| r.celsius);
-        report.hot_face_c = Some(sol.hot_face_c);
-        report.shell_c = Some(sol.shell_c);
-        report.flux_hot_face_w_m2 = Some(sol.flux_hot_face_w_m2);
-        report.flux_shell_w_m2 = Some(sol.flux_shell_w_m2);
-        report.heat_loss_w = Some(heat_loss_w(sol.flux_shell_w_m2, zone.area_m2));
-        report.source_w_m3 = sol.source_w_m3;
-        report.fit_rms_c = Some(sol.fit_rms_c);
-        report.fit_degree = sol.degree;
-        if !sol.interface_c.is_empty() {
-            report.interface_c = Some(sol.interface_c.iter().map(|&(t, _)| t).collect());
-            // Steady: the one flux crosses each contact, T_cold = T_hot − q R.
-            if zone.layers.iter().any(|l| l.contact_m2k_w > 0.0) {
-                let q = sol.flux_shell_w_m2;
-                report.interface_cold_c = Some(
-                    sol.interface_c
-                        .iter()
-                        .zip(&zone.layers)
-                        .map(|(&(t, _), l)| {
-                            (l.contact_m2k_w > 0.0).then_some(t - q * l.contact_m2k_w)
-                        })
-                        .collect(),
-                );
-            }
-        }
-        report.thermal_resistance_m2k_w = sol.resistance_m2k_w.map(|(r, _)| r);
-        // Lining condition needs a reading at the hot face: steady probes
-        // alone cannot tell a thinner lining from a hotter face (see
-        // `LayeredWall::remaining_hot_layer`). With one, the measured
-        // resistance (T_hot,measured − T_shell) / q is compared with its
-        // commissioning baseline, and the hot layer is sized.
-        // Each layer's relative standard uncertainty of k, for the wear σ
-        // and the budget.
-        let mut k_rel = [0.0; MAX_LAYERS];
-        for (u, l) in k_rel.iter_mut().zip(&zone.layers) {
-            *u = settings.materials[l.material].conductivity_uncertainty_pct / 100.0;
-        }
-        let conductivity_rel = &k_rel[..zone.layers.len().min(MAX_LAYERS)];
-        let mut lining_sigma_mm = None;
-        if let (Wall::Layered(l), Some(reading)) = (&wall, hot_reading) {
-            if sol.flux_shell_w_m2.abs() > 1.0 {
-                let r = (reading.celsius - sol.shell_c) / sol.flux_shell_w_m2;
-                if sol.check == ModelCheck::Consistent && !unsteady {
-                    self.baseline
-                        .record(now, zone.baseline_days, reading.celsius, r);
-                }
-                report.resistance_change_pct =
-                    self.baseline
-                        .change_pct(now, zone.baseline_days, reading.celsius, r);
-            }
-            let hot = HotFaceReading {
-                temp_c: reading.celsius,
-                sigma_c: reading.sigma_c,
-            };
-            if let Ok(w) = l.remaining_hot_layer(&samples, hot) {
-                report.lining_remaining_mm = Some(w.remaining_mm);
-                // The readings' σ of the estimate, with the probes'
-                // depths and the layers' conductivities added.
-                let extra =
-                    super::wall::wear_sigma_mm(l, &samples, hot, &depth_sigma_m, conductivity_rel);
-                lining_sigma_mm = Some(match extra {
-                    Some((d, k)) => (w.sigma_mm.powi(2) + d * d + k * k).sqrt(),
-                    None => w.sigma_mm,
-                });
-            }
-        }
-        let surface = shell_surface(zone, sol.shell_c);
-        report.flux_surface_w_m2 = Some(surface.flux_w_m2);
-        report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
-        report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
-        report.balance_mismatch_pct = mismatch_pct(sol.flux_shell_w_m2, surface.flux_w_m2);
-        // The complete budget: readings, depths and conductivities through
-        // the same fit. Should a perturbed fit fail (a wall at the edge of
-        // what the model can fit), the probes-only σ of the fit is kept.
-        let budget = wall.budget(&sol, &samples, &depth_sigma_m, conductivity_rel);
-        let mut u = Uncertainty {
-            hot_face_c: sol.sigma_hot_face_c,
-            shell_c: sol.sigma_shell_c,
-            flux_hot_face_w_m2: sol.sigma_flux_hot_face_w_m2,
-            flux_shell_w_m2: sol.sigma_flux_shell_w_m2,
-            heat_loss_w: sol.sigma_flux_shell_w_m2 * zone.area_m2,
-            interface_c: (!sol.interface_c.is_empty())
-                .then(|| sol.interface_c.iter().map(|&(_, s)| s).collect()),
-            thermal_resistance_m2k_w: sol.resistance_m2k_w.map(|(_, s)| s),
-            lining_remaining_mm: lining_sigma_mm,
-            budget: None,
-            readings_only: [
-                sol.sigma_hot_face_c,
-                sol.sigma_shell_c,
-                sol.sigma_flux_shell_w_m2,
-            ],
-        };
-        if let Some(b) = &budget {
-            u.hot_face_c = b.total(OUT_HOT_FACE);
-            u.shell_c = b.total(OUT_SHELL);
-            u.flux_hot_face_w_m2 = b.total(OUT_FLUX_HOT_FACE);
-            u.flux_shell_w_m2 = b.total(OUT_FLUX_SHELL);
-            u.heat_loss_w = b.total(OUT_FLUX_SHELL) * zone.area_m2;
-            if let Some(r) = u.thermal_resistance_m2k_w.as_mut() {
-                *r = b.total(OUT_RESISTANCE);
-            }
-            if let Some(ifs) = u.interface_c.as_mut() {
-                for (i, s) in ifs.iter_mut().enumerate() {
-                    *s = b.total(OUT_INTERFACE + i);
-                }
-            }
-            u.budget = Some(UncertaintyBudget::of(b, false));
-        }
-        report.uncertainty = Some(u);
-        report
     }
+}
+
+/// `model`'s numbers on top of the measured report; a model that gives
+/// none says why in `model_note`, and the zone has `insufficient_data`.
+fn fit(
+    model: &mut dyn ZoneModel,
+    input: &ModelInput<'_>,
+    baseline: &mut Baseline,
+    mut report: ZoneReport,
+) -> ZoneReport {
+    report.model = model.model().name();
+    if let Err(why) = model.estimate(input, baseline, &mut report) {
+        report.status = ZoneStatus::InsufficientData;
+        report.model_note = Some(model::failure(model.model(), &why));
+    }
+    report
+}
+
+/// The published report: [`vet`] over the model's numbers, and the
+/// fallback's `view` in place of a steady model that cannot follow a wall
+/// heating or cooling (when the view itself is vouched for).
+fn reported(
+    zone: &Zone,
+    channels: &[ChannelState],
+    mut report: ZoneReport,
+    view: Option<ZoneReport>,
+) -> ZoneReport {
+    // Each probe's standard uncertainty, for the checks' tolerances.
+    let mut sigma_c: HVec<Option<f64>, MAX_PROBES> = HVec::new();
+    for p in zone.probes.iter().take(MAX_PROBES) {
+        let _ = sigma_c.push(
+            channels
+                .get(p.channel)
+                .and_then(|c| c.latest)
+                .map(|r| r.sigma_c),
+        );
+    }
+    vet(&mut report, zone, &sigma_c);
+    if let Some(mut v) = view {
+        vet(&mut v, zone, &sigma_c);
+        report.model_used = Some(zone.model.name());
+        if report.status == ZoneStatus::NotSteady && v.status < ZoneStatus::Unconfirmed {
+            let used = v.model;
+            v.model = report.model;
+            v.model_used = Some(used);
+            v.model_note = Some(note(NOTE_FALLBACK));
+            report = v;
+        }
+    }
+    report
 }
 
 /// Heat lost by the shell surface at `shell_c`: the configured combined
@@ -701,292 +594,6 @@ pub fn transient_shell(zone: &Zone) -> ShellBoundary {
         },
         None => ShellBoundary::Surface(zone.surface),
     }
-}
-
-/// ∫₀ᴸ ρ c_p ∂T/∂t dx from the valid probes' measured rates (trapezoid in
-/// depth order; the shallowest and deepest values held to the faces).
-/// Needs two probes with rates.
-fn stored_w_m2(probes: &[ProbeReport], wall: &Wall<'_>) -> Option<f64> {
-    let thickness_m = wall.thickness_m();
-    let mut pts: HVec<(f64, f64), MAX_PROBES> = HVec::new();
-    for p in probes.iter().filter(|p| p.status == Health::Ok) {
-        let x = p.depth_mm / 1000.0;
-        if let (Some(rate), Some(t), Some(m)) =
-            (p.rate_measured_c_per_h, p.measured_c, wall.material_at(x))
-        {
-            let _ = pts.push((x, m.heat_capacity_j_m3k(t) * rate / 3600.0));
-        }
-    }
-    if pts.len() < 2 {
-        return None;
-    }
-    pts.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
-    let (first, last) = (pts[0], pts[pts.len() - 1]);
-    let mut sum = first.1 * first.0 + last.1 * (thickness_m - last.0);
-    for w in pts.windows(2) {
-        sum += 0.5 * (w[0].1 + w[1].1) * (w[1].0 - w[0].0);
-    }
-    Some(sum)
-}
-
-/// A probe rate beyond this makes a contradicted steady model read as
-/// "not at steady state", and a measured rate this far from a steady
-/// model's own rate at that probe makes it `not_steady` (a threshold of
-/// ours), °C/h.
-pub const FAST_RATE_C_PER_H: f64 = 5.0;
-
-/// Do the valid probes' measured rates say the wall is not in the state a
-/// steady model assumes? A probe disagrees when its measured rate differs
-/// from the model's rate there (None: zero) by more than
-/// [`FAST_RATE_C_PER_H`]. Heat from either face reaches the probe nearest
-/// that face first, so a disagreement there, or at two probes, is the
-/// wall; one interior probe alone, between neighbours that agree, is that
-/// probe (a jump its own rate window still holds: the diagnostics judge it).
-fn rates_contradict_steady(probes: &[ProbeReport]) -> bool {
-    let mut by_depth: HVec<(f64, bool), MAX_PROBES> = HVec::new();
-    for p in probes.iter().filter(|p| p.status == Health::Ok) {
-        if let Some(measured) = p.rate_measured_c_per_h {
-            let off = (measured - p.rate_model_c_per_h.unwrap_or(0.0)).abs() > FAST_RATE_C_PER_H;
-            // At most MAX_PROBES probes: cannot overflow.
-            let _ = by_depth.push((p.depth_mm, off));
-        }
-    }
-    by_depth.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
-    let off = by_depth.iter().filter(|p| p.1).count();
-    let at_a_face = by_depth.first().is_some_and(|p| p.1) || by_depth.last().is_some_and(|p| p.1);
-    off >= 2 || at_a_face
-}
-
-fn check_name(c: ModelCheck) -> &'static str {
-    match c {
-        ModelCheck::Consistent => "consistent",
-        ModelCheck::Contradicted => "contradicted",
-        ModelCheck::Untested => "untested",
-    }
-}
-
-/// Relative mismatch of two flux estimates, %; None when the reference is
-/// too small for a percentage to mean anything (|q| < 1 W/m²).
-fn mismatch_pct(fourier_w_m2: f64, surface_w_m2: f64) -> Option<f64> {
-    if surface_w_m2.abs() < 1.0 || !fourier_w_m2.is_finite() {
-        return None;
-    }
-    Some((fourier_w_m2 - surface_w_m2) / surface_w_m2 * 100.0)
-}
-
-impl ZoneEngine {
-    /// The transient model's cycle: predict over the interval, assimilate
-    /// the valid probes, report the estimate, forecasts and times to limits.
-    fn transient_cycle(
-        &mut self,
-        settings: &Settings,
-        samples: &[ProbeSample],
-        depth_sigma_m: &[f64],
-        report: &mut ZoneReport,
-        now: Timestamp,
-    ) {
-        let zone = &settings.zones[self.index];
-        let dt = self.last_step.map_or(0.0, |t| now.since(t).max(0.0));
-        self.last_step = Some(now);
-        let est = match self.transient.as_mut() {
-            Some(Ok(e)) => e,
-            Some(Err(_)) | None => {
-                report.model_note = Some("the transient model could not be built for this wall");
-                return;
-            }
-        };
-        let step = match est.step(dt, samples) {
-            Ok(s) => s,
-            Err(_) => return,
-        };
-        if !est.is_initialised() || samples.is_empty() {
-            return;
-        }
-        let (hot, s_hot) = est.hot_face_c();
-        let (shell, s_shell) = est.shell_c();
-        let (q0, s_q0) = est.flux_hot_face_w_m2();
-        let (ql, s_ql) = est.flux_shell_w_m2();
-        let (stored, _) = est.stored_w_m2();
-        let l = zone.thickness_m();
-        // A filter that had diverged from the readings and was started
-        // afresh cannot vouch for this cycle's numbers.
-        report.status = if step.reset {
-            ZoneStatus::Contradicted
-        } else if samples.len() == zone.probes.len() {
-            ZoneStatus::Ok
-        } else {
-            ZoneStatus::Degraded
-        };
-        report.hot_face_c = Some(hot);
-        report.shell_c = Some(shell);
-        report.flux_hot_face_w_m2 = Some(q0);
-        report.flux_shell_w_m2 = Some(ql);
-        report.heat_loss_w = Some(heat_loss_w(ql, zone.area_m2));
-        report.source_w_m3 = Some((ql - q0) / l);
-        report.stored_w_m2 = Some(stored);
-        report.hot_face_rate_c_per_h = Some(est.hot_face_rate_c_per_h().0);
-        report.filter_nis = Some(est.nis()).filter(|n| n.is_finite());
-        if step.reset {
-            report.model_note = Some("the estimator was reset: it had diverged from the readings (check the materials and probe depths)");
-        }
-        let interfaces = est.interface_c();
-        if !interfaces.is_empty() {
-            report.interface_c = Some(interfaces.iter().map(|&(t, _)| t).collect());
-            let cold = est.interface_cold_c();
-            if cold.iter().any(Option::is_some) {
-                report.interface_cold_c = Some(cold.iter().map(|c| c.map(|(t, _)| t)).collect());
-            }
-        }
-        let mut sq = 0.0;
-        for p in report.probes.iter_mut() {
-            let x = p.depth_mm / 1000.0;
-            let fitted = est.temperature_at(x);
-            p.fitted_c = Some(fitted);
-            p.rate_model_c_per_h = Some(est.rate_c_per_h_at(x));
-            if let (Some(m), Health::Ok) = (p.measured_c, p.status) {
-                sq += (m - fitted) * (m - fitted);
-            }
-        }
-        report.fit_rms_c = Some((sq / samples.len() as f64).sqrt());
-        let surface = shell_surface(zone, shell);
-        report.flux_surface_w_m2 = Some(surface.flux_w_m2);
-        report.h_convection_w_m2k = Some(surface.h_convection_w_m2k);
-        report.h_radiation_w_m2k = Some(surface.h_radiation_w_m2k);
-        report.balance_mismatch_pct = mismatch_pct(ql, surface.flux_w_m2);
-        let mut u = Uncertainty {
-            hot_face_c: s_hot,
-            shell_c: s_shell,
-            flux_hot_face_w_m2: s_q0,
-            flux_shell_w_m2: s_ql,
-            heat_loss_w: s_ql * zone.area_m2,
-            interface_c: (!interfaces.is_empty())
-                .then(|| interfaces.iter().map(|&(_, s)| s).collect()),
-            thermal_resistance_m2k_w: None,
-            lining_remaining_mm: None,
-            budget: None,
-            readings_only: [s_hot, s_shell, s_ql],
-        };
-        // Conductivity, heat capacity and probe depths on top of the
-        // filter's σ (the readings' part): physics::uncertainty.
-        let mut layers: HVec<TransientLayerInput<'_>, MAX_LAYERS> = HVec::new();
-        for l in &zone.layers {
-            let m = &settings.materials[l.material];
-            let _ = layers.push(TransientLayerInput {
-                material: &m.material,
-                thickness_m: l.thickness_m,
-                conductivity_rel: m.conductivity_uncertainty_pct / 100.0,
-                heat_capacity_rel: m.heat_capacity_uncertainty_pct / 100.0,
-            });
-        }
-        let mut nodes: HVec<(f64, f64, f64), MAX_NODES> = HVec::new();
-        for n in est.profile() {
-            let _ = nodes.push((n.depth_m, n.temp_c, n.rate_c_per_h / 3600.0));
-        }
-        let mut probe_depths: HVec<(f64, f64), MAX_PROBES> = HVec::new();
-        for (s, &sd) in samples.iter().zip(depth_sigma_m) {
-            let _ = probe_depths.push((s.depth_m, sd));
-        }
-        let inputs = TransientInputs {
-            layers: &layers,
-            nodes: &nodes,
-            probes: &probe_depths,
-            filter_sigma: [s_hot, s_shell, s_q0, s_ql],
-            flux_hot_face_w_m2: q0,
-            flux_shell_w_m2: ql,
-            shell_slope_w_m2k: est.model().shell().flux_slope_w_m2k(shell),
-        };
-        if let Some(b) = transient_budget(&inputs) {
-            u.hot_face_c = b.total(OUT_HOT_FACE);
-            u.shell_c = b.total(OUT_SHELL);
-            u.flux_hot_face_w_m2 = b.total(OUT_FLUX_HOT_FACE);
-            u.flux_shell_w_m2 = b.total(OUT_FLUX_SHELL);
-            u.heat_loss_w = b.total(OUT_FLUX_SHELL) * zone.area_m2;
-            u.budget = Some(UncertaintyBudget::of(&b, true));
-        }
-        report.uncertainty = Some(u);
-        // Forecasts under the current hot-face trend, capped at the hot
-        // layer's service limit and the firing set-point.
-        let cap = zone
-            .layers
-            .first()
-            .and_then(|l| settings.materials[l.material].material.max_service_c)
-            .into_iter()
-            .chain(zone.firing_setpoint_c)
-            .fold(f64::INFINITY, f64::min);
-        let mut forecast: HVec<ForecastReport, MAX_FORECASTS> = HVec::new();
-        for &h in zone.forecast_h.iter().take(8) {
-            if let Some(f) = est.forecast(h * 3600.0, cap) {
-                let _ = forecast.push(ForecastReport {
-                    horizon_h: h,
-                    shell_c: f.shell_c,
-                    hot_face_c: f.hot_face_c,
-                    interface_c: f.interface_c.clone(),
-                });
-            }
-        }
-        report.forecast = Some(forecast);
-        let longest_s = zone.forecast_h.iter().copied().fold(0.0, f64::max) * 3600.0;
-        let mut limits: HVec<LimitReport, 9> = HVec::new();
-        let touch = settings
-            .alarms
-            .iter()
-            .find(|a| {
-                a.builtin
-                    && a.spec.kind == crate::monitor::alarm::AlarmKind::High
-                    && a.target
-                        == (crate::config::AlarmTarget::Zone {
-                            zone: self.index,
-                            quantity: crate::config::ZoneQuantity::ShellC,
-                        })
-            })
-            .map_or(crate::config::DEFAULT_SHELL_TOUCH_C, |a| a.spec.setpoint);
-        let _ = limits.push(LimitReport {
-            limit: "shell_touch",
-            index: None,
-            limit_c: touch,
-            hours: est.time_to_limit_h(Limit::ShellC(touch), longest_s, cap),
-        });
-        for (i, layer) in zone.layers.iter().enumerate().skip(1) {
-            if let Some(limit_c) = settings.materials[layer.material].material.max_service_c {
-                let _ = limits.push(LimitReport {
-                    limit: "interface_service",
-                    index: Some(i - 1),
-                    limit_c,
-                    hours: est.time_to_limit_h(
-                        Limit::InterfaceC {
-                            index: i - 1,
-                            limit_c,
-                        },
-                        longest_s,
-                        cap,
-                    ),
-                });
-            }
-        }
-        report.time_to_limit_h = Some(limits);
-    }
-}
-
-/// One forecast of the transient model.
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct ForecastReport {
-    pub horizon_h: f64,
-    pub shell_c: f64,
-    pub hot_face_c: f64,
-    pub interface_c: HVec<f64, MAX_LAYERS>,
-}
-
-/// When a limit is reached under the forecast (None: not within the
-/// longest horizon).
-#[derive(Debug, Clone, PartialEq, Serialize)]
-pub struct LimitReport {
-    /// `shell_touch` or `interface_service`.
-    pub limit: &'static str,
-    /// The interface (0 = between the first two layers).
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub index: Option<usize>,
-    pub limit_c: f64,
-    pub hours: Option<f64>,
 }
 
 /// A probe is stuck when it repeated exactly the same value over the
@@ -1086,6 +693,7 @@ fn outlier(wall: &Wall<'_>, samples: &[ProbeSample], rates: &[Option<f64>]) -> O
     for (i, &s) in samples.iter().enumerate() {
         let Some((y, sd)) = wall
             .solve(&without(i))
+            .ok()
             .and_then(|f| wall.fitted(&f, s.depth_m))
         else {
             continue;
@@ -1103,7 +711,7 @@ fn outlier(wall: &Wall<'_>, samples: &[ProbeSample], rates: &[Option<f64>]) -> O
         })
         .find_map(|&(i, _)| {
             let rest = without(i);
-            let fit = wall.solve(&rest)?;
+            let fit = wall.solve(&rest).ok()?;
             rest.iter()
                 .all(|s| {
                     wall.fitted(&fit, s.depth_m)
@@ -1181,7 +789,7 @@ pub const SURFACE_LOSS_REL_SIGMA: f64 = 0.25;
 pub const CROSS_CHECK_COVERAGE: f64 = 3.0;
 
 /// Any probe changing faster than [`FAST_RATE_C_PER_H`]?
-fn changing_fast(probes: &[ProbeReport]) -> bool {
+pub(crate) fn changing_fast(probes: &[ProbeReport]) -> bool {
     probes
         .iter()
         .filter_map(|p| p.rate_measured_c_per_h)
@@ -1204,12 +812,12 @@ pub fn vet(report: &mut ZoneReport, zone: &Zone, probe_sigma_c: &[Option<f64>]) 
         && surface_disagrees(report)
     {
         report.status = ZoneStatus::Unconfirmed;
-        report.model_note = Some(NOTE_UNCONFIRMED);
+        report.model_note = Some(note(NOTE_UNCONFIRMED));
     }
     withhold(report, zone);
     if let Some(note) = implausibility(report, zone, probe_sigma_c) {
         report.status = report.status.max(ZoneStatus::Implausible);
-        report.model_note = Some(note);
+        report.model_note = Some(model::note(note));
         withhold(report, zone);
     }
 }
