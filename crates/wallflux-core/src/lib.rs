@@ -12,9 +12,11 @@
 //!   (fit schedule, rate histories, diagnostics, zone reports), alarm state
 //!   machines and the alarm engine, commands, trend alerts, energy and
 //!   lining accounting. Driven by `handle_*`, read by `poll_*`.
+//! - [`bounded`]: fixed capacities, the checked push and its `Full` error.
 //! - [`config`]: the TOML text and its validated settings.
 //! - [`time`]: UTC timestamps and RFC 3339.
 
+pub mod bounded;
 pub mod config;
 pub mod monitor;
 pub mod physics;
