@@ -126,7 +126,7 @@ fn wall_models(c: &mut Criterion) {
     );
     let steel = mat(Property::Constant(50.0), 7800.0);
     let layers = [(&dense, 0.23), (&ifb, 0.115), (&steel, 0.01)];
-    let samples: Vec<ProbeSample> = [
+    let samples: heapless::Vec<ProbeSample, 16> = [
         (0.04, 1010.0),
         (0.12, 820.0),
         (0.25, 480.0),
@@ -166,7 +166,7 @@ fn wall_models(c: &mut Criterion) {
             thickness_m: 0.23,
             material: &dense,
         });
-    let quad_samples: Vec<ProbeSample> = samples[..2]
+    let quad_samples: heapless::Vec<ProbeSample, 16> = samples[..2]
         .iter()
         .copied()
         .chain([ProbeSample {

@@ -7,6 +7,7 @@ mod keys;
 mod raw;
 mod validate;
 
+use heapless::Vec as HVec;
 use std::path::PathBuf;
 
 use crate::physics::material::Material;
@@ -414,7 +415,7 @@ pub struct Zone {
     /// Reference heat loss of the zone (built-in deviation alarm), W.
     pub heat_loss_baseline_w: Option<f64>,
     /// Forecast horizons of the transient model, h.
-    pub forecast_h: Vec<f64>,
+    pub forecast_h: HVec<f64, MAX_FORECASTS>,
     /// The firing's set-point: forecasts do not extrapolate the hot face
     /// beyond it (nor beyond the hot layer's `max_service_c`), °C.
     pub firing_setpoint_c: Option<f64>,
@@ -430,8 +431,10 @@ pub struct Zone {
     pub lining_min_mm: Option<f64>,
     /// Window of the measured-rate regression, s.
     pub rate_window_s: f64,
-    pub layers: Vec<ZoneLayer>,
-    pub probes: Vec<Probe>,
+    /// Hot face to shell; validation refuses more than [`MAX_LAYERS`].
+    pub layers: HVec<ZoneLayer, MAX_LAYERS>,
+    /// Validation refuses more than [`MAX_PROBES`].
+    pub probes: HVec<Probe, MAX_PROBES>,
     /// When the lining baseline begins learning (`baseline_start`).
     pub baseline_start: BaselineStart,
     /// The model whose numbers a steady zone publishes while its own model

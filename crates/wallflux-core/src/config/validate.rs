@@ -7,7 +7,9 @@ use std::path::PathBuf;
 
 use toml::Spanned;
 
+use crate::bounded::PushWithin;
 use crate::words::Word;
+use heapless::Vec as HVec;
 
 use super::raw::*;
 use super::*;
@@ -1608,9 +1610,10 @@ impl Validator<'_> {
                         ),
                     );
                 }
-                v
+                // Beyond MAX_FORECASTS refused above: the Settings are not built.
+                v.iter().copied().take(MAX_FORECASTS).collect()
             }
-            None => vec![1.0, 2.0, 4.0],
+            None => [1.0, 2.0, 4.0].into_iter().collect(),
         };
         let firing_setpoint_c = z
             .firing_setpoint_c
@@ -1658,7 +1661,7 @@ impl Validator<'_> {
                 self.positive_up_to(w, &p("rate_window_s"), MAX_DELAY_S, "seconds")
             });
 
-        let mut layers = Vec::new();
+        let mut layers: HVec<ZoneLayer, MAX_LAYERS> = HVec::new();
         if z.layers.get_ref().is_empty() {
             self.problem(
                 z.layers.span(),
@@ -1715,11 +1718,14 @@ impl Validator<'_> {
                 }
                 None => 0.0,
             };
-            layers.push(ZoneLayer {
+            let layer = ZoneLayer {
                 material,
                 thickness_m: thickness_mm / 1000.0,
                 contact_m2k_w,
-            });
+            };
+            if layers.push_within(layer, "layers").is_err() {
+                break; // refused above: the Settings are not built
+            }
         }
         if model == Model::Quadratic && layers.len() > 1 {
             self.problem(
@@ -1746,7 +1752,7 @@ impl Validator<'_> {
             );
         }
 
-        let mut probes = Vec::new();
+        let mut probes: HVec<Probe, MAX_PROBES> = HVec::new();
         if z.probes.get_ref().len() > MAX_PROBES {
             self.problem(
                 z.probes.span(),
@@ -1823,11 +1829,14 @@ impl Validator<'_> {
                     v
                 }
             };
-            probes.push(Probe {
+            let probe = Probe {
                 channel,
                 depth_m: depth_mm / 1000.0,
                 depth_sigma_m: depth_sigma_mm / 1000.0,
-            });
+            };
+            if probes.push_within(probe, "probes").is_err() {
+                break; // refused above: the Settings are not built
+            }
         }
         if let [first, rest @ ..] = &probes[..] {
             if !rest.is_empty()

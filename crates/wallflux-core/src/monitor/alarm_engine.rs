@@ -27,10 +27,9 @@ use serde::Serialize;
 use super::alarm::{Alarm, AlarmFlags, AlarmKind, AlarmState, Priority, Transition};
 use super::channel::Health;
 use super::command::{Action, Command, CommandError};
-use super::trend::{time_to_limit_h, FloodMeter, TrendWatch};
+use super::trend::{time_to_limit_h, windowed_rate_per_h, FloodMeter, TrendWatch};
 use super::zone::ZoneReport;
-use crate::config::{AlarmConfig, AlarmTarget, Settings, ZoneQuantity};
-use crate::physics::fit::linear_slope;
+use crate::config::{AlarmConfig, AlarmTarget, Settings, ZoneQuantity, MAX_PROBES};
 use crate::time::Timestamp;
 
 /// Points kept per alarm for its rate (rate alarms, trend alerts).
@@ -89,7 +88,7 @@ pub struct AlarmEngine {
     configs: Vec<AlarmConfig>,
     slots: Vec<Slot>,
     /// Channels each alarm depends on (for suppression).
-    deps: Vec<HVec<usize, 16>>,
+    deps: Vec<HVec<usize, MAX_PROBES>>,
     origin: Timestamp,
     flood: FloodMeter,
     pending: VecDeque<AlarmOutput>,
@@ -283,7 +282,9 @@ impl AlarmEngine {
         if let (Some(v), true) = (raw, for_rate) {
             slot.history.write((t, v));
         }
-        slot.rate_per_h = raw.and_then(|_| rate_per_h(&slot.history, t, slot.window_s));
+        slot.rate_per_h = raw.and_then(|_| {
+            windowed_rate_per_h(&slot.history, t, slot.window_s, slot.window_s / 4.0)
+        });
         let value = match cfg.spec.kind {
             AlarmKind::RateHigh => slot.rate_per_h,
             AlarmKind::Deviation => raw.zip(cfg.baseline).map(|(v, b)| (v - b) / b * 100.0),
@@ -538,7 +539,9 @@ fn zone_quantity(r: &ZoneReport, q: ZoneQuantity) -> Option<f64> {
     }
 }
 
-fn dependencies(settings: &Settings, c: &AlarmConfig) -> HVec<usize, 16> {
+/// The channels an alarm's value comes from (a zone alarm: its probes'),
+/// for suppression by design: at most a zone's probes.
+fn dependencies(settings: &Settings, c: &AlarmConfig) -> HVec<usize, MAX_PROBES> {
     let mut d = HVec::new();
     match c.target {
         AlarmTarget::Zone { zone, quantity } => {
@@ -562,35 +565,14 @@ fn dependencies(settings: &Settings, c: &AlarmConfig) -> HVec<usize, 16> {
                     d.extend(by_depth(true));
                 }
                 HotFaceC | FluxHotFaceWM2 => d.extend(by_depth(false)),
-                _ => {
-                    for p in probes.iter().take(16) {
-                        let _ = d.push(p.channel);
-                    }
-                }
+                // As many as the zone's probes: the capacity is theirs.
+                _ => d = probes.iter().map(|p| p.channel).collect(),
             }
         }
-        AlarmTarget::Channel { channel, .. } => {
-            let _ = d.push(channel);
-        }
+        AlarmTarget::Channel { channel, .. } => d.extend([channel]),
         AlarmTarget::Source { .. } => {}
     }
     d
-}
-
-fn rate_per_h(h: &HistoryBuf<(f64, f64), RATE_POINTS>, now_s: f64, window_s: f64) -> Option<f64> {
-    let mut ts: HVec<f64, RATE_POINTS> = HVec::new();
-    let mut vs: HVec<f64, RATE_POINTS> = HVec::new();
-    for &(t, v) in h.oldest_ordered() {
-        if now_s - t <= window_s {
-            let _ = ts.push(t);
-            let _ = vs.push(v);
-        }
-    }
-    let span = ts.last().zip(ts.first()).map(|(b, a)| b - a)?;
-    if ts.len() < 3 || span < window_s / 4.0 {
-        return None;
-    }
-    linear_slope(&ts, &vs).map(|(s, _)| s * 3600.0)
 }
 
 /// A high alarm on a zone's hot face or an interface whose limit lies above

@@ -19,6 +19,8 @@ use std::sync::Arc;
 
 use heapless::Deque;
 
+use crate::bounded::PushWithin;
+
 use crate::config::{BaselineStart, Model, Settings, Zone};
 use crate::protocol::line::{Frame, Value};
 use crate::time::Timestamp;
@@ -134,10 +136,13 @@ impl Monitor {
     }
 
     fn push_event(&mut self, e: Event) {
-        if let Err(e) = self.events.push_back(e) {
+        // Full: the oldest makes room, and is counted.
+        if self.events.is_full() {
             self.events.pop_front();
             self.events_dropped += 1;
-            let _ = self.events.push_back(e);
+        }
+        if self.events.push_within(e, "queued events").is_err() {
+            self.events_dropped += 1;
         }
     }
 

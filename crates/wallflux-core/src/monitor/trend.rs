@@ -7,8 +7,9 @@
 
 use core::fmt::Write as _;
 
-use heapless::HistoryBuf;
+use heapless::{HistoryBuf, Vec as HVec};
 
+use crate::physics::fit::linear_slope;
 use crate::time::Timestamp;
 
 /// Time for `value` moving at `rate_per_h` to reach `limit`, hours, by
@@ -239,6 +240,29 @@ impl FloodMeter {
     pub fn flooding(&self, now: Timestamp) -> bool {
         self.rate_per_10min(now) > FLOOD_THRESHOLD
     }
+}
+
+/// Least-squares rate of a history of `(time_s, value)` over the window of
+/// `window_s` ending at `now_s`, per hour. Needs at least three points
+/// spanning `min_span_s`, so that a single step does not read as a rate.
+/// (The zone's measured probe rates and the rate alarms both use it.)
+pub fn windowed_rate_per_h<const N: usize>(
+    history: &HistoryBuf<(f64, f64), N>,
+    now_s: f64,
+    window_s: f64,
+    min_span_s: f64,
+) -> Option<f64> {
+    // No more points than the history holds: nothing can be dropped.
+    let (ts, vs): (HVec<f64, N>, HVec<f64, N>) = history
+        .oldest_ordered()
+        .filter(|(t, _)| now_s - t <= window_s)
+        .copied()
+        .unzip();
+    let span = ts.last().zip(ts.first()).map(|(b, a)| b - a)?;
+    if ts.len() < 3 || span < min_span_s {
+        return None;
+    }
+    linear_slope(&ts, &vs).map(|(slope, _)| slope * 3600.0)
 }
 
 #[cfg(test)]

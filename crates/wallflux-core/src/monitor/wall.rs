@@ -91,14 +91,18 @@ impl<'a> Wall<'a> {
                 }))
             }
             Model::Layered => {
-                let mut specs: HVec<LayerSpec<'a>, MAX_LAYERS> = HVec::new();
-                for l in &zone.layers {
-                    let _ = specs.push(LayerSpec {
-                        material: material(l.material)?,
-                        thickness_m: l.thickness_m,
-                        contact_m2k_w: l.contact_m2k_w,
-                    });
-                }
+                // As many as the zone's layers, whose capacity is MAX_LAYERS.
+                let specs: HVec<LayerSpec<'a>, MAX_LAYERS> = zone
+                    .layers
+                    .iter()
+                    .map(|l| {
+                        Ok(LayerSpec {
+                            material: material(l.material)?,
+                            thickness_m: l.thickness_m,
+                            contact_m2k_w: l.contact_m2k_w,
+                        })
+                    })
+                    .collect::<Result<_, WallError>>()?;
                 Ok(Wall::Layered(LayeredWall::new(&specs)?))
             }
             // Stateful: `monitor::model::transient` runs it.
@@ -158,10 +162,13 @@ impl<'a> Wall<'a> {
             }
             Wall::Layered(l) => {
                 let s = l.solve(samples)?;
-                let mut interface_c = HVec::new();
-                for (t, sd) in s.interface_c.iter().zip(&s.sigma_interface_c) {
-                    let _ = interface_c.push((*t, *sd));
-                }
+                // Both of capacity MAX_LAYERS, as is the pair.
+                let interface_c = s
+                    .interface_c
+                    .iter()
+                    .zip(&s.sigma_interface_c)
+                    .map(|(&t, &sd)| (t, sd))
+                    .collect();
                 Ok(Fit {
                     hot_face_c: s.hot_face_c,
                     shell_c: s.shell_c,
@@ -220,23 +227,28 @@ impl Wall<'_> {
     pub fn budget(
         &self,
         fit: &Fit,
-        samples: &[ProbeSample],
+        samples: &HVec<ProbeSample, MAX_PROBES>,
         depth_sigma_m: &[f64],
         conductivity_rel: &[f64],
     ) -> Option<Budget> {
         // The fitted profile's slope at each probe (quadratic: the depth
-        // counts as its equivalent reading step).
-        let mut slopes: HVec<f64, MAX_PROBES> = HVec::new();
-        if let Wall::Quadratic(_) = self {
-            let l = self.thickness_m();
-            for s in samples {
-                let h = 1e-4;
-                let (a, b) = ((s.depth_m - h).max(0.0), (s.depth_m + h).min(l));
-                let ta = self.fitted(fit, a)?.0;
-                let tb = self.fitted(fit, b)?.0;
-                let _ = slopes.push((tb - ta) / (b - a));
+        // counts as its equivalent reading step); one per sample.
+        let slopes: HVec<f64, MAX_PROBES> = match self {
+            Wall::Quadratic(_) => {
+                let l = self.thickness_m();
+                samples
+                    .iter()
+                    .map(|s| {
+                        let h = 1e-4;
+                        let (a, b) = ((s.depth_m - h).max(0.0), (s.depth_m + h).min(l));
+                        let ta = self.fitted(fit, a)?.0;
+                        let tb = self.fitted(fit, b)?.0;
+                        Some((tb - ta) / (b - a))
+                    })
+                    .collect::<Option<_>>()?
             }
-        }
+            Wall::Layered(_) => HVec::new(),
+        };
         let inputs = SteadyInputs {
             samples,
             depth_sigma_m,

@@ -9,10 +9,10 @@ use super::channel::{ChannelState, Health, Reading};
 use super::lining::Baseline;
 use super::model::transient::MAX_LIMITS;
 use super::model::{self, note, ModelInput, Note, ZoneModel};
+use super::trend::windowed_rate_per_h;
 use super::wall::Wall;
 use crate::config::{Model, NamedMaterial};
 use crate::config::{Name, Settings, Zone, MAX_FORECASTS, MAX_PROBES};
-use crate::physics::fit::linear_slope;
 use crate::physics::layered::MAX_LAYERS;
 use crate::physics::profile::ProbeSample;
 use crate::physics::surface::{surface_loss, SurfaceLoss};
@@ -295,12 +295,15 @@ struct Valid {
 
 impl ZoneEngine {
     pub fn new(index: usize, zone: &Zone, materials: &[NamedMaterial], start: Timestamp) -> Self {
-        let mut tracks = HVec::new();
-        for _ in zone.probes.iter().take(MAX_PROBES) {
-            let _ = tracks.push(ProbeTrack {
+        // Every per-probe vector of the cycle is collected from the zone's
+        // probes, whose capacity it shares: nothing can be dropped.
+        let tracks = zone
+            .probes
+            .iter()
+            .map(|_| ProbeTrack {
                 history: HistoryBuf::new(),
-            });
-        }
+            })
+            .collect();
         ZoneEngine {
             index,
             next_due: start.plus_s(zone.interval_s),
@@ -362,74 +365,84 @@ impl ZoneEngine {
         max_age_s: f64,
     ) -> Freshened {
         let spacing_s = zone.rate_window_s / (RATE_POINTS as f64 - 1.0);
-        let mut out = Freshened {
-            fresh: HVec::new(),
-            rates: HVec::new(),
-            spans: HVec::new(),
-        };
+        // A rate spans at least two intervals, so a single step does not
+        // read as one.
+        let min_span_s = 2.0 * zone.interval_s.min(zone.rate_window_s / 2.0);
         let now_s = now.since(self.origin);
-        for (probe, track) in zone.probes.iter().zip(self.tracks.iter_mut()) {
-            let r = channels[probe.channel].fresh(now, max_age_s);
-            if let Some(r) = r {
-                let t = r.time.since(self.origin);
-                let newer = track
-                    .history
-                    .recent()
-                    .is_none_or(|&(t0, _)| t - t0 >= spacing_s);
-                if newer {
-                    track.history.write((t, r.celsius));
+        let origin = self.origin;
+        let each: HVec<(Option<Reading>, Option<f64>, Option<f64>), MAX_PROBES> = zone
+            .probes
+            .iter()
+            .zip(self.tracks.iter_mut())
+            .map(|(probe, track)| {
+                let r = channels[probe.channel].fresh(now, max_age_s);
+                if let Some(r) = r {
+                    let t = r.time.since(origin);
+                    let newer = track
+                        .history
+                        .recent()
+                        .is_none_or(|&(t0, _)| t - t0 >= spacing_s);
+                    if newer {
+                        track.history.write((t, r.celsius));
+                    }
                 }
-            }
-            let _ = out.rates.push(r.and_then(|_| {
-                measured_rate_c_per_h(&track.history, now_s, zone.rate_window_s, zone.interval_s)
-            }));
-            let _ = out
-                .spans
-                .push(r.and_then(|_| history_span_c(&track.history, now_s, zone.rate_window_s)));
-            let _ = out.fresh.push(r);
+                let h = &track.history;
+                let rate =
+                    r.and_then(|_| windowed_rate_per_h(h, now_s, zone.rate_window_s, min_span_s));
+                let span = r.and_then(|_| history_span_c(h, now_s, zone.rate_window_s));
+                (r, rate, span)
+            })
+            .collect();
+        Freshened {
+            fresh: each.iter().map(|e| e.0).collect(),
+            rates: each.iter().map(|e| e.1).collect(),
+            spans: each.iter().map(|e| e.2).collect(),
         }
-        out
     }
 
     /// Diagnostics the zone can make and a channel alone cannot (stuck,
     /// outlier), into `self.diagnosis`; the samples that remain.
     fn diagnose(&mut self, settings: &Settings, zone: &Zone, readings: &Freshened) -> Valid {
-        let mut depths: HVec<f64, MAX_PROBES> = HVec::new();
-        for p in zone.probes.iter().take(MAX_PROBES) {
-            let _ = depths.push(p.depth_m);
-        }
-        let mut diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES> = HVec::new();
-        for i in 0..readings.fresh.len() {
-            let _ = diagnosis.push(stuck(&readings.spans, &depths, i).then_some((
-                Health::Stuck,
-                "the same value repeated exactly while a neighbouring probe changes",
-            )));
-        }
+        let depths: HVec<f64, MAX_PROBES> = zone.probes.iter().map(|p| p.depth_m).collect();
+        let mut diagnosis: HVec<Option<(Health, &'static str)>, MAX_PROBES> =
+            (0..readings.fresh.len())
+                .map(|i| {
+                    stuck(&readings.spans, &depths, i).then_some((
+                        Health::Stuck,
+                        "the same value repeated exactly while a neighbouring probe changes",
+                    ))
+                })
+                .collect();
+        let kept: HVec<(usize, ProbeSample), MAX_PROBES> = zone
+            .probes
+            .iter()
+            .zip(&readings.fresh)
+            .enumerate()
+            .filter_map(|(i, (probe, r))| match (r, diagnosis[i]) {
+                (Some(r), None) => Some((
+                    i,
+                    ProbeSample {
+                        depth_m: probe.depth_m,
+                        temp_c: r.celsius,
+                        sigma_c: r.sigma_c,
+                    },
+                )),
+                _ => None,
+            })
+            .collect();
         let mut valid = Valid {
-            samples: HVec::new(),
-            probe: HVec::new(),
+            samples: kept.iter().map(|k| k.1).collect(),
+            probe: kept.iter().map(|k| k.0).collect(),
             depth_sigma_m: HVec::new(),
         };
-        for (i, (probe, r)) in zone.probes.iter().zip(&readings.fresh).enumerate() {
-            if let (Some(r), None) = (r, diagnosis[i]) {
-                let _ = valid.samples.push(ProbeSample {
-                    depth_m: probe.depth_m,
-                    temp_c: r.celsius,
-                    sigma_c: r.sigma_c,
-                });
-                let _ = valid.probe.push(i);
-            }
-        }
         // Outliers only while the wall is near steady state: in a
         // transient the model's own misfit (steep curvature near the hot
         // face) would be blamed on a healthy probe. So every probe must be
         // changing slowly, the suspect too (a probe that jumped is judged
         // once its rate window has passed the jump). The test needs a
         // steady wall; a transient zone has none and skips it.
-        let mut sample_rates: HVec<Option<f64>, MAX_PROBES> = HVec::new();
-        for &i in &valid.probe {
-            let _ = sample_rates.push(readings.rates[i]);
-        }
+        let sample_rates: HVec<Option<f64>, MAX_PROBES> =
+            valid.probe.iter().map(|&i| readings.rates[i]).collect();
         if let Some(k) = Wall::new(zone, settings)
             .as_ref()
             .and_then(|w| outlier(w, &valid.samples, &sample_rates))
@@ -441,9 +454,11 @@ impl ZoneEngine {
             valid.samples.remove(k);
             valid.probe.remove(k);
         }
-        for &i in &valid.probe {
-            let _ = valid.depth_sigma_m.push(zone.probes[i].depth_sigma_m);
-        }
+        valid.depth_sigma_m = valid
+            .probe
+            .iter()
+            .map(|&i| zone.probes[i].depth_sigma_m)
+            .collect();
         self.diagnosis = diagnosis;
         valid
     }
@@ -461,24 +476,28 @@ impl ZoneEngine {
         now: Timestamp,
         max_age_s: f64,
     ) -> ZoneReport {
-        let mut probes: HVec<ProbeReport, MAX_PROBES> = HVec::new();
-        for (i, probe) in zone.probes.iter().enumerate() {
-            let (health, _) = channels[probe.channel].health_at(now, max_age_s);
-            let status = match (readings.fresh[i], self.diagnosis[i]) {
-                (_, Some((h, _))) => h,
-                (Some(_), None) => Health::Ok,
-                (None, None) => health,
-            };
-            let _ = probes.push(ProbeReport {
-                channel: settings.channels[probe.channel].name.clone(),
-                depth_mm: probe.depth_m * 1000.0,
-                measured_c: readings.fresh[i].map(|r| r.celsius),
-                fitted_c: None,
-                rate_measured_c_per_h: readings.rates[i],
-                rate_model_c_per_h: None,
-                status,
-            });
-        }
+        let probes = zone
+            .probes
+            .iter()
+            .enumerate()
+            .map(|(i, probe)| {
+                let (health, _) = channels[probe.channel].health_at(now, max_age_s);
+                let status = match (readings.fresh[i], self.diagnosis[i]) {
+                    (_, Some((h, _))) => h,
+                    (Some(_), None) => Health::Ok,
+                    (None, None) => health,
+                };
+                ProbeReport {
+                    channel: settings.channels[probe.channel].name.clone(),
+                    depth_mm: probe.depth_m * 1000.0,
+                    measured_c: readings.fresh[i].map(|r| r.celsius),
+                    fitted_c: None,
+                    rate_measured_c_per_h: readings.rates[i],
+                    rate_model_c_per_h: None,
+                    status,
+                }
+            })
+            .collect();
         ZoneReport {
             schema: ZONE_SCHEMA,
             time: now,
@@ -545,15 +564,16 @@ fn reported(
     view: Option<ZoneReport>,
 ) -> ZoneReport {
     // Each probe's standard uncertainty, for the checks' tolerances.
-    let mut sigma_c: HVec<Option<f64>, MAX_PROBES> = HVec::new();
-    for p in zone.probes.iter().take(MAX_PROBES) {
-        let _ = sigma_c.push(
+    let sigma_c: HVec<Option<f64>, MAX_PROBES> = zone
+        .probes
+        .iter()
+        .map(|p| {
             channels
                 .get(p.channel)
                 .and_then(|c| c.latest)
-                .map(|r| r.sigma_c),
-        );
-    }
+                .map(|r| r.sigma_c)
+        })
+        .collect();
     vet(&mut report, zone, &sigma_c);
     if let Some(mut v) = view {
         vet(&mut v, zone, &sigma_c);
@@ -667,7 +687,11 @@ fn stuck(spans: &[Option<f64>], depths: &[f64], i: usize) -> bool {
 /// standardised residual below 3). That second test needs a redundant fit
 /// without it, so five samples or more: a profile the model cannot follow
 /// (a fast transient) spreads over all probes and is not blamed on one.
-fn outlier(wall: &Wall<'_>, samples: &[ProbeSample], rates: &[Option<f64>]) -> Option<usize> {
+fn outlier(
+    wall: &Wall<'_>,
+    samples: &HVec<ProbeSample, MAX_PROBES>,
+    rates: &[Option<f64>],
+) -> Option<usize> {
     // The fit without the suspect must itself be redundant: more samples
     // than the model's parameters (quadratic 3, layered 2).
     let params = match wall {
@@ -678,29 +702,25 @@ fn outlier(wall: &Wall<'_>, samples: &[ProbeSample], rates: &[Option<f64>]) -> O
         return None;
     }
     let without = |i: usize| {
-        let mut rest: HVec<ProbeSample, MAX_PROBES> = HVec::new();
-        for (j, s) in samples.iter().enumerate() {
-            if j != i {
-                let _ = rest.push(*s);
-            }
-        }
+        let mut rest = samples.clone();
+        rest.remove(i);
         rest
     };
     // Studentised leave-one-out residuals, then the largest first: the
     // first whose removal leaves a consistent fit is the outlier (the
     // largest alone can be a well-behaved probe that the bad one drags).
-    let mut t: HVec<(usize, f64), MAX_PROBES> = HVec::new();
-    for (i, &s) in samples.iter().enumerate() {
-        let Some((y, sd)) = wall
-            .solve(&without(i))
-            .ok()
-            .and_then(|f| wall.fitted(&f, s.depth_m))
-        else {
-            continue;
-        };
-        let var = s.sigma_c * s.sigma_c + sd * sd;
-        let _ = t.push((i, ((s.temp_c - y) / var.sqrt()).abs()));
-    }
+    let mut t: HVec<(usize, f64), MAX_PROBES> = samples
+        .iter()
+        .enumerate()
+        .filter_map(|(i, &s)| {
+            let (y, sd) = wall
+                .solve(&without(i))
+                .ok()
+                .and_then(|f| wall.fitted(&f, s.depth_m))?;
+            let var = s.sigma_c * s.sigma_c + sd * sd;
+            Some((i, ((s.temp_c - y) / var.sqrt()).abs()))
+        })
+        .collect();
     t.sort_unstable_by(|a, b| b.1.total_cmp(&a.1));
     t.iter()
         .take_while(|(_, ti)| *ti > OUTLIER_T)
@@ -719,33 +739,6 @@ fn outlier(wall: &Wall<'_>, samples: &[ProbeSample], rates: &[Option<f64>]) -> O
                 })
                 .then_some(i)
         })
-}
-
-/// Least-squares slope of the probe's history over the window ending at
-/// `now_s`, °C/h. Needs at least three points spanning two intervals, so a
-/// single step does not read as a rate.
-fn measured_rate_c_per_h(
-    history: &HistoryBuf<(f64, f64), RATE_POINTS>,
-    now_s: f64,
-    window_s: f64,
-    interval_s: f64,
-) -> Option<f64> {
-    let mut ts: HVec<f64, RATE_POINTS> = HVec::new();
-    let mut vs: HVec<f64, RATE_POINTS> = HVec::new();
-    for &(t, v) in history.oldest_ordered() {
-        if now_s - t <= window_s {
-            let _ = ts.push(t);
-            let _ = vs.push(v);
-        }
-    }
-    let span = match (ts.first(), ts.last()) {
-        (Some(a), Some(b)) => b - a,
-        _ => return None,
-    };
-    if ts.len() < 3 || span < 2.0 * interval_s.min(window_s / 2.0) {
-        return None;
-    }
-    linear_slope(&ts, &vs).map(|(slope, _)| slope * 3600.0)
 }
 
 /// Notes of the statuses, in the words a plant engineer reads.
@@ -982,14 +975,17 @@ fn implausibility(
     let air = zone.ambient_c;
     let shell_at = shell_probe(report, zone);
     // (valid probe, its σ) inside the wall (the shell probe aside), by depth.
-    let mut inner: HVec<(&ProbeReport, f64), MAX_PROBES> = HVec::new();
-    for (i, p) in report.probes.iter().enumerate() {
-        let valid = p.status == Health::Ok && p.measured_c.is_some();
-        if valid && shell_at.is_none_or(|(_, s)| s != i) {
-            // Cannot fail: no more than the report's probes.
-            let _ = inner.push((p, probe_sigma_c.get(i).copied().flatten().unwrap_or(0.0)));
-        }
-    }
+    let mut inner: HVec<(&ProbeReport, f64), MAX_PROBES> = report
+        .probes
+        .iter()
+        .enumerate()
+        .filter(|(i, p)| {
+            p.status == Health::Ok
+                && p.measured_c.is_some()
+                && shell_at.is_none_or(|(_, s)| s != *i)
+        })
+        .map(|(i, p)| (p, probe_sigma_c.get(i).copied().flatten().unwrap_or(0.0)))
+        .collect();
     inner.sort_unstable_by(|a, b| a.0.depth_mm.total_cmp(&b.0.depth_mm));
     let probe_sigma = |i: usize| probe_sigma_c.get(i).copied().flatten().unwrap_or(0.0);
     let not_cooling = |p: &ProbeReport| {

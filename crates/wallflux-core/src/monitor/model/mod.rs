@@ -13,11 +13,13 @@
 
 use core::fmt::Write;
 
+use heapless::Vec as HVec;
+
 use super::channel::ChannelState;
 use super::lining::Baseline;
 use super::wall::WallError;
 use super::zone::ZoneReport;
-use crate::config::{Model, NamedMaterial, Settings, Zone};
+use crate::config::{Model, NamedMaterial, Settings, Zone, MAX_PROBES};
 use crate::physics::profile::ProbeSample;
 use crate::physics::transient::TransientError;
 use crate::time::Timestamp;
@@ -80,9 +82,9 @@ pub struct ModelInput<'a> {
     pub channels: &'a [ChannelState],
     /// The valid samples of this cycle (fresh and not faulted by the
     /// diagnostics), in configured probe order.
-    pub samples: &'a [ProbeSample],
+    pub samples: &'a HVec<ProbeSample, MAX_PROBES>,
     /// Each sample's depth standard uncertainty, m.
-    pub depth_sigma_m: &'a [f64],
+    pub depth_sigma_m: &'a HVec<f64, MAX_PROBES>,
     /// Readings older than this are stale, s.
     pub max_age_s: f64,
     pub now: Timestamp,

@@ -216,17 +216,21 @@ impl ZoneModel for Steady {
 /// ∫₀ᴸ ρ c_p ∂T/∂t dx from the valid probes' measured rates (trapezoid in
 /// depth order; the shallowest and deepest values held to the faces).
 /// Needs two probes with rates.
-fn stored_w_m2(probes: &[ProbeReport], wall: &Wall<'_>) -> Option<f64> {
+fn stored_w_m2(probes: &HVec<ProbeReport, MAX_PROBES>, wall: &Wall<'_>) -> Option<f64> {
     let thickness_m = wall.thickness_m();
-    let mut pts: HVec<(f64, f64), MAX_PROBES> = HVec::new();
-    for p in probes.iter().filter(|p| p.status == Health::Ok) {
-        let x = p.depth_mm / 1000.0;
-        if let (Some(rate), Some(t), Some(m)) =
-            (p.rate_measured_c_per_h, p.measured_c, wall.material_at(x))
-        {
-            let _ = pts.push((x, m.heat_capacity_j_m3k(t) * rate / 3600.0));
-        }
-    }
+    let mut pts: HVec<(f64, f64), MAX_PROBES> = probes
+        .iter()
+        .filter(|p| p.status == Health::Ok)
+        .filter_map(|p| {
+            let x = p.depth_mm / 1000.0;
+            let (rate, t, m) = (
+                p.rate_measured_c_per_h?,
+                p.measured_c?,
+                wall.material_at(x)?,
+            );
+            Some((x, m.heat_capacity_j_m3k(t) * rate / 3600.0))
+        })
+        .collect();
     if pts.len() < 2 {
         return None;
     }
@@ -252,15 +256,16 @@ pub const FAST_RATE_C_PER_H: f64 = 5.0;
 /// that face first, so a disagreement there, or at two probes, is the
 /// wall; one interior probe alone, between neighbours that agree, is that
 /// probe (a jump its own rate window still holds: the diagnostics judge it).
-fn rates_contradict_steady(probes: &[ProbeReport]) -> bool {
-    let mut by_depth: HVec<(f64, bool), MAX_PROBES> = HVec::new();
-    for p in probes.iter().filter(|p| p.status == Health::Ok) {
-        if let Some(measured) = p.rate_measured_c_per_h {
+fn rates_contradict_steady(probes: &HVec<ProbeReport, MAX_PROBES>) -> bool {
+    let mut by_depth: HVec<(f64, bool), MAX_PROBES> = probes
+        .iter()
+        .filter(|p| p.status == Health::Ok)
+        .filter_map(|p| {
+            let measured = p.rate_measured_c_per_h?;
             let off = (measured - p.rate_model_c_per_h.unwrap_or(0.0)).abs() > FAST_RATE_C_PER_H;
-            // At most MAX_PROBES probes: cannot overflow.
-            let _ = by_depth.push((p.depth_mm, off));
-        }
-    }
+            Some((p.depth_mm, off))
+        })
+        .collect();
     by_depth.sort_unstable_by(|a, b| a.0.total_cmp(&b.0));
     let off = by_depth.iter().filter(|p| p.1).count();
     let at_a_face = by_depth.first().is_some_and(|p| p.1) || by_depth.last().is_some_and(|p| p.1);

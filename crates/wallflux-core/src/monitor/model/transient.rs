@@ -163,24 +163,31 @@ impl ZoneModel for Transient {
         };
         // Conductivity, heat capacity and probe depths on top of the
         // filter's σ (the readings' part): physics::uncertainty.
-        let mut layers: HVec<TransientLayerInput<'_>, MAX_LAYERS> = HVec::new();
-        for l in &zone.layers {
-            let m = &settings.materials[l.material];
-            let _ = layers.push(TransientLayerInput {
-                material: &m.material,
-                thickness_m: l.thickness_m,
-                conductivity_rel: m.conductivity_uncertainty_pct / 100.0,
-                heat_capacity_rel: m.heat_capacity_uncertainty_pct / 100.0,
-            });
-        }
-        let mut nodes: HVec<(f64, f64, f64), MAX_NODES> = HVec::new();
-        for n in est.profile() {
-            let _ = nodes.push((n.depth_m, n.temp_c, n.rate_c_per_h / 3600.0));
-        }
-        let mut probe_depths: HVec<(f64, f64), MAX_PROBES> = HVec::new();
-        for (s, &sd) in samples.iter().zip(depth_sigma_m) {
-            let _ = probe_depths.push((s.depth_m, sd));
-        }
+        // Each collected from a source of its own capacity: the zone's
+        // layers, the model's nodes, the cycle's samples.
+        let layers: HVec<TransientLayerInput<'_>, MAX_LAYERS> = zone
+            .layers
+            .iter()
+            .map(|l| {
+                let m = &settings.materials[l.material];
+                TransientLayerInput {
+                    material: &m.material,
+                    thickness_m: l.thickness_m,
+                    conductivity_rel: m.conductivity_uncertainty_pct / 100.0,
+                    heat_capacity_rel: m.heat_capacity_uncertainty_pct / 100.0,
+                }
+            })
+            .collect();
+        let nodes: HVec<(f64, f64, f64), MAX_NODES> = est
+            .profile()
+            .iter()
+            .map(|n| (n.depth_m, n.temp_c, n.rate_c_per_h / 3600.0))
+            .collect();
+        let probe_depths: HVec<(f64, f64), MAX_PROBES> = samples
+            .iter()
+            .zip(depth_sigma_m)
+            .map(|(s, &sd)| (s.depth_m, sd))
+            .collect();
         let inputs = TransientInputs {
             layers: &layers,
             nodes: &nodes,
@@ -208,20 +215,21 @@ impl ZoneModel for Transient {
             .into_iter()
             .chain(zone.firing_setpoint_c)
             .fold(f64::INFINITY, f64::min);
-        let mut forecast: HVec<ForecastReport, MAX_FORECASTS> = HVec::new();
-        for &h in zone.forecast_h.iter().take(MAX_FORECASTS) {
-            if let Some(f) = est.forecast(h * 3600.0, cap) {
-                let _ = forecast.push(ForecastReport {
+        // One per configured horizon, of which there are at most MAX_FORECASTS.
+        let forecast: HVec<ForecastReport, MAX_FORECASTS> = zone
+            .forecast_h
+            .iter()
+            .filter_map(|&h| {
+                est.forecast(h * 3600.0, cap).map(|f| ForecastReport {
                     horizon_h: h,
                     shell_c: f.shell_c,
                     hot_face_c: f.hot_face_c,
                     interface_c: f.interface_c.clone(),
-                });
-            }
-        }
+                })
+            })
+            .collect();
         report.forecast = Some(forecast);
         let longest_s = zone.forecast_h.iter().copied().fold(0.0, f64::max) * 3600.0;
-        let mut limits: HVec<LimitReport, MAX_LIMITS> = HVec::new();
         let touch = settings
             .alarms
             .iter()
@@ -235,15 +243,21 @@ impl ZoneModel for Transient {
                         })
             })
             .map_or(crate::config::DEFAULT_SHELL_TOUCH_C, |a| a.spec.setpoint);
-        let _ = limits.push(LimitReport {
+        let shell_touch = LimitReport {
             limit: "shell_touch",
             index: None,
             limit_c: touch,
             hours: est.time_to_limit_h(Limit::ShellC(touch), longest_s, cap),
-        });
-        for (i, layer) in zone.layers.iter().enumerate().skip(1) {
-            if let Some(limit_c) = settings.materials[layer.material].material.max_service_c {
-                let _ = limits.push(LimitReport {
+        };
+        // The shell and one per interface: at most MAX_LAYERS = MAX_LIMITS.
+        let interfaces = zone
+            .layers
+            .iter()
+            .enumerate()
+            .skip(1)
+            .filter_map(|(i, layer)| {
+                let limit_c = settings.materials[layer.material].material.max_service_c?;
+                Some(LimitReport {
                     limit: "interface_service",
                     index: Some(i - 1),
                     limit_c,
@@ -255,9 +269,10 @@ impl ZoneModel for Transient {
                         longest_s,
                         cap,
                     ),
-                });
-            }
-        }
+                })
+            });
+        let limits: HVec<LimitReport, MAX_LIMITS> =
+            core::iter::once(shell_touch).chain(interfaces).collect();
         report.time_to_limit_h = Some(limits);
         Ok(())
     }
