@@ -273,17 +273,19 @@ pub struct LayeredSolution {
     pub check: ModelCheck,
 }
 
-/// Whether the steady layered model explains the probe readings.
-#[derive(Debug, Clone, Copy, PartialEq, Eq)]
-pub enum ModelCheck {
-    /// χ² is within its 3σ quantile: the readings are what a steady wall with
-    /// these layers and these probe uncertainties would give.
-    Consistent,
-    /// Residuals exceed what the probe uncertainties allow: the wall is not at
-    /// steady state (or a probe or the model is wrong).
-    Contradicted,
-    /// Too few probes to judge (dof = 0), or no probes at all.
-    Untested,
+crate::word_enum! {
+    /// Whether the steady layered model explains the probe readings.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum ModelCheck {
+        /// χ² is within its 3σ quantile: the readings are what a steady wall with
+        /// these layers and these probe uncertainties would give.
+        Consistent = "consistent",
+        /// Residuals exceed what the probe uncertainties allow: the wall is not at
+        /// steady state (or a probe or the model is wrong).
+        Contradicted = "contradicted",
+        /// Too few probes to judge (dof = 0), or no probes at all.
+        Untested = "untested",
+    }
 }
 
 /// A temperature reading at the hot face (a kiln atmosphere or hot-face

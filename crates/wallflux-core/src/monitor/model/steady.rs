@@ -65,7 +65,7 @@ impl ZoneModel for Steady {
         // Data that contradict the model (residuals beyond what the probes'
         // uncertainties allow: the wall is not at steady state, or a probe
         // or the model is wrong) degrade the zone, with the reason.
-        report.model_check = Some(check_name(sol.check));
+        report.model_check = Some(sol.check.name());
         report.model_note = (sol.check == ModelCheck::Contradicted).then(|| {
             note(if changing_fast(&report.probes) {
                 NOTE_NOT_STEADY
@@ -270,14 +270,6 @@ fn rates_contradict_steady(probes: &HVec<ProbeReport, MAX_PROBES>) -> bool {
     let off = by_depth.iter().filter(|p| p.1).count();
     let at_a_face = by_depth.first().is_some_and(|p| p.1) || by_depth.last().is_some_and(|p| p.1);
     off >= 2 || at_a_face
-}
-
-fn check_name(c: ModelCheck) -> &'static str {
-    match c {
-        ModelCheck::Consistent => "consistent",
-        ModelCheck::Contradicted => "contradicted",
-        ModelCheck::Untested => "untested",
-    }
 }
 
 /// Relative mismatch of two flux estimates, %; None when the reference is

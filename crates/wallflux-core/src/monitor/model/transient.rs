@@ -244,7 +244,7 @@ impl ZoneModel for Transient {
             })
             .map_or(crate::config::DEFAULT_SHELL_TOUCH_C, |a| a.spec.setpoint);
         let shell_touch = LimitReport {
-            limit: "shell_touch",
+            limit: LimitKind::ShellTouch,
             index: None,
             limit_c: touch,
             hours: est.time_to_limit_h(Limit::ShellC(touch), longest_s, cap),
@@ -258,7 +258,7 @@ impl ZoneModel for Transient {
             .filter_map(|(i, layer)| {
                 let limit_c = settings.materials[layer.material].material.max_service_c?;
                 Some(LimitReport {
-                    limit: "interface_service",
+                    limit: LimitKind::InterfaceService,
                     index: Some(i - 1),
                     limit_c,
                     hours: est.time_to_limit_h(
@@ -287,12 +287,23 @@ pub struct ForecastReport {
     pub interface_c: HVec<f64, MAX_LAYERS>,
 }
 
+crate::word_enum! {
+    /// Which limit a time to limit is for.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum LimitKind {
+        /// The shell's touch limit (the built-in shell-temperature alarm's
+        /// set-point).
+        ShellTouch = "shell_touch",
+        /// The `max_service_c` of the layer behind an interface.
+        InterfaceService = "interface_service",
+    }
+}
+
 /// When a limit is reached under the forecast (None: not within the
 /// longest horizon).
 #[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct LimitReport {
-    /// `shell_touch` or `interface_service`.
-    pub limit: &'static str,
+    pub limit: LimitKind,
     /// The interface (0 = between the first two layers).
     #[serde(skip_serializing_if = "Option::is_none")]
     pub index: Option<usize>,
