@@ -258,19 +258,21 @@ impl Validator<'_> {
         let ok_chars = v
             .chars()
             .all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-');
-        if v.is_empty() || v.len() > MAX_NAME || !ok_chars {
-            self.problem(
-                s.span(),
-                path,
-                format!(
-                    "{v:?} is not a valid name: use 1 to {MAX_NAME} characters of A-Z a-z 0-9 _ - (names appear in MQTT topics)"
-                ),
-            );
-            return Name::new();
+        // The conversion is the length check: a name longer than MAX_NAME
+        // bytes is refused here, never cut short.
+        match Name::try_from(v.as_str()) {
+            Ok(n) if !v.is_empty() && ok_chars => n,
+            _ => {
+                self.problem(
+                    s.span(),
+                    path,
+                    format!(
+                        "{v:?} is not a valid name: use 1 to {MAX_NAME} characters of A-Z a-z 0-9 _ - (names appear in MQTT topics)"
+                    ),
+                );
+                Name::new()
+            }
         }
-        let mut n = Name::new();
-        let _ = n.push_str(v);
-        n
     }
 
     fn warning(&mut self, span: Range<usize>, path: impl Into<String>, message: impl Into<String>) {

@@ -144,14 +144,13 @@ where
     F: FnMut(&[ProbeSample], &[f64; MAX_LAYERS], &mut Outputs) -> Option<usize>,
 {
     let n_s = inputs.samples.len();
-    if n_s > MAX_PROBES || inputs.depth_sigma_m.len() != n_s {
+    if inputs.depth_sigma_m.len() != n_s {
         return None;
     }
     let ones = [1.0; MAX_LAYERS];
-    let mut work: HVec<ProbeSample, MAX_PROBES> = HVec::new();
-    for s in inputs.samples {
-        let _ = work.push(*s);
-    }
+    // More than MAX_PROBES samples: no budget at all (the steady fits refuse
+    // them too), never a budget of the first MAX_PROBES.
+    let mut work: HVec<ProbeSample, MAX_PROBES> = HVec::from_slice(inputs.samples).ok()?;
     let mut nominal = [0.0; MAX_OUTPUTS];
     let n = model(&work, &ones, &mut nominal)?.min(MAX_OUTPUTS);
     let mut budget = Budget::zero(n);
