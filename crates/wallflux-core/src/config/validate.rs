@@ -14,7 +14,8 @@ use heapless::Vec as HVec;
 use super::raw::*;
 use super::*;
 use crate::monitor::alarm::{AlarmKind, AlarmSpec, Priority};
-use crate::physics::material::{Material, Property};
+use crate::physics::material::{Material, Property, MAX_POLYNOMIAL_TERMS};
+use crate::protocol::line::MAX_INPUT;
 
 /// A built-in alarm (no baseline; its operator texts given).
 fn builtin(
@@ -260,19 +261,21 @@ impl Validator<'_> {
         let ok_chars = v
             .chars()
             .all(|c| c.is_ascii_alphanumeric() || c == '_' || c == '-');
-        if v.is_empty() || v.len() > MAX_NAME || !ok_chars {
-            self.problem(
-                s.span(),
-                path,
-                format!(
-                    "{v:?} is not a valid name: use 1 to {MAX_NAME} characters of A-Z a-z 0-9 _ - (names appear in MQTT topics)"
-                ),
-            );
-            return Name::new();
+        // The conversion is the length check: a name longer than MAX_NAME
+        // bytes is refused here, never cut short.
+        match Name::try_from(v.as_str()) {
+            Ok(n) if !v.is_empty() && ok_chars => n,
+            _ => {
+                self.problem(
+                    s.span(),
+                    path,
+                    format!(
+                        "{v:?} is not a valid name: use 1 to {MAX_NAME} characters of A-Z a-z 0-9 _ - (names appear in MQTT topics)"
+                    ),
+                );
+                Name::new()
+            }
         }
-        let mut n = Name::new();
-        let _ = n.push_str(v);
-        n
     }
 
     fn warning(&mut self, span: Range<usize>, path: impl Into<String>, message: impl Into<String>) {
@@ -1261,13 +1264,15 @@ impl Validator<'_> {
                 usize::MAX
             }
         };
-        let input = match *c.input.get_ref() {
-            n @ 1..=64 => n as u8,
-            n => {
+        // Inputs are distinct per source (checked with the channels), so a
+        // source has at most MAX_INPUT of them.
+        let input = match u8::try_from(*c.input.get_ref()) {
+            Ok(n @ 1..=MAX_INPUT) => n,
+            _ => {
                 self.problem(
                     c.input.span(),
                     p("input"),
-                    format!("must be 1 to 64, got {n}"),
+                    format!("must be 1 to {MAX_INPUT}, got {}", c.input.get_ref()),
                 );
                 0
             }
@@ -1382,7 +1387,7 @@ impl Validator<'_> {
                 to_c,
             } => {
                 if coefficients.is_empty()
-                    || coefficients.len() > 5
+                    || coefficients.len() > MAX_POLYNOMIAL_TERMS
                     || from_c >= to_c
                     || !from_c.is_finite()
                     || !to_c.is_finite()
@@ -1390,7 +1395,7 @@ impl Validator<'_> {
                     self.problem(
                         s.span(),
                         path,
-                        "a polynomial needs 1 to 5 coefficients and from_c < to_c",
+                        format!("a polynomial needs 1 to {MAX_POLYNOMIAL_TERMS} coefficients and from_c < to_c"),
                     );
                     return Property::Constant(1.0);
                 }

@@ -38,6 +38,10 @@
 /// Highest polynomial degree supported.
 pub const MAX_DEGREE: usize = 2;
 
+/// Coefficients of a polynomial of [`MAX_DEGREE`]: the size of every
+/// coefficient, gradient and covariance array of a fit.
+pub const MAX_COEFFS: usize = MAX_DEGREE + 1;
+
 /// Relative rank tolerance: column `j` of the weighted design matrix counts
 /// as independent of the columns before it when the diagonal `R_jj` of its QR
 /// factor exceeds this fraction of the column's norm (the sine of its angle to
@@ -90,11 +94,11 @@ pub struct PolyFit {
     /// Degree of the polynomial, 0..=2.
     pub degree: usize,
     /// `c0, c1, c2`; those above `degree` are 0.
-    pub coeffs: [f64; 3],
+    pub coeffs: [f64; MAX_COEFFS],
     /// Covariance of `coeffs`, `(AᵀWA)⁻¹` with the a-priori σ (not rescaled
     /// by the reduced χ²; see the module docs). Rows and columns above
     /// `degree` are 0.
-    pub covariance: [[f64; 3]; 3],
+    pub covariance: [[f64; MAX_COEFFS]; MAX_COEFFS],
     /// Unweighted RMS residual, `sqrt(Σ r² / n)`, in the units of `y`.
     pub rms: f64,
     /// `χ² = Σ (r/σ)²`.
@@ -110,8 +114,8 @@ pub struct PolyFit {
 struct Centered {
     center: f64,
     half_span: f64,
-    coeffs: [f64; 3],
-    covariance: [[f64; 3]; 3],
+    coeffs: [f64; MAX_COEFFS],
+    covariance: [[f64; MAX_COEFFS]; MAX_COEFFS],
 }
 
 impl Centered {
@@ -125,19 +129,19 @@ impl Centered {
     }
 
     /// Gradient of `y(x)` with respect to the centred coefficients.
-    fn value_gradient(&self, x: f64) -> [f64; 3] {
+    fn value_gradient(&self, x: f64) -> [f64; MAX_COEFFS] {
         let u = self.u(x);
         [1.0, u, u * u]
     }
 
     /// Gradient of `dy/dx (x)` with respect to the centred coefficients.
-    fn slope_gradient(&self, x: f64) -> [f64; 3] {
+    fn slope_gradient(&self, x: f64) -> [f64; MAX_COEFFS] {
         let u = self.u(x);
         [0.0, 1.0 / self.half_span, 2.0 * u / self.half_span]
     }
 
     /// `gᵀ C h`.
-    fn bilinear(&self, g: [f64; 3], h: [f64; 3]) -> f64 {
+    fn bilinear(&self, g: [f64; MAX_COEFFS], h: [f64; MAX_COEFFS]) -> f64 {
         let mut sum = 0.0;
         for (gi, row) in g.iter().zip(self.covariance.iter()) {
             for (cij, hj) in row.iter().zip(h.iter()) {
@@ -271,8 +275,8 @@ where
     };
 
     // Pass 2: fold each weighted row into R and z by Givens rotations.
-    let mut r = [[0.0_f64; 3]; 3];
-    let mut z = [0.0_f64; 3];
+    let mut r = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
+    let mut z = [0.0_f64; MAX_COEFFS];
     for (x, y, sigma) in points.clone() {
         let sqrt_w = 1.0 / sigma;
         let u = (x - center) / half_span;
@@ -295,7 +299,7 @@ where
     }
 
     // d = R⁻¹ z by back substitution; cov_d = R⁻¹ R⁻ᵀ.
-    let mut d = [0.0_f64; 3];
+    let mut d = [0.0_f64; MAX_COEFFS];
     for i in (0..p).rev() {
         let mut s = z[i];
         for k in (i + 1)..p {
@@ -304,7 +308,7 @@ where
         d[i] = s / r[i][i];
     }
     let r_inv = upper_inverse(&r, p);
-    let mut cov_d = [[0.0_f64; 3]; 3];
+    let mut cov_d = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
     for i in 0..p {
         for j in 0..p {
             cov_d[i][j] = (i.max(j)..p).map(|k| r_inv[i][k] * r_inv[j][k]).sum();
@@ -314,12 +318,12 @@ where
     // Back to x: y = d0 + d1 u + d2 u², u = (x − m)/h, so
     // c0 = d0 − d1 m/h + d2 m²/h², c1 = d1/h − 2 d2 m/h², c2 = d2/h².
     let (m, h) = (center, half_span);
-    let mut t = [[0.0_f64; 3]; 3];
+    let mut t = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
     t[0] = [1.0, -m / h, m * m / (h * h)];
     t[1] = [0.0, 1.0 / h, -2.0 * m / (h * h)];
     t[2] = [0.0, 0.0, 1.0 / (h * h)];
-    let mut coeffs = [0.0_f64; 3];
-    let mut covariance = [[0.0_f64; 3]; 3];
+    let mut coeffs = [0.0_f64; MAX_COEFFS];
+    let mut covariance = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
     for i in 0..p {
         coeffs[i] = (0..p).map(|k| t[i][k] * d[k]).sum();
         for j in 0..p {
@@ -371,13 +375,13 @@ where
 /// Fold one row `(row | rhs)` into the triangular factor `R | z` with Givens
 /// rotations that zero the row's entries left to right; `p ≤ 3` columns.
 fn givens_fold(
-    r: &mut [[f64; 3]; 3],
-    z: &mut [f64; 3],
-    row: &mut [f64; 3],
+    r: &mut [[f64; MAX_COEFFS]; MAX_COEFFS],
+    z: &mut [f64; MAX_COEFFS],
+    row: &mut [f64; MAX_COEFFS],
     rhs: &mut f64,
     p: usize,
 ) {
-    for j in 0..p.min(3) {
+    for j in 0..p.min(MAX_COEFFS) {
         let a = row[j];
         if a == 0.0 {
             continue;
@@ -386,7 +390,7 @@ fn givens_fold(
         let hyp = rjj.hypot(a);
         let (c, s) = (rjj / hyp, a / hyp);
         r[j][j] = hyp;
-        for k in (j + 1)..p.min(3) {
+        for k in (j + 1)..p.min(MAX_COEFFS) {
             let (rk, ak) = (r[j][k], row[k]);
             r[j][k] = c * rk + s * ak;
             row[k] = c * ak - s * rk;
@@ -399,11 +403,11 @@ fn givens_fold(
 
 /// Inverse of the leading `p × p` block of an upper-triangular matrix with a
 /// non-zero diagonal (checked by the caller), column by column.
-fn upper_inverse(r: &[[f64; 3]; 3], p: usize) -> [[f64; 3]; 3] {
+fn upper_inverse(r: &[[f64; MAX_COEFFS]; MAX_COEFFS], p: usize) -> [[f64; MAX_COEFFS]; MAX_COEFFS] {
     // Column j of R⁻¹ solves R col = e_j; back substitution from row j up.
-    let mut inv = [[0.0_f64; 3]; 3];
-    for j in 0..p.min(3) {
-        let mut col = [0.0_f64; 3];
+    let mut inv = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
+    for j in 0..p.min(MAX_COEFFS) {
+        let mut col = [0.0_f64; MAX_COEFFS];
         for i in (0..=j).rev() {
             let unit = if i == j { 1.0 } else { 0.0 };
             let s: f64 = ((i + 1)..=j).map(|k| r[i][k] * col[k]).sum();

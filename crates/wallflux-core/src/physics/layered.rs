@@ -95,6 +95,7 @@
 
 use heapless::Vec as HVec;
 
+use crate::bounded::{Full, PushWithin};
 use crate::physics::fit::FitError;
 use crate::physics::material::{Material, Property};
 use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
@@ -185,6 +186,10 @@ pub enum LayeredError {
     /// The shell surface parameters are invalid.
     #[error(transparent)]
     Surface(#[from] SurfaceError),
+    /// A fixed capacity was reached (inputs are checked against the limits
+    /// first, so this names a fault, never a silently shortened result).
+    #[error(transparent)]
+    Capacity(#[from] Full),
     /// The iteration did not converge (Gauss–Newton, a Kirchhoff inversion, or
     /// the shell balance).
     #[error("the layered solve did not converge after {iterations} iterations")]
@@ -571,9 +576,9 @@ impl<'a> LayeredWall<'a> {
         let mut interface_c = HVec::new();
         let mut sigma_interface_c = HVec::new();
         for out in m.outlet.iter().take(m.n.saturating_sub(1)) {
-            // Capacity: at most MAX_LAYERS − 1 interfaces.
-            let _ = interface_c.push(out.t_c);
-            let _ = sigma_interface_c.push(quad2(&cov, [out.grad[0], out.grad[1]]).sqrt());
+            interface_c.push_within(out.t_c, "interfaces")?;
+            sigma_interface_c
+                .push_within(quad2(&cov, [out.grad[0], out.grad[1]]).sqrt(), "interfaces")?;
         }
         let shell = m.shell();
         let resistance = m.resistance_m2k_w(&geom);
@@ -670,8 +675,8 @@ impl<'a> LayeredWall<'a> {
         let mut interface_c = HVec::new();
         let mut sigma_interface_c = HVec::new();
         for out in m.outlet.iter().take(m.n.saturating_sub(1)) {
-            let _ = interface_c.push(out.t_c);
-            let _ = sigma_interface_c.push(0.0);
+            interface_c.push_within(out.t_c, "interfaces")?;
+            sigma_interface_c.push_within(0.0, "interfaces")?;
         }
         let solution = LayeredSolution {
             hot_face_c,
@@ -867,8 +872,7 @@ impl<'a> LayeredWall<'a> {
                 thickness_m,
                 contact_m2k_w,
             };
-            // Capacity: the wall's own Vec has the same capacity.
-            let _ = geom.push(g);
+            geom.push_within(g, "layers")?;
             start_m += thickness_m;
         }
         if !start_m.is_finite() {
@@ -950,8 +954,7 @@ fn checked_probes(
             return Err(FitError::BadWeight.into());
         }
         let depth_m = checked_depth(geom, s.depth_m)?;
-        // Capacity was checked above.
-        let _ = probes.push(ProbeSample { depth_m, ..*s });
+        probes.push_within(ProbeSample { depth_m, ..*s }, "probes")?;
     }
     if probes.len() < min_depths {
         return Err(FitError::TooFewPoints {
@@ -2314,6 +2317,10 @@ mod tests {
             Err(LayeredError::TooManyProbes { have: 17 })
         );
         assert_eq!(
+            w.solve(&many).unwrap_err().to_string(),
+            "a layered fit takes at most 16 probes, got 17"
+        );
+        assert_eq!(
             w.temperature_at(f64::NAN, 1000.0, 0.1),
             Err(LayeredError::Fit(NonFinite))
         );
@@ -2328,6 +2335,13 @@ mod tests {
         assert_eq!(
             LayeredWall::new(&nine).err(),
             Some(LayeredError::TooManyLayers { have: 9 })
+        );
+        assert_eq!(
+            LayeredWall::new(&nine)
+                .err()
+                .map(|e| e.to_string())
+                .as_deref(),
+            Some("a wall has at most 8 layers, got 9")
         );
         for t in [0.0, -0.1, f64::NAN] {
             assert!(matches!(

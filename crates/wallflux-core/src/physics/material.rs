@@ -7,6 +7,8 @@
 
 use heapless::Vec as HVec;
 
+use crate::bounded::{Full, PushWithin};
+
 /// Most points a conductivity or specific-heat table may have.
 pub const MAX_TABLE_POINTS: usize = 16;
 
@@ -22,6 +24,10 @@ pub enum MaterialError {
     /// Table temperatures must rise strictly from one point to the next.
     #[error("table temperatures must rise strictly ({prev_c} °C then {next_c} °C)")]
     TableOrder { prev_c: f64, next_c: f64 },
+    /// A fixed capacity was reached (the sizes are checked first, so this
+    /// names a fault, never a shortened table).
+    #[error(transparent)]
+    Capacity(#[from] Full),
 }
 
 /// A property that is constant, tabulated against temperature (piecewise
@@ -101,8 +107,7 @@ impl Property {
                     });
                 }
             }
-            // Capacity was checked above.
-            let _ = v.push((t, k));
+            v.push_within((t, k), "table points")?;
         }
         Ok(Property::Table(v))
     }
@@ -126,7 +131,7 @@ impl Property {
                     value: a,
                 });
             }
-            let _ = c.push(a);
+            c.push_within(a, "polynomial coefficients")?;
         }
         if !(from_c.is_finite() && to_c.is_finite() && from_c < to_c) {
             return Err(MaterialError::NotPositive {

@@ -326,11 +326,7 @@ mod tests {
         (got - want).abs() <= rel * want.abs()
     }
 
-    fn samples_of(
-        depths: &[f64],
-        profile: impl Fn(f64) -> f64,
-        sigma_c: f64,
-    ) -> heapless::Vec<ProbeSample, 64> {
+    fn samples_of(depths: &[f64], profile: impl Fn(f64) -> f64, sigma_c: f64) -> Vec<ProbeSample> {
         depths
             .iter()
             .map(|&d| ProbeSample {

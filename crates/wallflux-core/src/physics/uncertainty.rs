@@ -42,6 +42,15 @@ pub const OUT_RESISTANCE: usize = 4;
 /// The first interface temperature (layered); more follow.
 pub const OUT_INTERFACE: usize = 5;
 
+/// Outputs of the transient budget: hot face, shell and both fluxes (the
+/// model has no single thermal resistance, and its interfaces are not
+/// budgeted).
+pub const TRANSIENT_OUTPUTS: usize = OUT_FLUX_SHELL + 1;
+
+/// Independent sources of a budget: thermocouple, depth, conductivity,
+/// heat capacity ([`Budget::shares_pct`]).
+pub const SOURCES: usize = 4;
+
 /// A model's outputs for one set of inputs, by the `OUT_*` indices.
 pub type Outputs = [f64; MAX_OUTPUTS];
 
@@ -87,7 +96,7 @@ impl Budget {
     /// Each source's share of the variance of output `i`, %
     /// (thermocouple, depth, conductivity, heat capacity; they sum to 100).
     /// None when the combined variance is zero or not finite.
-    pub fn shares_pct(&self, i: usize) -> Option<[f64; 4]> {
+    pub fn shares_pct(&self, i: usize) -> Option<[f64; SOURCES]> {
         let t = self.total(i);
         let var = t * t;
         if !(var.is_finite() && var > 0.0) {
@@ -144,14 +153,13 @@ where
     F: FnMut(&[ProbeSample], &[f64; MAX_LAYERS], &mut Outputs) -> Option<usize>,
 {
     let n_s = inputs.samples.len();
-    if n_s > MAX_PROBES || inputs.depth_sigma_m.len() != n_s {
+    if inputs.depth_sigma_m.len() != n_s {
         return None;
     }
     let ones = [1.0; MAX_LAYERS];
-    let mut work: HVec<ProbeSample, MAX_PROBES> = HVec::new();
-    for s in inputs.samples {
-        let _ = work.push(*s);
-    }
+    // More than MAX_PROBES samples: no budget at all (the steady fits refuse
+    // them too), never a budget of the first MAX_PROBES.
+    let mut work: HVec<ProbeSample, MAX_PROBES> = HVec::from_slice(inputs.samples).ok()?;
     let mut nominal = [0.0; MAX_OUTPUTS];
     let n = model(&work, &ones, &mut nominal)?.min(MAX_OUTPUTS);
     let mut budget = Budget::zero(n);
@@ -315,7 +323,7 @@ pub struct TransientInputs<'a> {
     /// The probes used: `(depth_m, depth σ in m)`.
     pub probes: &'a [(f64, f64)],
     /// The filter's σ of hot face, shell, q(0), q(L) (the readings' part).
-    pub filter_sigma: [f64; 4],
+    pub filter_sigma: [f64; TRANSIENT_OUTPUTS],
     /// Estimated q(0) and q(L), W/m².
     pub flux_hot_face_w_m2: f64,
     pub flux_shell_w_m2: f64,
@@ -399,10 +407,10 @@ pub fn transient_budget(inp: &TransientInputs<'_>) -> Option<Budget> {
         }
     }
 
-    let mut b = Budget::zero(4);
-    b.thermocouple[..4].copy_from_slice(&inp.filter_sigma);
-    let mut k_var = [[0.0; 4]; MAX_LAYERS];
-    let mut c_var = [[0.0; 4]; MAX_LAYERS];
+    let mut b = Budget::zero(TRANSIENT_OUTPUTS);
+    b.thermocouple[..TRANSIENT_OUTPUTS].copy_from_slice(&inp.filter_sigma);
+    let mut k_var = [[0.0; TRANSIENT_OUTPUTS]; MAX_LAYERS];
+    let mut c_var = [[0.0; TRANSIENT_OUTPUTS]; MAX_LAYERS];
 
     // Hot side: S(0, x_a) by layer, and ΔT_S = ∫_0^{x_a} S(x, x_a)/k dx by
     // layer, marching from x_a to the face.
@@ -466,7 +474,7 @@ pub fn transient_budget(inp: &TransientInputs<'_>) -> Option<Budget> {
         k_var[j] = [dts_k, ts_k, q0_k, slope * ts_k];
         c_var[j] = [dts_c, 0.0, q0_c, 0.0];
     }
-    for i in 0..4 {
+    for i in 0..TRANSIENT_OUTPUTS {
         b.conductivity[i] = k_var.iter().map(|v| v[i] * v[i]).sum::<f64>().sqrt();
         b.heat_capacity[i] = c_var.iter().map(|v| v[i] * v[i]).sum::<f64>().sqrt();
     }
@@ -482,7 +490,9 @@ pub fn transient_budget(inp: &TransientInputs<'_>) -> Option<Budget> {
     b.depth[OUT_SHELL] = ts_x;
     b.depth[OUT_FLUX_SHELL] = slope * ts_x;
 
-    (0..4).all(|i| b.total(i).is_finite()).then_some(b)
+    (0..TRANSIENT_OUTPUTS)
+        .all(|i| b.total(i).is_finite())
+        .then_some(b)
 }
 
 #[cfg(test)]

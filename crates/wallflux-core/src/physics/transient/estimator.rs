@@ -59,7 +59,10 @@ use heapless::{Deque, Vec as HVec};
 
 use super::model::{temperature_ok, HotFace, ShellBoundary, StepOperator, WallModel};
 use super::steady::{self, Stack};
-use super::{TransientError, TransientLayer, MAX_LAYERS, MAX_NIS_WINDOW, MAX_NODES, MAX_STATE};
+use super::{
+    TransientError, TransientLayer, MAX_LAYERS, MAX_NIS_WINDOW, MAX_NODES, MAX_READINGS, MAX_STATE,
+};
+use crate::bounded::{Full, PushWithin};
 use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
 
 /// Seconds in an hour.
@@ -350,8 +353,10 @@ impl TransientEstimator {
     /// cannot be taken (a gap longer than [`MAX_PREDICT_STEP_S`], the
     /// hot-face trend running out of the temperature range, a non-finite
     /// result) resets the filter and re-initialises from these readings, as
-    /// does a diverged health statistic; both say `reset: true`. Error: [`TransientError::TimeStep`] for a negative or
-    /// non-finite `dt_s` (nothing changes).
+    /// does a diverged health statistic; both say `reset: true`. Errors
+    /// (nothing changes): [`TransientError::TimeStep`] for a negative or
+    /// non-finite `dt_s`, [`TransientError::Capacity`] for more than
+    /// [`MAX_READINGS`] samples.
     pub fn step(
         &mut self,
         dt_s: f64,
@@ -359,6 +364,13 @@ impl TransientEstimator {
     ) -> Result<StepReport, TransientError> {
         if !(dt_s.is_finite() && dt_s >= 0.0) {
             return Err(TransientError::TimeStep(dt_s));
+        }
+        if samples.len() > MAX_READINGS {
+            return Err(Full {
+                what: "readings in one step",
+                limit: MAX_READINGS,
+            }
+            .into());
         }
         let mut report = StepReport {
             reset: false,
@@ -368,13 +380,13 @@ impl TransientEstimator {
             nis: 0.0,
         };
         if !self.initialised {
-            report.initialised = self.initialise(samples);
+            report.initialised = self.initialise(samples)?;
             return Ok(report);
         }
         if dt_s > MAX_PREDICT_STEP_S || (dt_s > 0.0 && self.predict(dt_s).is_err()) {
             self.reset();
             report.reset = true;
-            report.initialised = self.initialise(samples);
+            report.initialised = self.initialise(samples)?;
             return Ok(report);
         }
         let (count, nis) = self.update(samples);
@@ -383,15 +395,18 @@ impl TransientEstimator {
         if count > 0 && self.settling_steps > 0 {
             self.settling_steps -= 1;
         } else if count > 0 {
-            if self.nis_history.len() >= self.settings.nis_window {
+            // The window is at most MAX_NIS_WINDOW (checked with the
+            // settings), so this leaves room for the push.
+            if self.nis_history.len() >= self.settings.nis_window || self.nis_history.is_full() {
                 self.nis_history.pop_front();
             }
-            let _ = self.nis_history.push_back((nis, count));
+            self.nis_history
+                .push_within((nis, count), "steps in the health window")?;
         }
         if self.diverged() || !self.state_finite() {
             self.reset();
             report.reset = true;
-            report.initialised = self.initialise(samples);
+            report.initialised = self.initialise(samples)?;
         }
         Ok(report)
     }
@@ -408,8 +423,9 @@ impl TransientEstimator {
 
     /// Initial profile through the valid readings (piecewise steady and
     /// layered, see `steady`) and its prior covariance. `false` (still
-    /// uninitialised) without a valid reading.
-    fn initialise(&mut self, samples: &[ProbeSample]) -> bool {
+    /// uninitialised) without a valid reading; an error for more readings
+    /// than [`MAX_READINGS`] (which [`Self::step`] refuses first).
+    fn initialise(&mut self, samples: &[ProbeSample]) -> Result<bool, TransientError> {
         let l = self.model.thickness_m();
         let valid = samples
             .iter()
@@ -418,16 +434,17 @@ impl TransientEstimator {
                 depth_m: s.depth_m.clamp(0.0, l),
                 ..*s
             });
-        let points = steady::readings_by_depth(valid);
+        let points = steady::readings_by_depth(valid)?;
         let Some(&(shallowest_m, _)) = points.first() else {
-            return false;
+            return Ok(false);
         };
         let ends = self.model.layer_ends_m();
         let contacts = self.model.contacts_m2k_w();
+        let layers = self.model.materials().len();
         let stack = Stack {
             materials: self.model.materials(),
-            ends_m: &ends,
-            contacts_m2k_w: &contacts,
+            ends_m: &ends[..layers],
+            contacts_m2k_w: &contacts[..layers],
         };
         let n = self.model.node_count();
         let mut t = [0.0; MAX_NODES];
@@ -440,7 +457,7 @@ impl TransientEstimator {
             t[..n].fill(mean);
         }
         if self.model.set_temperatures(&t[..n]).is_err() {
-            return false;
+            return Ok(false);
         }
         self.rate_c_per_s = 0.0;
         self.model.set_hot_face_rate(0.0);
@@ -448,7 +465,7 @@ impl TransientEstimator {
         self.nis_history.clear();
         self.settling_steps = self.settings.nis_window;
         self.initialised = true;
-        true
+        Ok(true)
     }
 
     /// `P_ij = σ_p² exp(−|x_i − x_j|/ℓ) + σ_h² φ_i φ_j`, `φ` tapering
@@ -763,52 +780,59 @@ impl TransientEstimator {
 
     /// Every node: depth, temperature, σ and model rate.
     pub fn profile(&self) -> HVec<NodeEstimate, MAX_NODES> {
-        let mut out = HVec::new();
         if !self.initialised {
-            return out;
+            return HVec::new();
         }
         let rates = self.model.node_rates();
-        let x = self.model.node_depths_m();
         let t = self.model.node_temperatures_c();
-        for j in 0..self.model.node_count() {
-            let _ = out.push(NodeEstimate {
-                depth_m: x[j],
-                temp_c: t[j],
+        // Zipped with the rates, a `[f64; MAX_NODES]`: at most MAX_NODES
+        // entries, so the collection cannot overflow.
+        self.model
+            .node_depths_m()
+            .iter()
+            .zip(t)
+            .zip(rates.iter())
+            .enumerate()
+            .map(|(j, ((&depth_m, &temp_c), &rate))| NodeEstimate {
+                depth_m,
+                temp_c,
                 sigma_c: self.sigma(j),
-                rate_c_per_h: rates[j] * S_PER_H,
-            });
-        }
-        out
+                rate_c_per_h: rate * S_PER_H,
+            })
+            .collect()
     }
 
     /// Internal interface temperatures and their standard uncertainties,
     /// hot face side first, °C.
     pub fn interface_c(&self) -> HVec<(f64, f64), MAX_LAYERS> {
-        let mut out = HVec::new();
         if !self.initialised {
-            return out;
+            return HVec::new();
         }
         let t = self.model.node_temperatures_c();
-        for &j in self.model.interface_nodes() {
-            let _ = out.push((t[j], self.sigma(j)));
-        }
-        out
+        // One entry per interface, and the model keeps them in a vector of
+        // this capacity ([`WallModel::interface_nodes`]): cannot overflow.
+        self.model
+            .interface_nodes()
+            .iter()
+            .map(|&j| (t[j], self.sigma(j)))
+            .collect()
     }
 
     /// The cold side of each internal interface and its standard
     /// uncertainty, °C: `Some` where the interface has a contact
     /// resistance, `None` where the contact is perfect (one temperature).
     pub fn interface_cold_c(&self) -> HVec<Option<(f64, f64)>, MAX_LAYERS> {
-        let mut out = HVec::new();
         if !self.initialised {
-            return out;
+            return HVec::new();
         }
         let t = self.model.node_temperatures_c();
         let m = &self.model;
-        for (&hot, &cold) in m.interface_nodes().iter().zip(m.interface_cold_nodes()) {
-            let _ = out.push((cold > hot).then(|| (t[cold], self.sigma(cold))));
-        }
-        out
+        // One entry per interface, as in [`Self::interface_c`]: cannot overflow.
+        m.interface_nodes()
+            .iter()
+            .zip(m.interface_cold_nodes())
+            .map(|(&hot, &cold)| (cold > hot).then(|| (t[cold], self.sigma(cold))))
+            .collect()
     }
 
     /// Runs the mean state ahead in [`FORECAST_STEP_S`] steps under the
@@ -867,10 +891,8 @@ impl TransientEstimator {
     pub fn forecast(&self, horizon_s: f64, hot_face_cap_c: f64) -> Option<ForecastPoint> {
         let (t, m) = self.run_ahead(horizon_s, hot_face_cap_c, |_, _| false)?;
         let nodes = m.node_temperatures_c();
-        let mut interface_c = HVec::new();
-        for &j in m.interface_nodes() {
-            let _ = interface_c.push(nodes[j]);
-        }
+        // One entry per interface, as in [`Self::interface_c`]: cannot overflow.
+        let interface_c = m.interface_nodes().iter().map(|&j| nodes[j]).collect();
         Some(ForecastPoint {
             horizon_h: t / S_PER_H,
             shell_c: m.shell_c(),
@@ -935,4 +957,48 @@ fn transition(op: &StepOperator, dt_s: f64, v: &[f64], out: &mut [f64]) {
     let hot_new = v[0] + dt_s * rate;
     op.advance(&v[..n], hot_new, false, &mut out[..n]);
     out[n] = rate;
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use crate::physics::material::Material;
+
+    #[test]
+    fn more_readings_than_a_step_takes_are_refused_with_the_limit() {
+        let m = Material::constant(1.3, 2150.0, 1000.0);
+        let layer = TransientLayer {
+            material: &m,
+            thickness_m: 0.3,
+            contact_m2k_w: 0.0,
+        };
+        let shell = ShellBoundary::Convection {
+            h_w_m2k: 10.0,
+            ambient_c: 20.0,
+        };
+        let mut est =
+            TransientEstimator::new(&[layer], shell, TransientSettings::default()).unwrap();
+        let reading = |i: usize| ProbeSample {
+            depth_m: 0.3 * i as f64 / (MAX_READINGS + 1) as f64,
+            temp_c: 400.0 - i as f64,
+            sigma_c: 1.0,
+        };
+        let many: Vec<ProbeSample> = (0..=MAX_READINGS).map(reading).collect();
+        let err = est.step(0.0, &many).unwrap_err();
+        assert_eq!(
+            err,
+            TransientError::Capacity(Full {
+                what: "readings in one step",
+                limit: MAX_READINGS
+            })
+        );
+        assert_eq!(
+            err.to_string(),
+            format!("more than {MAX_READINGS} readings in one step (a fixed capacity of wallflux)")
+        );
+        assert!(!est.is_initialised(), "a refused step changes nothing");
+        // Exactly the capacity is taken.
+        let report = est.step(0.0, &many[..MAX_READINGS]).unwrap();
+        assert!(report.initialised);
+    }
 }

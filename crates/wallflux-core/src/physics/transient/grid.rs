@@ -38,7 +38,14 @@ pub fn focus_width_m(alpha_m2_s: f64, interval_s: f64) -> f64 {
 /// Fills `out` (cells + 1 positions, from `start_m` to `end_m`) with graded
 /// node positions for the focus points `focus_m` (any depths; those far
 /// outside the layer hardly matter) of width `width_m`.
-pub fn graded_layer(start_m: f64, end_m: f64, focus_m: &[f64], width_m: f64, out: &mut [f64]) {
+///
+/// The focus points come as an iterator, walked once per density sample,
+/// so a caller adding the hot face to its own depths needs no buffer with
+/// a capacity that could drop one.
+pub fn graded_layer<F>(start_m: f64, end_m: f64, focus_m: F, width_m: f64, out: &mut [f64])
+where
+    F: Iterator<Item = f64> + Clone,
+{
     let cells = out.len().saturating_sub(1);
     if cells == 0 {
         return;
@@ -47,8 +54,8 @@ pub fn graded_layer(start_m: f64, end_m: f64, focus_m: &[f64], width_m: f64, out
     let density = |x: f64| {
         1.0 + FOCUS_GAIN
             * focus_m
-                .iter()
-                .map(|&f| (-(x - f).abs() / width_m).exp())
+                .clone()
+                .map(|f| (-(x - f).abs() / width_m).exp())
                 .sum::<f64>()
     };
     // Cumulative integral by the trapezoid rule on SAMPLES intervals.
@@ -81,7 +88,7 @@ mod tests {
     #[test]
     fn graded_cells_are_finer_at_the_focus_and_keep_the_faces() {
         let mut x = [0.0; 17];
-        graded_layer(0.0, 0.6, &[0.0, 0.02], 0.01, &mut x);
+        graded_layer(0.0, 0.6, [0.0, 0.02].into_iter(), 0.01, &mut x);
         assert_eq!((x[0], x[16]), (0.0, 0.6));
         assert!(x.windows(2).all(|w| w[1] > w[0]), "{x:?}");
         let first = x[1] - x[0];
@@ -89,7 +96,7 @@ mod tests {
         // Background cells are about 1 + A times the focus cells.
         assert!(first < 0.4 * last, "{first} vs {last}");
         // Without a focus: equal cells.
-        graded_layer(0.1, 0.5, &[], 0.01, &mut x);
+        graded_layer(0.1, 0.5, core::iter::empty(), 0.01, &mut x);
         for (j, v) in x.iter().enumerate() {
             assert!((v - (0.1 + 0.025 * j as f64)).abs() < 1e-12);
         }

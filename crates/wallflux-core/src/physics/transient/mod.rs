@@ -49,6 +49,7 @@ pub use estimator::{
 };
 pub use model::{EnergyTally, ShellBoundary, TimeScheme, WallModel, MAX_TEMPERATURE_C};
 
+use crate::bounded::Full;
 use crate::physics::material::Material;
 use crate::physics::surface::SurfaceError;
 
@@ -61,6 +62,10 @@ pub use crate::physics::layered::MAX_LAYERS;
 
 /// Size of the filter state: every node plus the hot-face rate.
 pub const MAX_STATE: usize = MAX_NODES + 1;
+
+/// Most readings one estimator step takes (a zone has at most
+/// [`crate::physics::layered::MAX_PROBES`]; a grid's worth leaves room).
+pub const MAX_READINGS: usize = MAX_NODES;
 
 /// Longest window of the filter-health statistic, in steps.
 pub const MAX_NIS_WINDOW: usize = 64;
@@ -128,4 +133,8 @@ pub enum TransientError {
     /// The solve produced a non-finite temperature (the state is unchanged).
     #[error("the step produced a non-finite or sub-absolute-zero temperature")]
     Numerical,
+    /// A fixed capacity was reached (sizes are checked first, so this names
+    /// a fault, never a shortened result).
+    #[error(transparent)]
+    Capacity(#[from] Full),
 }

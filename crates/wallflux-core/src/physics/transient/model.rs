@@ -43,6 +43,7 @@
 use heapless::Vec as HVec;
 
 use super::{TransientError, TransientLayer, MAX_LAYERS, MAX_NODES};
+use crate::bounded::PushWithin;
 use crate::physics::material::{Material, Property};
 use crate::physics::surface::{surface_loss, SurfaceParams, ZERO_CELSIUS_K};
 
@@ -360,8 +361,7 @@ pub(super) fn check_layers(
         if let Some((what, _)) = checks.iter().find(|(_, ok)| !ok) {
             return Err(TransientError::Material { layer: i, what });
         }
-        // Capacity checked above.
-        let _ = out.push(m.clone());
+        out.push_within(m.clone(), "layers")?;
     }
     Ok(out)
 }
@@ -417,7 +417,7 @@ impl WallModel {
             }
             x_start += layer.thickness_m;
             if i + 1 < layers.len() {
-                let _ = interface_nodes.push(node);
+                interface_nodes.push_within(node, "layer interfaces")?;
                 if layer.contact_m2k_w > 0.0 {
                     // A zero-thickness segment: the contact's conductance
                     // 1/R between two nodes at the same depth.
@@ -426,7 +426,7 @@ impl WallModel {
                     node += 1;
                     x_m[node] = x_start;
                 }
-                let _ = interface_cold_nodes.push(node);
+                interface_cold_nodes.push_within(node, "layer interfaces")?;
             }
         }
         let mut t_c = [0.0; MAX_NODES];
@@ -454,13 +454,16 @@ impl WallModel {
     /// `interval_s`; the node count, the layer faces and the temperatures
     /// stay. Every cell keeps a positive width.
     pub fn graded(mut self, focus_m: &[f64], interval_s: f64) -> Self {
-        let mut focus: HVec<f64, { MAX_NODES + 1 }> = HVec::new();
-        let _ = focus.push(0.0);
-        for &f in focus_m {
-            if f.is_finite() {
-                let _ = focus.push(f.clamp(0.0, self.thickness_m()));
-            }
-        }
+        // The hot face and every finite depth, clamped into the wall: read
+        // from the caller's slice each time, so however many depths there
+        // are, none is dropped for want of room.
+        let l = self.thickness_m();
+        let focus = core::iter::once(0.0).chain(
+            focus_m
+                .iter()
+                .filter(|f| f.is_finite())
+                .map(move |f| f.clamp(0.0, l)),
+        );
         let layers = self.materials.len();
         for i in 0..layers {
             let first = match i.checked_sub(1) {
@@ -475,7 +478,7 @@ impl WallModel {
             let (start, end) = (self.x_m[first], self.x_m[last]);
             let mut x = [0.0; MAX_NODES];
             let cells = last - first;
-            super::grid::graded_layer(start, end, &focus, width, &mut x[..=cells]);
+            super::grid::graded_layer(start, end, focus.clone(), width, &mut x[..=cells]);
             if x[..=cells].windows(2).all(|w| w[1] > w[0]) {
                 self.x_m[first..=last].copy_from_slice(&x[..=cells]);
             }
@@ -713,17 +716,21 @@ impl WallModel {
         &self.interface_cold_nodes
     }
 
-    /// Contact resistance of each layer's cold side, m²K/W (0 for the last).
-    pub(super) fn contacts_m2k_w(&self) -> HVec<f64, MAX_LAYERS> {
-        let mut out = HVec::new();
-        for (&hot, &cold) in self.interface_nodes.iter().zip(&self.interface_cold_nodes) {
-            let _ = out.push(if cold > hot {
+    /// Contact resistance of each layer's cold side, m²K/W (0 for the last),
+    /// in the first `materials().len()` entries.
+    pub(super) fn contacts_m2k_w(&self) -> [f64; MAX_LAYERS] {
+        // A fixed array, one slot per possible layer: the interfaces (one
+        // fewer than the layers) fill the first slots through the zip, and
+        // the last layer's slot keeps its 0. Nothing can be left out.
+        let mut out = [0.0; MAX_LAYERS];
+        let interfaces = self.interface_nodes.iter().zip(&self.interface_cold_nodes);
+        for (r, (&hot, &cold)) in out.iter_mut().zip(interfaces) {
+            *r = if cold > hot {
                 self.seg_contact[hot]
             } else {
                 0.0
-            });
+            };
         }
-        let _ = out.push(0.0);
         out
     }
 
@@ -742,13 +749,15 @@ impl WallModel {
         &self.materials
     }
 
-    /// Depth of each layer's shell-side face, m.
-    pub(super) fn layer_ends_m(&self) -> HVec<f64, MAX_LAYERS> {
-        let mut ends = HVec::new();
-        for &j in self.interface_nodes.iter() {
-            let _ = ends.push(self.x_m[j]);
+    /// Depth of each layer's shell-side face, m, in the first
+    /// `materials().len()` entries.
+    pub(super) fn layer_ends_m(&self) -> [f64; MAX_LAYERS] {
+        // A fixed array as in `contacts_m2k_w`: the interfaces fill the first
+        // slots, and the last layer's slot keeps the total thickness.
+        let mut ends = [self.thickness_m(); MAX_LAYERS];
+        for (end, &j) in ends.iter_mut().zip(&self.interface_nodes) {
+            *end = self.x_m[j];
         }
-        let _ = ends.push(self.thickness_m());
         ends
     }
 
@@ -924,5 +933,79 @@ impl WallModel {
             }
         }
         h
+    }
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    fn wall(material: &Material) -> WallModel {
+        let layer = TransientLayer {
+            material,
+            thickness_m: 0.4,
+            contact_m2k_w: 0.0,
+        };
+        let shell = ShellBoundary::Convection {
+            h_w_m2k: 10.0,
+            ambient_c: 20.0,
+        };
+        WallModel::new(&[layer], 20, shell, 20.0).unwrap()
+    }
+
+    /// Distance from `depth_m` to the nearest node, m.
+    fn nearest_node(model: &WallModel, depth_m: f64) -> f64 {
+        model
+            .node_depths_m()
+            .iter()
+            .map(|x| (x - depth_m).abs())
+            .fold(f64::INFINITY, f64::min)
+    }
+
+    #[test]
+    fn graded_takes_every_focus_depth_however_many() {
+        // More focus depths than the grid has nodes, the one that differs
+        // last: it shapes the grid too, none is dropped for want of room.
+        let m = Material::constant(1.3, 2150.0, 1000.0);
+        let mut at_shell = vec![0.4; MAX_NODES + 6];
+        let mut with_middle = at_shell.clone();
+        with_middle.extend_from_slice(&[0.15]);
+        at_shell.extend_from_slice(&[0.4]);
+        let a = wall(&m).graded(&at_shell, 600.0);
+        let b = wall(&m).graded(&with_middle, 600.0);
+        assert_eq!(a.node_count(), b.node_count());
+        // The shell's many copies draw most nodes there; the one focus at
+        // 0.15 m still pulls a node towards itself.
+        let (without, with) = (nearest_node(&a, 0.15), nearest_node(&b, 0.15));
+        assert!(
+            with < 0.5 * without,
+            "nearest node to the last focus {with} m away, {without} m without it"
+        );
+    }
+
+    #[test]
+    fn layer_ends_and_contacts_have_one_entry_per_layer() {
+        let m = Material::constant(1.3, 2150.0, 1000.0);
+        let layers = [
+            TransientLayer {
+                material: &m,
+                thickness_m: 0.2,
+                contact_m2k_w: 0.01,
+            },
+            TransientLayer {
+                material: &m,
+                thickness_m: 0.1,
+                contact_m2k_w: 0.0,
+            },
+        ];
+        let shell = ShellBoundary::Convection {
+            h_w_m2k: 10.0,
+            ambient_c: 20.0,
+        };
+        let w = WallModel::new(&layers, 4, shell, 20.0).unwrap();
+        let ends = w.layer_ends_m();
+        assert!((ends[0] - 0.2).abs() < 1e-12 && (ends[1] - 0.3).abs() < 1e-12);
+        let contacts = w.contacts_m2k_w();
+        assert_eq!(&contacts[..2], &[0.01, 0.0]);
     }
 }

@@ -28,7 +28,8 @@
 use heapless::Vec as HVec;
 
 use super::model::{temperature_ok, ShellBoundary};
-use super::MAX_NODES;
+use super::{MAX_NODES, MAX_READINGS};
+use crate::bounded::{Full, PushWithin};
 use crate::physics::material::{Material, Property};
 use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
 
@@ -252,16 +253,14 @@ pub(super) fn shell_balance_flux(
 
 /// Readings averaged per depth (weights `1/σ²`; depths within
 /// [`DEPTH_TOLERANCE_M`] are one), sorted by depth: `(depth_m, temp_c)`.
-/// At most [`MAX_NODES`] readings are used.
-pub(super) fn readings_by_depth<I>(samples: I) -> HVec<(f64, f64), MAX_NODES>
+/// More than [`MAX_READINGS`] readings are refused, never cut short.
+pub(super) fn readings_by_depth<I>(samples: I) -> Result<HVec<(f64, f64), MAX_NODES>, Full>
 where
     I: Iterator<Item = ProbeSample>,
 {
-    let mut sorted: HVec<ProbeSample, MAX_NODES> = HVec::new();
+    let mut sorted: HVec<ProbeSample, MAX_READINGS> = HVec::new();
     for s in samples {
-        if sorted.push(s).is_err() {
-            break;
-        }
+        sorted.push_within(s, "readings in one step")?;
     }
     sorted.sort_unstable_by(|a, b| a.depth_m.total_cmp(&b.depth_m));
     let mut out: HVec<(f64, f64), MAX_NODES> = HVec::new();
@@ -269,7 +268,7 @@ where
     for s in sorted.iter() {
         let w = 1.0 / (s.sigma_c * s.sigma_c);
         if s.depth_m - group.3 > DEPTH_TOLERANCE_M && group.0 > 0.0 {
-            let _ = out.push((group.1 / group.0, group.2 / group.0));
+            out.push_within((group.1 / group.0, group.2 / group.0), "reading depths")?;
             group = (0.0, 0.0, 0.0, s.depth_m);
         }
         if group.0 == 0.0 {
@@ -280,9 +279,9 @@ where
         group.2 += w * s.temp_c;
     }
     if group.0 > 0.0 {
-        let _ = out.push((group.1 / group.0, group.2 / group.0));
+        out.push_within((group.1 / group.0, group.2 / group.0), "reading depths")?;
     }
-    out
+    Ok(out)
 }
 
 /// Fills `out` with the initial profile at `depths_m` through `points`
@@ -290,7 +289,7 @@ where
 /// no points or some temperature cannot be found.
 pub(super) fn initial_profile(
     stack: &Stack<'_>,
-    points: &[(f64, f64)],
+    points: &HVec<(f64, f64), MAX_NODES>,
     shell: &ShellBoundary,
     depths_m: &[f64],
     out: &mut [f64],
@@ -308,16 +307,17 @@ pub(super) fn initial_profile(
     let Some(q_hot) = q_hot else {
         return false;
     };
-    // Flux of each span between adjacent points.
-    let mut span_q: HVec<f64, MAX_NODES> = HVec::new();
-    for w in points.windows(2) {
+    // Flux of each span between adjacent points. At most MAX_NODES points
+    // (their type) make at most MAX_NODES − 1 spans: the zip fills a slot
+    // for every span and stops at the last one, never at the array's end.
+    let mut span_q = [0.0; MAX_NODES];
+    for (q, w) in span_q.iter_mut().zip(points.windows(2)) {
         match stack.joining_flux(w[0].0, w[0].1, w[1].0, w[1].1) {
-            Some(q) => {
-                let _ = span_q.push(q);
-            }
+            Some(flux) => *q = flux,
             None => return false,
         }
     }
+    let span_q = &span_q[..points.len() - 1];
     for (j, (&x, t)) in depths_m.iter().zip(out.iter_mut()).enumerate() {
         // The second of two nodes at one depth is a contact's cold side.
         let cold = j > 0 && depths_m[j - 1] == x;
