@@ -14,6 +14,7 @@
 //!   lining accounting. Driven by `handle_*`, read by `poll_*`.
 //! - [`config`]: the TOML text and its validated settings.
 //! - [`time`]: UTC timestamps and RFC 3339.
+#![forbid(unsafe_code)]
 
 pub mod config;
 pub mod monitor;
