@@ -8,4 +8,5 @@
 pub mod firing;
 pub mod pty;
 pub mod rng;
+pub mod scenario;
 pub mod wall;

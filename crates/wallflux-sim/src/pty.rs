@@ -4,8 +4,10 @@
 
 use std::fs::File;
 use std::io;
+use std::os::fd::AsFd;
 
 use nix::fcntl::{fcntl, FcntlArg, OFlag};
+use nix::poll::{poll, PollFd, PollFlags, PollTimeout};
 use nix::pty::openpty;
 use nix::sys::termios::{cfmakeraw, tcgetattr, tcsetattr, SetArg};
 use nix::unistd::ttyname;
@@ -35,5 +37,16 @@ impl Pty {
             slave: File::from(pair.slave),
             path,
         })
+    }
+
+    /// Whether bytes written to the master are still waiting on the slave
+    /// side, not yet read by the program that has the line open.
+    pub fn unread(&self) -> io::Result<bool> {
+        let mut fds = [PollFd::new(self.slave.as_fd(), PollFlags::POLLIN)];
+        let ready = poll(&mut fds, PollTimeout::ZERO)?;
+        Ok(ready > 0
+            && fds[0]
+                .revents()
+                .is_some_and(|r| r.contains(PollFlags::POLLIN)))
     }
 }
