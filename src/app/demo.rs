@@ -122,15 +122,18 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
                 .spawn(move || simulate(&settings, kiln, ptys, clock, driver, &stop, &done))
                 .map_err(|e| Failure::runtime(anyhow!("cannot start the simulator: {e}")))?
         };
+        // The simulator stops first: the clock stands still while the daemon
+        // shuts down, and the lines stay open until it has (no lost port).
         let shutdown = async {
             tokio::select! {
                 _ = super::shutdown_signal() => show!("stopping (signal)"),
                 _ = done.notified() => show!("firing complete"),
             }
+            stop.store(true, Ordering::Relaxed);
         };
         let result = super::run::run(settings, clock, shutdown, Some(observer)).await;
         stop.store(true, Ordering::Relaxed);
-        let _ = sim.join();
+        drop(sim.join());
         let _ = std::fs::remove_dir_all(&state_dir);
         result.map_err(Failure::runtime)
     })
@@ -139,7 +142,8 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
 /// The simulator thread: one scan of the kiln per scan period, paced at the
 /// clock's speed in real time. Each scan sets the daemon's clock to the
 /// scan's time, writes one frame per source, and waits until the daemon has
-/// read them all before the next scan moves the clock on.
+/// read them all before the next scan moves the clock on. Gives the lines
+/// back when told to stop, for the caller to close once the daemon has.
 fn simulate(
     settings: &Settings,
     mut kiln: Kiln,
@@ -148,7 +152,7 @@ fn simulate(
     driver: ClockDriver,
     stop: &AtomicBool,
     done: &Notify,
-) {
+) -> Vec<Pty> {
     let period = clock.real_duration(kiln.scan_s());
     let mut due = Instant::now();
     let mut line = FrameLine::new();
@@ -162,6 +166,9 @@ fn simulate(
             due = now;
         }
         std::thread::sleep(due.saturating_duration_since(now));
+        if stop.load(Ordering::Relaxed) {
+            break; // the clock stands still from here on
+        }
         kiln.scan();
         driver.set(kiln.time_s());
         for (si, pty) in ptys.iter_mut().enumerate() {
@@ -172,13 +179,12 @@ fn simulate(
             }
         }
         wait_until_read(&ptys, stop);
-        // The line stays up (and scanning) until the daemon has stopped, so
-        // it reports no lost port.
         if !finished && kiln.time_s() >= kiln.duration_s() + AFTER_FIRING_S {
             finished = true;
             done.notify_one();
         }
     }
+    ptys
 }
 
 /// Returns once the daemon has read everything written to every line (or
