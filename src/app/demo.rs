@@ -1,46 +1,35 @@
-//! `wallflux demo`: an invented shuttle-kiln firing, end to end. A
-//! finite-difference model of each wall (so the fit is checked against
-//! physics, not against its own formula) drives line-protocol frames through
-//! a real pseudo-terminal that the daemon opens as its serial port; the
-//! daemon publishes to an embedded MQTT broker; the terminal shows one line
-//! per zone as the firing goes.
+//! `wallflux demo`: the configured kiln (the built-in demo kiln unless
+//! `--config` names another), simulated end to end. The glue only: the
+//! simulated kiln itself ([`crate::sim::scenario`]) writes its boxes' frames
+//! through real pseudo-terminals that the daemon opens as its serial ports;
+//! the daemon publishes to an embedded MQTT broker; the terminal shows one
+//! line per zone as the firing goes.
+//!
+//! The simulator drives the daemon's clock ([`Clock::driven`]): it sets the
+//! time of a scan, writes that scan's frames, and moves on only once the
+//! daemon has read them. At any `--speed` the daemon's time never runs past
+//! frames it has not seen, so no source is ever silent in simulated time.
 
 use std::io::Write;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
-use std::time::Duration;
+use std::time::{Duration, Instant};
 
 use anyhow::anyhow;
 use tokio::sync::Notify;
 
 use super::cli::DemoArgs;
-use super::clock::Clock;
+use super::clock::{Clock, ClockDriver};
 use super::Failure;
-use crate::acquire::line::{encode_frame, Unit, Value, MAX_LINE_BYTES};
-use crate::config::{self, Settings, Signal};
+use crate::config::{self, Settings};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
-use crate::physics::thermocouple;
-use crate::sim::firing::FiringSchedule;
 use crate::sim::pty::Pty;
-use crate::sim::rng::SplitMix64;
-use crate::sim::wall::{Layer, WallSim};
+use crate::sim::scenario::{FrameLine, Kiln};
 use crate::time::Timestamp;
 
 /// The built-in demo configuration.
 pub const DEMO_CONFIG: &str = include_str!("../../config/demo.toml");
 
-/// Simulated seconds between two scans of the thermocouple box.
-const SCAN_S: f64 = 10.0;
-/// Hot-face temperature of a demo zone at a kiln set-point: the door runs a
-/// little cooler and the roof a little hotter than the set-point (demo data).
-fn hot_face_c(zone: &str, setpoint_c: f64, ambient_c: f64) -> f64 {
-    let factor = match zone {
-        "door" => 0.975,
-        "roof" => 1.01,
-        _ => 1.0,
-    };
-    ambient_c + (setpoint_c - ambient_c) * factor
-}
 /// A line on the terminal; a closed stdout (`| head`) loses it instead of
 /// ending the demo with a panic.
 macro_rules! show {
@@ -52,6 +41,13 @@ macro_rules! show {
 
 /// Simulated minutes between two terminal summaries.
 const PRINT_EVERY_S: f64 = 30.0 * 60.0;
+
+/// Simulated seconds of scans after the firing, so the daemon publishes its
+/// last interval.
+const AFTER_FIRING_S: f64 = 120.0;
+
+/// How often the simulator looks whether the daemon has read a scan.
+const READ_POLL: Duration = Duration::from_micros(500);
 
 pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
     if !(args.speed.is_finite() && args.speed > 0.0 && args.speed <= 100_000.0) {
@@ -69,6 +65,7 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         None => config::parse(DEMO_CONFIG, "built-in demo configuration", None)
             .map_err(Failure::usage)?,
     };
+    let kiln = Kiln::new(&settings).map_err(|e| Failure::usage(anyhow!("wallflux demo: {e}")))?;
     // A fresh state directory per demo run: its energy totals start at zero.
     settings.state_dir = std::env::temp_dir().join(format!("wallflux-demo-{}", std::process::id()));
     if !args.no_broker {
@@ -85,22 +82,23 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
     }
     let state_dir = settings.state_dir.clone();
     let settings = Arc::new(settings);
-    let schedule = FiringSchedule::demo();
     let rt = super::runtime()?;
     rt.block_on(async move {
         if !args.no_broker {
             super::broker::start(args.broker_port).await.map_err(Failure::runtime)?;
         }
-        let clock = Clock::accelerated(args.speed);
+        let (clock, driver) = Clock::driven(args.speed);
         let start = clock.now();
         let root = settings.topic_root();
         show!(
-            "wallflux demo: simulated shuttle kiln {}/{}, firing of {:.1} h at {}x ({:.1} min)",
+            "wallflux demo: simulated kiln {}/{}, {} zones, firing of {:.1} h at {}x (at least {:.1} min), a scan every {} s",
             settings.site.plant,
             settings.site.kiln,
-            schedule.duration_s() / 3600.0,
+            settings.zones.len(),
+            kiln.duration_s() / 3600.0,
             args.speed,
-            schedule.duration_s() / args.speed / 60.0
+            kiln.duration_s() / args.speed / 60.0,
+            kiln.scan_s()
         );
         show!(
             "  serial line: {}   MQTT: {}:{}   watch with: mosquitto_sub -h {} -p {} -t '{root}/#' -v",
@@ -114,192 +112,117 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
 
         let done = Arc::new(Notify::new());
         let stop = Arc::new(AtomicBool::new(false));
+        let observer = terminal_view(start, kiln.clone(), &settings);
         let sim = {
             let settings = settings.clone();
             let stop = stop.clone();
             let done = done.clone();
-            let schedule = schedule.clone();
             std::thread::Builder::new()
                 .name("wallflux-sim".into())
-                .spawn(move || simulate(&settings, &schedule, ptys, clock, start, &stop, &done))
+                .spawn(move || simulate(&settings, kiln, ptys, clock, driver, &stop, &done))
                 .map_err(|e| Failure::runtime(anyhow!("cannot start the simulator: {e}")))?
         };
-        let observer = terminal_view(start, schedule.clone(), settings.zones.len());
+        // The simulator stops first: the clock stands still while the daemon
+        // shuts down, and the lines stay open until it has (no lost port).
         let shutdown = async {
             tokio::select! {
                 _ = super::shutdown_signal() => show!("stopping (signal)"),
                 _ = done.notified() => show!("firing complete"),
             }
+            stop.store(true, Ordering::Relaxed);
         };
         let result = super::run::run(settings, clock, shutdown, Some(observer)).await;
         stop.store(true, Ordering::Relaxed);
-        let _ = sim.join();
+        drop(sim.join());
         let _ = std::fs::remove_dir_all(&state_dir);
         result.map_err(Failure::runtime)
     })
 }
 
-/// The simulator thread: steps every zone's wall model in simulated time,
-/// following the daemon's clock, and writes one frame per scan per source.
+/// The simulator thread: one scan of the kiln per scan period, paced at the
+/// clock's speed in real time. Each scan sets the daemon's clock to the
+/// scan's time, writes one frame per source, and waits until the daemon has
+/// read them all before the next scan moves the clock on. Gives the lines
+/// back when told to stop, for the caller to close once the daemon has.
 fn simulate(
     settings: &Settings,
-    schedule: &FiringSchedule,
+    mut kiln: Kiln,
     mut ptys: Vec<Pty>,
     clock: Clock,
-    start: Timestamp,
+    driver: ClockDriver,
     stop: &AtomicBool,
     done: &Notify,
-) {
-    let mut walls: Vec<WallSim> = Vec::new();
-    for z in &settings.zones {
-        let layers = z
-            .layers
-            .iter()
-            .map(|l| Layer {
-                material: settings.materials[l.material].material.clone(),
-                thickness_m: l.thickness_m,
-            })
-            .collect();
-        match WallSim::new(layers, 24, schedule.setpoint_c(0.0), z.surface) {
-            Ok(mut w) => {
-                w.settle(hot_face_c(&z.name, schedule.setpoint_c(0.0), z.ambient_c));
-                walls.push(w);
-            }
-            Err(e) => {
-                super::say(&format!(
-                    "wallflux demo: cannot simulate zone {}: {e}",
-                    z.name
-                ));
-                done.notify_one();
-                return;
-            }
-        }
-    }
-    // Where each channel sits: (zone, depth).
-    let place: Vec<Option<(usize, f64)>> = (0..settings.channels.len())
-        .map(|c| {
-            settings.zones.iter().enumerate().find_map(|(zi, z)| {
-                z.probes
-                    .iter()
-                    .find(|p| p.channel == c)
-                    .map(|p| (zi, p.depth_m))
-            })
-        })
-        .collect();
-    let mut rng = SplitMix64::new(0x2545_F491_4F6C_DD1D);
-    let mut seq: u32 = 0;
-    let mut t_sim = 0.0;
+) -> Vec<Pty> {
+    let period = clock.real_duration(kiln.scan_s());
+    let mut due = Instant::now();
+    let mut line = FrameLine::new();
     let mut finished = false;
-    let mut line = heapless::String::<{ MAX_LINE_BYTES + 2 }>::new();
-    let mut values: heapless::Vec<(u8, Value), 64> = heapless::Vec::new();
     while !stop.load(Ordering::Relaxed) {
-        let now_s = clock.now().since(start);
-        if t_sim + SCAN_S > now_s {
-            std::thread::sleep(
-                clock
-                    .real_duration(t_sim + SCAN_S - now_s)
-                    .min(Duration::from_millis(200)),
-            );
-            continue;
+        // Behind by more than a scan (the daemon read slowly): the lag is
+        // dropped, not caught up in a burst.
+        let now = Instant::now();
+        due += period;
+        if due + period < now {
+            due = now;
         }
-        t_sim += SCAN_S;
-        let setpoint = schedule.setpoint_c(t_sim);
-        for (w, z) in walls.iter_mut().zip(&settings.zones) {
-            w.step(SCAN_S, hot_face_c(&z.name, setpoint, z.ambient_c));
+        std::thread::sleep(due.saturating_duration_since(now));
+        if stop.load(Ordering::Relaxed) {
+            break; // the clock stands still from here on
         }
-        // The box's terminals warm a little with the kiln (demo data).
-        let cj_c = 24.0 + 6.0 * ((setpoint - 20.0) / 1250.0).clamp(0.0, 1.0) + 0.05 * rng.normal();
+        kiln.scan();
+        driver.set(kiln.time_s());
         for (si, pty) in ptys.iter_mut().enumerate() {
-            values.clear();
-            for (ci, c) in settings.channels.iter().enumerate() {
-                let (Some((zi, depth)), true) = (place[ci], c.source == si) else {
-                    continue;
-                };
-                let t = walls[zi].temperature_at(depth) + 0.15 * rng.normal();
-                let v = match c.signal {
-                    Signal::Celsius => Value::Reading {
-                        value: round(t, 1),
-                        unit: Unit::Celsius,
-                    },
-                    Signal::Millivolts => {
-                        let (Ok(e), Ok(e_cj)) = (
-                            thermocouple::emf_mv(c.tc_type, t),
-                            thermocouple::emf_mv(c.tc_type, cj_c),
-                        ) else {
-                            continue;
-                        };
-                        Value::Reading {
-                            value: round(e - e_cj, 3),
-                            unit: Unit::Millivolts,
-                        }
-                    }
-                };
-                let _ = values.push((c.input, v));
-            }
-            line.clear();
-            if encode_frame(seq, &values, Some(round(cj_c, 1)), &mut line).is_ok() {
+            if kiln.frame(settings, si, &mut line).is_ok() {
                 // A full pty buffer (daemon not reading) drops this scan,
                 // as a real box would overrun: never block the simulation.
                 let _ = pty.master.write_all(line.as_bytes());
             }
         }
-        seq = seq.wrapping_add(1);
-        // Two more minutes of scans after the firing, so the daemon
-        // publishes its last interval; the line stays up (and scanning)
-        // until the daemon has stopped, so it reports no lost port.
-        if !finished && t_sim >= schedule.duration_s() + 120.0 {
+        wait_until_read(&ptys, stop);
+        if !finished && kiln.time_s() >= kiln.duration_s() + AFTER_FIRING_S {
             finished = true;
             done.notify_one();
         }
     }
+    ptys
 }
 
-fn round(v: f64, decimals: i32) -> f64 {
-    let p = 10f64.powi(decimals);
-    (v * p).round() / p
+/// Returns once the daemon has read everything written to every line (or
+/// the demo stops, or a line cannot be polled).
+fn wait_until_read(ptys: &[Pty], stop: &AtomicBool) {
+    for pty in ptys {
+        while matches!(pty.unread(), Ok(true)) && !stop.load(Ordering::Relaxed) {
+            std::thread::sleep(READ_POLL);
+        }
+    }
 }
 
-/// Prints one line per zone every `PRINT_EVERY_S` of simulated time.
-fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> super::run::Observer {
-    let mut latest: Vec<Option<ZoneReport>> = vec![None; zones];
+/// Prints, every `PRINT_EVERY_S` of simulated time, one line per zone in
+/// the configuration's order, the names padded to the longest.
+fn terminal_view(start: Timestamp, kiln: Kiln, settings: &Settings) -> super::run::Observer {
+    let names: Vec<String> = settings.zones.iter().map(|z| z.name.to_string()).collect();
+    let width = names.iter().map(|n| n.chars().count()).max().unwrap_or(0);
+    let mut latest: Vec<Option<ZoneReport>> = vec![None; names.len()];
     let mut next_print = start.plus_s(PRINT_EVERY_S);
     Box::new(move |r: &ZoneReport| {
-        let slot = latest
-            .iter()
-            .position(|l| l.as_ref().is_some_and(|l| l.zone == r.zone));
-        match slot {
-            Some(i) => latest[i] = Some(r.clone()),
-            None => {
-                if let Some(free) = latest.iter_mut().find(|l| l.is_none()) {
-                    *free = Some(r.clone());
-                }
-            }
+        if let Some(i) = names.iter().position(|n| n.as_str() == r.zone.as_str()) {
+            latest[i] = Some(r.clone());
         }
         if r.time < next_print {
             return;
         }
         next_print = next_print.plus_s(PRINT_EVERY_S);
         let t = r.time.since(start);
-        show!(
-            "t={:>5.1} h  kiln set-point {:>6.1} °C",
-            t / 3600.0,
-            schedule.setpoint_c(t)
-        );
-        for l in latest.iter().flatten() {
+        show!("t={:>5.1} h", t / 3600.0);
+        for (zi, l) in latest.iter().enumerate() {
+            let Some(l) = l else { continue };
             let f =
                 |v: Option<f64>, d: usize| v.map_or("     -".to_string(), |x| format!("{x:>6.d$}"));
-            let status = match l.status {
-                ZoneStatus::Ok => "ok",
-                ZoneStatus::Degraded => "DEGRADED",
-                ZoneStatus::Unconfirmed => "UNCONFIRMED",
-                ZoneStatus::NotSteady => "NOT STEADY",
-                ZoneStatus::Contradicted => "CONTRADICTED",
-                ZoneStatus::Implausible => "IMPLAUSIBLE",
-                ZoneStatus::InsufficientData => "NO DATA",
-            };
             show!(
-                "  {:<10} hot face {} °C  shell {} °C  q_shell {} W/m² (surface {})  loss {} kW  source {} W/m³  fit rms {} °C  {status}",
+                "  {:<width$}  set-point {:>6.1} °C (top {:>6.1})  hot face {} °C  shell {} °C  q_shell {} W/m² (surface {})  loss {} kW  source {} W/m³  fit rms {} °C  {}",
                 l.zone,
+                kiln.firing_c(zi, t),
+                kiln.setpoint_c(zi),
                 f(l.hot_face_c, 1),
                 f(l.shell_c, 1),
                 f(l.flux_shell_w_m2, 0),
@@ -307,7 +230,21 @@ fn terminal_view(start: Timestamp, schedule: FiringSchedule, zones: usize) -> su
                 f(l.heat_loss_w.map(|w| w / 1000.0), 2),
                 f(l.source_w_m3, 0),
                 f(l.fit_rms_c, 2),
+                status_word(l.status),
             );
         }
     })
+}
+
+/// The table's word for a zone status.
+fn status_word(status: ZoneStatus) -> &'static str {
+    match status {
+        ZoneStatus::Ok => "ok",
+        ZoneStatus::Degraded => "DEGRADED",
+        ZoneStatus::Unconfirmed => "UNCONFIRMED",
+        ZoneStatus::NotSteady => "NOT STEADY",
+        ZoneStatus::Contradicted => "CONTRADICTED",
+        ZoneStatus::Implausible => "IMPLAUSIBLE",
+        ZoneStatus::InsufficientData => "NO DATA",
+    }
 }

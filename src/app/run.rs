@@ -12,7 +12,7 @@ use tracing::{debug, info, warn};
 
 use super::clock::Clock;
 use super::state;
-use crate::acquire::serial::{self, SourceHealth};
+use crate::acquire::serial::{self, SourceFrame, SourceHealth};
 use crate::config::Settings;
 use crate::monitor::alarm::{AlarmFlags, AlarmState, Cause, Priority};
 use crate::monitor::alarm_engine::{event_id, target_names, trend_place, AlarmOutput, TrendAlert};
@@ -120,7 +120,7 @@ pub async fn run(
                     connections_seen = c;
                     engine.publish_all_alarms();
                 }
-                engine.drain();
+                engine.drain_with(&mut rx);
             }
             _ = status_tick.tick() => {
                 let payload = engine.status_with_counters(&source_health, &link);
@@ -132,7 +132,7 @@ pub async fn run(
     }
 
     info!("shutting down");
-    engine.drain();
+    engine.drain_with(&mut rx);
     engine.save_energy();
     engine.save_alarms();
     let _ = stop_tx.send(true);
@@ -210,9 +210,27 @@ impl Engine {
         }
     }
 
+    /// Handles the frames read until now, then drains at that instant: a
+    /// drain never judges a source silent while its frames wait in the
+    /// channel (the demo's clock runs fast), and at shutdown none is lost.
+    fn drain_with(&mut self, rx: &mut mpsc::Receiver<SourceFrame>) {
+        let now = self.clock.now();
+        for _ in 0..rx.len() {
+            match rx.try_recv() {
+                Ok(f) => self.monitor.handle_frame(f.source, &f.frame, f.time),
+                Err(_) => break,
+            }
+        }
+        self.drain_at(now);
+    }
+
     /// Moves every due output of the monitor to the queue and the log.
     fn drain(&mut self) {
-        let now = self.clock.now();
+        self.drain_at(self.clock.now());
+    }
+
+    /// [`Self::drain`] at `now`.
+    fn drain_at(&mut self, now: Timestamp) {
         self.monitor.tick(now);
         let settings = self.settings.clone();
         let root = self.root.clone();

@@ -15,6 +15,7 @@
 //! - [`bounded`]: fixed capacities, the checked push and its `Full` error.
 //! - [`config`]: the TOML text and its validated settings.
 //! - [`time`]: UTC timestamps and RFC 3339.
+#![forbid(unsafe_code)]
 
 pub mod bounded;
 pub mod config;

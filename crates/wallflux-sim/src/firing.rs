@@ -181,6 +181,34 @@ impl FiringSchedule {
             end_c: 70.0,
         }
     }
+    /// The demo's firing scaled to hold at `top_c` instead of its own top
+    /// temperature: every target (the cooling end included) moves in
+    /// proportion between the start temperature and the top, and every rate
+    /// with it, so the firing keeps the demo's timeline (28 h) for any
+    /// set-point above the start. A top at the start temperature gives a
+    /// firing that stays there (zero rates step at once, see
+    /// [`Self::setpoint_c`]).
+    pub fn demo_to(top_c: f64) -> Self {
+        let demo = Self::demo();
+        let start = demo.start_c;
+        let top = demo.segments.last().map_or(start, |s| s.target_c);
+        let f = (top_c - start) / (top - start);
+        let scale = |t_c: f64| start + (t_c - start) * f;
+        FiringSchedule {
+            start_c: start,
+            segments: demo
+                .segments
+                .iter()
+                .map(|s| Segment {
+                    rate_c_per_h: s.rate_c_per_h * f.abs(),
+                    target_c: scale(s.target_c),
+                    hold_h: s.hold_h,
+                })
+                .collect(),
+            cool_rate_c_per_h: demo.cool_rate_c_per_h * f.abs(),
+            end_c: scale(demo.end_c),
+        }
+    }
 }
 
 #[cfg(test)]
@@ -286,5 +314,28 @@ mod tests {
             Err(ScheduleError::Hold { index: 0, .. })
         ));
         assert!((bad_hold.duration_s() - 4.0 * H).abs() < 1e-9);
+    }
+
+    #[test]
+    fn a_scaled_firing_keeps_the_timeline_and_holds_at_its_top() {
+        // Scaled to 620 °C: f = (620 − 20)/(1240 − 20) = 0.4918…; the top hold
+        // (17.5…19 h) reads 620, the first hold (3…4 h) 20 + 180 f = 108.52,
+        // and the firing still lasts 28 h.
+        let s = FiringSchedule::demo_to(620.0);
+        let f = 600.0 / 1220.0;
+        assert!(s.validate().is_ok());
+        assert!(
+            (s.duration_s() - 28.0 * H).abs() < 1e-6,
+            "{}",
+            s.duration_s()
+        );
+        assert!((s.setpoint_c(18.0 * H) - 620.0).abs() < 1e-9);
+        assert!((s.setpoint_c(3.5 * H) - (20.0 + 180.0 * f)).abs() < 1e-9);
+        // At every time the rise above the start is f times the demo's.
+        let demo = FiringSchedule::demo();
+        for t_h in [1.0, 6.0, 13.0, 21.0, 30.0] {
+            let want = 20.0 + f * (demo.setpoint_c(t_h * H) - 20.0);
+            assert!((s.setpoint_c(t_h * H) - want).abs() < 1e-9, "{t_h} h");
+        }
     }
 }

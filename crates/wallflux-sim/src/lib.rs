@@ -4,7 +4,9 @@
 //!
 //! Not part of the production build: the root package uses this crate only
 //! behind its `demo` feature and in its tests.
+#![forbid(unsafe_code)]
 pub mod firing;
 pub mod pty;
 pub mod rng;
+pub mod scenario;
 pub mod wall;
