@@ -23,8 +23,19 @@
 
 use heapless::{Deque, String as HString, Vec as HVec};
 
-/// The most alarms a single alarm may depend on (its `depends_on` list).
+use crate::physics::layered::MAX_PROBES;
+
+/// Most channels one alarm depends on: an alarm on a quantity of the
+/// whole zone depends on every probe's channel, so this holds at least
+/// [`MAX_PROBES`] (asserted at compile time below); configuration
+/// validation refuses a zone with more probes, so no valid configuration
+/// exceeds it.
 pub const MAX_ALARM_DEPENDENCIES: usize = 16;
+
+const _: () = assert!(
+    MAX_ALARM_DEPENDENCIES >= MAX_PROBES,
+    "an alarm must be able to depend on every probe of its zone"
+);
 
 /// A bounded collection had no room for one more element.
 ///

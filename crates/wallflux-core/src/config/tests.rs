@@ -2,6 +2,7 @@
 //! every problem named by key path and line.
 
 use super::*;
+use crate::physics::material::MAX_TABLE_POINTS;
 
 const EXAMPLE: &str = include_str!("../../../../config/example.toml");
 const DEMO: &str = include_str!("../../../../config/demo.toml");
@@ -678,4 +679,159 @@ fn a_misspelt_word_is_refused_listing_the_words_of_its_table() {
             hit.message
         );
     }
+}
+
+/// The problems of `text` at `path`, which must include one whose message
+/// contains `words`.
+fn refused_naming(text: &str, path: &str, words: &str) {
+    let p = problems(text);
+    assert!(
+        p.iter()
+            .any(|x| x.path == path && x.line.is_some() && x.message.contains(words)),
+        "{path} should name {words:?}: {p:#?}"
+    );
+}
+
+/// EXAMPLE with `n` probes in its zone, each on its own channel of
+/// `box-a` (inputs 1..=n), spread through the wall.
+fn with_probes(n: usize) -> String {
+    let mut text = EXAMPLE.to_string();
+    for input in 5..=n {
+        text.push_str(&format!(
+            "\n[[channel]]\nname = \"x{input}\"\nsource = \"box-a\"\ninput = {input}\ntype = \"K\"\ntolerance = \"iec-class-1\"\n"
+        ));
+    }
+    let names: Vec<String> = ["w1-40", "w1-120", "w1-200", "w1-shell"]
+        .iter()
+        .map(|s| s.to_string())
+        .chain((5..=n).map(|i| format!("x{i}")))
+        .take(n)
+        .collect();
+    let probes: Vec<String> = names
+        .iter()
+        .enumerate()
+        .map(|(i, c)| format!("{{ channel = \"{c}\", depth_mm = {} }}", 250 * i / (n - 1)))
+        .collect();
+    let start = text.find("probes = [\n").expect("the example's probes");
+    let end = start + text[start..].find("\n]\n").expect("their end") + 3;
+    text.replace_range(start..end, &format!("probes = [{}]\n", probes.join(", ")));
+    text
+}
+
+#[test]
+fn the_probe_generator_makes_a_valid_zone() {
+    let s = parse(&with_probes(MAX_PROBES), "t.toml", None).unwrap();
+    assert_eq!(s.zones[0].probes.len(), MAX_PROBES);
+}
+
+#[test]
+fn more_probes_than_a_zone_holds_are_refused_with_the_limit() {
+    // Also the limit of an alarm's dependencies: the zone's built-in and
+    // configured alarms depend on every probe, and
+    // `bounded::MAX_ALARM_DEPENDENCIES` holds at least MAX_PROBES.
+    refused_naming(
+        &with_probes(MAX_PROBES + 1),
+        "zone[0].probes",
+        "at most 16 probes per zone",
+    );
+}
+
+#[test]
+fn more_layers_than_a_wall_holds_are_refused_with_the_limit() {
+    let nine = ["{ material = \"castable-a\", thickness_mm = 25 }"; MAX_LAYERS + 1];
+    let text = EXAMPLE
+        .replace("model = \"quadratic\"", "model = \"layered\"")
+        .replace(
+            "layers = [{ material = \"castable-a\", thickness_mm = 250 }]",
+            &format!("layers = [{}]", nine.join(", ")),
+        );
+    refused_naming(&text, "zone[0].layers", "at most 8 layers");
+}
+
+#[test]
+fn more_forecast_horizons_than_a_zone_state_holds_are_refused_with_the_limit() {
+    let nine: Vec<String> = (1..=MAX_FORECASTS + 1).map(|h| h.to_string()).collect();
+    let text = DEMO.replace(
+        "forecast_h = [1, 2, 4]",
+        &format!("forecast_h = [{}]", nine.join(", ")),
+    );
+    assert_ne!(text, DEMO);
+    let p = problems(&text);
+    assert!(
+        p.iter()
+            .any(|x| x.path.ends_with(".forecast_h") && x.message.contains("1 to 8 horizons")),
+        "{p:#?}"
+    );
+}
+
+#[test]
+fn more_channels_than_supported_are_refused_with_the_limit() {
+    let mut text = EXAMPLE.to_string();
+    for i in 0..MAX_CHANNELS {
+        // Sources of 64 inputs each, so only the count is wrong.
+        let source = i / 64;
+        if i % 64 == 0 {
+            text.push_str(&format!(
+                "\n[[source]]\nname = \"extra-{source}\"\nkind = \"line\"\nport = \"/dev/ttyX{source}\"\nbaud = 115200\n"
+            ));
+        }
+        text.push_str(&format!(
+            "\n[[channel]]\nname = \"c{i}\"\nsource = \"extra-{source}\"\ninput = {}\ntype = \"K\"\n",
+            i % 64 + 1
+        ));
+    }
+    let p = problems(&text);
+    assert_eq!(p.len(), 1, "{p:#?}");
+    assert_eq!(p[0].path, "channel");
+    assert!(
+        p[0].message.contains("at most 256 channels"),
+        "{}",
+        p[0].message
+    );
+}
+
+#[test]
+fn an_input_beyond_the_protocol_is_refused_with_the_limit() {
+    let text = EXAMPLE.replacen("input = 4", "input = 65", 1);
+    refused_naming(&text, "channel[3].input", "must be 1 to 64, got 65");
+    let text = EXAMPLE.replacen("input = 4", "input = 300", 1);
+    refused_naming(&text, "channel[3].input", "must be 1 to 64, got 300");
+}
+
+#[test]
+fn a_longer_table_or_polynomial_than_a_property_holds_is_refused_with_the_limit() {
+    let points: Vec<String> = (0..=MAX_TABLE_POINTS)
+        .map(|i| format!("[{}.0, 1.1]", 100 * i))
+        .collect();
+    let text = EXAMPLE.replace(
+        "conductivity_w_mk = [[200.0, 1.05], [600.0, 1.10], [1000.0, 1.18]]",
+        &format!("conductivity_w_mk = [{}]", points.join(", ")),
+    );
+    refused_naming(
+        &text,
+        "material[0].conductivity_w_mk",
+        "a table needs 1 to 16 points, got 17",
+    );
+    let text = EXAMPLE.replace(
+        "conductivity_w_mk = [[200.0, 1.05], [600.0, 1.10], [1000.0, 1.18]]",
+        "conductivity_w_mk = { polynomial = [1.0, 0.0, 0.0, 0.0, 0.0, 0.0], from_c = 0.0, to_c = 1000.0 }",
+    );
+    refused_naming(
+        &text,
+        "material[0].conductivity_w_mk",
+        "1 to 5 coefficients",
+    );
+}
+
+#[test]
+fn a_name_longer_than_a_name_holds_is_refused_with_the_limit() {
+    let long = "z".repeat(MAX_NAME + 1);
+    let text = EXAMPLE.replace("name = \"north-wall\"", &format!("name = \"{long}\""));
+    refused_naming(&text, "zone[0].name", "1 to 48 characters");
+    let just = "z".repeat(MAX_NAME);
+    let text = EXAMPLE
+        .replace("name = \"north-wall\"", &format!("name = \"{just}\""))
+        .replace("zone = \"north-wall\"", &format!("zone = \"{just}\""));
+    let s = parse(&text, "t.toml", None).unwrap();
+    assert_eq!(s.zones[0].name.as_str(), just);
 }

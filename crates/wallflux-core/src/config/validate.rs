@@ -12,7 +12,8 @@ use crate::words::Word;
 use super::raw::*;
 use super::*;
 use crate::monitor::alarm::{AlarmKind, AlarmSpec, Priority};
-use crate::physics::material::{Material, Property};
+use crate::physics::material::{Material, Property, MAX_POLYNOMIAL_TERMS};
+use crate::protocol::line::MAX_INPUT;
 
 /// A built-in alarm (no baseline; its operator texts given).
 fn builtin(
@@ -1261,13 +1262,15 @@ impl Validator<'_> {
                 usize::MAX
             }
         };
-        let input = match *c.input.get_ref() {
-            n @ 1..=64 => n as u8,
-            n => {
+        // Inputs are distinct per source (checked with the channels), so a
+        // source has at most MAX_INPUT of them.
+        let input = match u8::try_from(*c.input.get_ref()) {
+            Ok(n @ 1..=MAX_INPUT) => n,
+            _ => {
                 self.problem(
                     c.input.span(),
                     p("input"),
-                    format!("must be 1 to 64, got {n}"),
+                    format!("must be 1 to {MAX_INPUT}, got {}", c.input.get_ref()),
                 );
                 0
             }
@@ -1382,7 +1385,7 @@ impl Validator<'_> {
                 to_c,
             } => {
                 if coefficients.is_empty()
-                    || coefficients.len() > 5
+                    || coefficients.len() > MAX_POLYNOMIAL_TERMS
                     || from_c >= to_c
                     || !from_c.is_finite()
                     || !to_c.is_finite()
@@ -1390,7 +1393,7 @@ impl Validator<'_> {
                     self.problem(
                         s.span(),
                         path,
-                        "a polynomial needs 1 to 5 coefficients and from_c < to_c",
+                        format!("a polynomial needs 1 to {MAX_POLYNOMIAL_TERMS} coefficients and from_c < to_c"),
                     );
                     return Property::Constant(1.0);
                 }
