@@ -10,9 +10,11 @@
 //!   a typed error (each module's error enum carries a variant holding
 //!   `Full`), so the user learns which capacity was exceeded and its limit;
 //! - or the bound is **proven by construction** and the code is written as a
-//!   conversion that cannot drop anything: a fixed array, or a collection
-//!   built from a source of no greater capacity with `extend_from_slice(..)`
-//!   whose `Result` is propagated, with a comment saying why it fits;
+//!   conversion that cannot drop anything: a fixed array filled through a
+//!   zip, a conversion such as `from_slice`/`try_from` whose `Result` is
+//!   the check, or a collection collected from a source whose own type
+//!   bounds it by the capacity (a vector of the same capacity, an array of
+//!   that length), with a comment saying why it fits;
 //! - never a push whose `Result` is bound to `_` and dropped. The test at
 //!   the end of this module scans the crate's own source and fails, naming
 //!   file and line, on any `let _ =` line that discards a push.

@@ -500,6 +500,46 @@ mod tests {
     use super::*;
     use crate::physics::material::Material;
 
+    /// More samples than a steady fit takes: no budget at all, and the
+    /// model is never run on the first MAX_PROBES of them.
+    #[test]
+    fn steady_budget_refuses_more_samples_than_a_fit_takes() {
+        let sample = |i: usize| ProbeSample {
+            depth_m: 0.01 * i as f64,
+            temp_c: 900.0 - 10.0 * i as f64,
+            sigma_c: 1.0,
+        };
+        let budget_of = |n: usize| {
+            let samples: Vec<ProbeSample> = (0..n).map(sample).collect();
+            let depth_sigma = vec![0.002; n];
+            let inputs = SteadyInputs {
+                samples: &samples,
+                depth_sigma_m: &depth_sigma,
+                conductivity_rel: &[0.15],
+                thickness_m: 0.25,
+                readings: true,
+                slope_c_per_m: &[],
+                mixed_terms: false,
+            };
+            let mut runs = 0;
+            // A model whose outputs follow the readings: hot face = the first
+            // reading, shell = the last.
+            let budget = steady_budget(&inputs, |s, _, out| {
+                runs += 1;
+                out[OUT_HOT_FACE] = s[0].temp_c;
+                out[OUT_SHELL] = s[s.len() - 1].temp_c;
+                Some(2)
+            });
+            (budget, runs)
+        };
+        let (full, runs) = budget_of(MAX_PROBES);
+        let full = full.expect("a budget for MAX_PROBES samples");
+        assert!(runs > 1);
+        // The hot face follows the first reading one for one: its σ (1 °C).
+        assert!((full.thermocouple[OUT_HOT_FACE] - 1.0).abs() < 1e-9);
+        assert_eq!(budget_of(MAX_PROBES + 1), (None, 0));
+    }
+
     /// A steady single layer (no storage): the transient budget's
     /// conductivity part of q(0) is exactly u_k |q| (Fourier's law with the
     /// gradient pinned by the probes) and the hot face owes nothing to k or
