@@ -19,7 +19,7 @@ use crate::monitor::alarm_engine::{event_id, target_names, trend_place, AlarmOut
 use crate::monitor::channel::Health;
 use crate::monitor::command::{command_id, parse_command, reply_json};
 use crate::monitor::energy::{EnergyMeter, EnergyTotals};
-use crate::monitor::trend::trend_line;
+use crate::monitor::trend::{trend_line, TrendLine};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
 use crate::monitor::{Event, Monitor};
 use crate::publish::mqtt::{self, LinkHealth};
@@ -459,7 +459,7 @@ impl Engine {
         let c = &self.monitor.alarms().configs()[t.alarm];
         let (zone, channel, _, quantity) = target_names(&self.settings, c.target);
         let place = trend_place(&self.settings, c.target);
-        let mut line = heapless::String::<256>::new();
+        let mut line = TrendLine::new();
         let unit = c.unit();
         if trend_line(
             &mut line,

@@ -26,7 +26,9 @@
 
 use wallflux_core::config::{Settings, Signal};
 use wallflux_core::physics::thermocouple;
-use wallflux_core::protocol::line::{encode_frame, EncodeError, Unit, Value, MAX_LINE_BYTES};
+use wallflux_core::protocol::line::{
+    encode_frame, EncodeError, Unit, Value, MAX_FRAME_VALUES, MAX_LINE_BYTES,
+};
 
 use crate::firing::FiringSchedule;
 use crate::rng::SplitMix64;
@@ -238,7 +240,7 @@ impl Kiln {
         source: usize,
         out: &mut FrameLine,
     ) -> Result<(), EncodeError> {
-        let mut values: heapless::Vec<(u8, Value), 64> = heapless::Vec::new();
+        let mut values: heapless::Vec<(u8, Value), MAX_FRAME_VALUES> = heapless::Vec::new();
         for (c, place) in settings.channels.iter().zip(&self.places) {
             let Some(place) = place.filter(|_| c.source == source) else {
                 continue;

@@ -134,6 +134,12 @@ impl TrendWatch {
     }
 }
 
+/// Longest one-line trend alert, bytes.
+pub const TREND_LINE_BYTES: usize = 256;
+
+/// A one-line trend alert.
+pub type TrendLine = heapless::String<TREND_LINE_BYTES>;
+
 /// Writes the one-line trend alert into `out` (cleared first), e.g.
 /// `zone side-wall: shell_c 58.2 °C rising 3.1 °C/h, reaches the 65.0 °C
 /// limit in about 2.2 h (at 10:42 UTC)`. `place` names what is watched
@@ -142,11 +148,11 @@ impl TrendWatch {
 ///
 /// Under an hour the time reads in minutes. The arrival time is
 /// `now + eta_h`, rounded to the minute, with the date when it falls on
-/// another UTC day. Err if the text does not fit in 256 bytes or `eta_h` is
+/// another UTC day. Err if the text does not fit in [`TREND_LINE_BYTES`] or `eta_h` is
 /// not a finite number ≥ 0.
 #[allow(clippy::too_many_arguments)] // one line of text, each argument a part of it
 pub fn trend_line(
-    out: &mut heapless::String<256>,
+    out: &mut TrendLine,
     place: &str,
     quantity: &str,
     unit: &str,
@@ -336,7 +342,7 @@ mod tests {
 
     #[test]
     fn trend_line_wording() {
-        let mut out = heapless::String::<256>::new();
+        let mut out = TrendLine::new();
         // 2.193548 h = 2 h 11 min 36.8 s after 08:30:00 → 10:41:37 → 10:42 (by hand).
         let eta = time_to_limit_h(58.2, 3.1, 65.0).unwrap();
         trend_line(
@@ -410,7 +416,7 @@ mod tests {
 
     #[test]
     fn trend_line_refuses_what_it_cannot_write() {
-        let mut out = heapless::String::<256>::new();
+        let mut out = TrendLine::new();
         let zone = format!("zone {}", "z".repeat(245));
         assert!(trend_line(
             &mut out,
@@ -475,7 +481,7 @@ mod tests {
 
     #[test]
     fn trend_lines_name_what_they_watch() {
-        let mut out = heapless::String::<256>::new();
+        let mut out = TrendLine::new();
         trend_line(
             &mut out,
             "channel side-25",
