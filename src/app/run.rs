@@ -12,7 +12,7 @@ use tracing::{debug, info, warn};
 
 use super::clock::Clock;
 use super::state;
-use crate::acquire::serial::{self, SourceHealth};
+use crate::acquire::serial::{self, Delivery, SourceHealth};
 use crate::config::Settings;
 use crate::monitor::alarm::{AlarmFlags, AlarmState, Cause, Priority};
 use crate::monitor::alarm_engine::{event_id, target_names, trend_place, AlarmOutput, TrendAlert};
@@ -109,7 +109,10 @@ pub async fn run(
     loop {
         tokio::select! {
             msg = rx.recv(), if sources_open => match msg {
-                Some(f) => engine.monitor.handle_frame(f.source, &f.frame, f.time),
+                Some(f) => match f.delivery {
+                    Delivery::Scan(scan) => engine.monitor.handle_scan(f.source, &scan, f.time),
+                    Delivery::DecodeError => engine.monitor.handle_decode_error(f.source, f.time),
+                },
                 None => sources_open = false,
             },
             Some(payload) = cmd_rx.recv() => engine.command(&payload),
@@ -563,13 +566,14 @@ impl Engine {
             .zip(sources)
             .enumerate()
             .map(|(i, (s, h))| {
+                let c = self.monitor.source_counters(i);
                 json!({
                     "source": s.name.as_str(),
                     "open": h.open.load(r),
                     "silent": self.monitor.source_silent(i),
-                    "frames": h.frames.load(r),
-                    "frame_errors": h.frame_errors.load(r),
-                    "lost_scans": h.lost_scans.load(r),
+                    "frames": c.scans,
+                    "frame_errors": c.decode_errors,
+                    "lost_scans": c.lost_scans,
                     "reopens": h.opens.load(r).saturating_sub(1),
                 })
             })

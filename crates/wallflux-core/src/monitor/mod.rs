@@ -10,6 +10,7 @@ pub mod channel;
 pub mod command;
 pub mod energy;
 pub mod lining;
+pub mod source;
 pub mod trend;
 pub mod wall;
 pub mod zone;
@@ -19,12 +20,13 @@ use std::sync::Arc;
 use heapless::Deque;
 
 use crate::config::{BaselineStart, Model, Settings, Zone};
-use crate::protocol::line::{Frame, Value};
+use crate::protocol::scan::{self, InputAddress, Scan};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
 use alarm_engine::{AlarmEngine, AlarmOutput, AlarmReport};
 use channel::{ChannelReport, ChannelState, Health};
 use command::{Command, CommandError};
+use source::{SourceCounters, SourceState};
 use zone::{ZoneEngine, ZoneReport, STALE_INTERVALS};
 
 /// Something notable that the edges log and publish.
@@ -39,7 +41,7 @@ pub enum Event {
         reason: &'static str,
     },
     /// A frame's input has no configured channel (counted; logged once).
-    UnknownInput { source: usize, input: u8 },
+    UnknownInput { source: usize, input: InputAddress },
 }
 
 /// Most events queued between two polls; beyond it the oldest are dropped
@@ -58,9 +60,8 @@ pub struct Monitor {
     zones: Vec<ZoneEngine>,
     events: Deque<Event, EVENT_QUEUE>,
     unknown_inputs_seen: Vec<[bool; 65]>,
-    /// Latest value of any kind from each source, and whether it is silent.
-    source_seen: Vec<Option<Timestamp>>,
-    source_silent: Vec<bool>,
+    /// Each source's health: last reading, silence, counters.
+    sources: Vec<SourceState>,
     start: Timestamp,
     alarms: AlarmEngine,
     pub events_dropped: u64,
@@ -118,8 +119,7 @@ impl Monitor {
             zones,
             events: Deque::new(),
             unknown_inputs_seen: vec![[false; 65]; settings.sources.len()],
-            source_seen: vec![None; settings.sources.len()],
-            source_silent: vec![false; settings.sources.len()],
+            sources: vec![SourceState::default(); settings.sources.len()],
             start,
             alarms: AlarmEngine::new(&settings, saved, start),
             events_dropped: 0,
@@ -140,27 +140,30 @@ impl Monitor {
         }
     }
 
-    /// A line-protocol frame from source `source`, received at `now`.
-    /// The cold junction: the frame's `cj=`, else the source's
-    /// cold-junction (terminal) sensor (its value in this frame, or its
-    /// latest reading while it is `ok`), else the source's fixed `cj_c`. A
-    /// terminal sensor that is not `ok` makes the frame's millivolt values
-    /// invalid, with the sensor's fault as their reason.
-    pub fn handle_frame(&mut self, source: usize, frame: &Frame, now: Timestamp) {
-        let src = &self.settings.sources[source];
-        let cj_channel = src.cj_channel;
-        let cj = match (frame.cj_c, cj_channel) {
+    /// A scan from source `source`, received at `now` (a source index the
+    /// configuration does not have is ignored). The cold junction: the
+    /// scan's own, else the source's cold-junction (terminal) sensor (its
+    /// reading in this scan, or its latest reading while it is `ok`), else
+    /// the source's fixed `cj_c`. A terminal sensor that is not `ok` makes
+    /// the scan's millivolt readings invalid, with the sensor's fault as
+    /// their reason.
+    pub fn handle_scan(&mut self, source: usize, scan: &Scan, now: Timestamp) {
+        let Some(state) = self.sources.get_mut(source) else {
+            return;
+        };
+        state.note_scan(scan.lost_before, scan.source_restarted);
+        let cj_channel = self.settings.sources[source].cj_channel;
+        let cj = match (scan.cj_c, cj_channel) {
             (Some(c), _) => Ok(Some(c)),
             (None, Some(cc)) => {
-                let input = self.settings.channels[cc].input;
-                if let Some(&(_, v)) = frame.values.iter().find(|(i, _)| *i == input) {
-                    self.apply_value(cc, v, Ok(None), now);
+                if let Some(r) = scan.reading(self.settings.channels[cc].input) {
+                    self.apply_value(cc, r, Ok(None), now);
                 }
                 self.cold_junction_c(cc, now).map(Some)
             }
             (None, None) => Ok(self.settings.sources[source].cj_c),
         };
-        for &(input, value) in &frame.values {
+        for &(input, value) in &scan.readings {
             let channel = self.settings.channel_for(source, input);
             if channel.is_some() && channel == cj_channel {
                 continue; // handled first, above
@@ -179,6 +182,22 @@ impl Monitor {
         }
     }
 
+    /// A frame from source `source` that its decoder rejected, at `now`
+    /// (counted in the source's health; it is no reading, so it does not
+    /// end a silence).
+    pub fn handle_decode_error(&mut self, source: usize, _now: Timestamp) {
+        if let Some(s) = self.sources.get_mut(source) {
+            s.counters.decode_errors += 1;
+        }
+    }
+
+    /// Source `s`'s counters (zero for an unknown index).
+    pub fn source_counters(&self, s: usize) -> SourceCounters {
+        self.sources
+            .get(s)
+            .map_or_else(SourceCounters::default, |s| s.counters)
+    }
+
     /// The temperature of cold-junction (terminal) sensor `cc` at `now`,
     /// or, when it is not `ok`, why not (in words, for the millivolt
     /// channels it compensates).
@@ -190,11 +209,18 @@ impl Monitor {
         }
     }
 
-    /// One value for channel `ch` (from a frame, or a samples file), with
-    /// the cold-junction temperature that applies to it. A millivolt
-    /// channel whose source has a cold-junction sensor that is not `ok` is
-    /// invalid whatever `cj_c` says.
-    pub fn handle_value(&mut self, ch: usize, value: Value, cj_c: Option<f64>, now: Timestamp) {
+    /// One reading for channel `ch` (from a samples file), with the
+    /// cold-junction temperature that applies to it. A millivolt channel
+    /// whose source has a cold-junction sensor that is not `ok` is invalid
+    /// whatever `cj_c` says.
+    pub fn handle_value(
+        &mut self,
+        ch: usize,
+        value: impl Into<scan::Reading>,
+        cj_c: Option<f64>,
+        now: Timestamp,
+    ) {
+        let value = value.into();
         let Some(cfg) = self.settings.channels.get(ch) else {
             return;
         };
@@ -217,7 +243,7 @@ impl Monitor {
     fn apply_value(
         &mut self,
         ch: usize,
-        value: Value,
+        value: scan::Reading,
         cj: Result<Option<f64>, &'static str>,
         now: Timestamp,
     ) {
@@ -226,16 +252,16 @@ impl Monitor {
         };
         let result = match (value, cj) {
             (
-                Value::Reading {
-                    unit: crate::protocol::line::Unit::Millivolts,
+                scan::Reading::Measured {
+                    unit: scan::Unit::Millivolts,
                     ..
                 },
                 Err(reason),
             ) if cfg.signal == crate::config::Signal::Millivolts => Err((Health::Invalid, reason)),
             (_, cj) => channel::convert(cfg, value, cj.ok().flatten()),
         };
-        if let Some(seen) = self.source_seen.get_mut(cfg.source) {
-            *seen = Some(now);
+        if let Some(s) = self.sources.get_mut(cfg.source) {
+            s.seen = Some(now);
         }
         let state = &mut self.channels[ch];
         state.last_seen = Some(now);
@@ -441,11 +467,11 @@ impl Monitor {
     fn update_suppression(&mut self, now: Timestamp) {
         let channels = &self.channels;
         let stale = &self.stale_after_s;
-        let silent = &self.source_silent;
+        let sources = &self.sources;
         self.alarms.update_suppression(
             &self.settings,
             |c| channels[c].health_at(now, stale[c]).0,
-            |s| silent[s],
+            |s| sources[s].silent,
             now,
         );
     }
@@ -453,12 +479,11 @@ impl Monitor {
     /// Time-driven work that no reading triggers: sources falling silent,
     /// alarm timers (shelves running out, delays completing).
     pub fn tick(&mut self, now: Timestamp) {
-        for s in 0..self.source_silent.len() {
+        for s in 0..self.sources.len() {
             let limit = self.settings.sources[s].silence_s;
-            let since = self.source_seen[s].unwrap_or(self.start);
-            let silent = now.since(since) > limit;
-            if silent != self.source_silent[s] {
-                self.source_silent[s] = silent;
+            let silent = self.sources[s].silent_at(now, self.start, limit);
+            if silent != self.sources[s].silent {
+                self.sources[s].silent = silent;
                 self.update_suppression(now);
             }
             self.alarms.on_source(s, silent, now);
@@ -486,7 +511,7 @@ impl Monitor {
 
     /// Whether source `s` is silent (no value within its silence limit).
     pub fn source_silent(&self, s: usize) -> bool {
-        self.source_silent.get(s).copied().unwrap_or(false)
+        self.sources.get(s).is_some_and(|s| s.silent)
     }
 
     /// The next alarm transition or trend alert.
