@@ -9,6 +9,7 @@ use std::sync::Arc;
 use wallflux::acquire::line::{self, Frame, Unit, Value};
 use wallflux::config;
 use wallflux::monitor::channel::{ChannelReport, Health};
+use wallflux::monitor::output::Output;
 use wallflux::monitor::Monitor;
 use wallflux::protocol::scan::Scan;
 use wallflux::time::Timestamp;
@@ -80,9 +81,17 @@ fn frame(values: &[(u8, Value)], cj: Option<f64>) -> Scan {
 /// Every channel state due at `at`, by name (a state is due once per
 /// period or at a change, so all are taken at once).
 fn reports(m: &mut Monitor, at: f64) -> Vec<ChannelReport> {
+    channel_states(m, Timestamp::from_epoch_s(at))
+}
+
+/// The channel states due at `now`.
+fn channel_states(m: &mut Monitor, now: Timestamp) -> Vec<ChannelReport> {
     let mut out = Vec::new();
-    while let Some(c) = m.poll_channel(Timestamp::from_epoch_s(at)) {
-        out.push(c);
+    m.handle_timeout(now);
+    while let Some(o) = m.poll_output() {
+        if let Output::ChannelState(c) = o {
+            out.push(c);
+        }
     }
     out
 }
@@ -200,7 +209,7 @@ fn calibration_is_applied_and_its_expiry_reported() {
             now,
         );
         let mut seen = false;
-        while let Some(c) = m.poll_channel(now) {
+        for c in channel_states(&mut m, now) {
             if c.channel.as_str() == "tc" {
                 assert!((c.celsius.unwrap() - 502.0).abs() < 1e-9, "{:?}", c.celsius);
                 assert_eq!(c.calibration_overdue, overdue);
@@ -322,9 +331,8 @@ fn a_failed_cold_junction_raises_the_thermocouple_fault_alarm() {
             let now = Timestamp::from_epoch_s(f64::from(k));
             m.handle_scan(0, &frame(&[(1, MV), (2, terminal), (3, deep)], None), now);
             m.handle_scan(1, &frame(&[(1, MV)], None), now);
-            m.tick(now);
-            while m.poll_zone(now).is_some() {}
-            while m.poll_alarm().is_some() {}
+            m.handle_timeout(now);
+            while m.poll_output().is_some() {}
         }
     };
     run(&mut m, 1, 60, terminal_c(24.0));
@@ -425,14 +433,65 @@ fn source_health_is_counted_per_source() {
     assert_eq!((a.scans, a.lost_scans, a.decode_errors), (1 + 1, 4, 1));
     assert_eq!((b.scans, b.lost_scans, b.decode_errors), (0, 0, 2));
     // silence_s = 10 for "box": silent 10 s after its last reading at 2 s.
-    m.tick(Timestamp::from_epoch_s(11.5));
+    m.handle_timeout(Timestamp::from_epoch_s(11.5));
     assert!(!m.source_silent(0));
-    m.tick(Timestamp::from_epoch_s(12.5));
+    m.handle_timeout(Timestamp::from_epoch_s(12.5));
     assert!(m.source_silent(0));
     m.handle_decode_error(0, Timestamp::from_epoch_s(13.0));
-    m.tick(Timestamp::from_epoch_s(13.0));
+    m.handle_timeout(Timestamp::from_epoch_s(13.0));
     assert!(m.source_silent(0), "a rejected line does not end a silence");
     m.handle_scan(0, &frame(&[(2, c)], None), Timestamp::from_epoch_s(14.0));
-    m.tick(Timestamp::from_epoch_s(14.0));
+    m.handle_timeout(Timestamp::from_epoch_s(14.0));
     assert!(!m.source_silent(0));
+}
+
+/// The monitor says when it next needs the time: channel states at once
+/// after a change and every zone interval (10 s here), the zone's cycle, a
+/// source just after its silence limit (10 s after its last reading, the
+/// start for one that never spoke); and `handle_timeout` then does that
+/// work.
+#[test]
+fn poll_timeout_names_the_next_due_work() {
+    let t = Timestamp::from_epoch_s;
+    let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let mut m = Monitor::new(s, t(0.0));
+    assert_eq!(m.poll_timeout(), Some(t(0.0)), "first channel states");
+    assert_eq!(channel_states(&mut m, t(0.0)).len(), 4);
+    assert_eq!(m.poll_timeout(), Some(t(10.0)), "the zone and the channels");
+    let terminals = Value::Reading {
+        value: 25.0,
+        unit: Unit::Celsius,
+    };
+    m.handle_scan(0, &frame(&[(2, terminals)], None), t(5.0));
+    assert_eq!(m.poll_timeout(), Some(t(5.0)), "a health change");
+    let kinds = |m: &mut Monitor, now: f64| {
+        m.handle_timeout(t(now));
+        std::iter::from_fn(|| m.poll_output())
+            .map(|o| o.kind().name())
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(kinds(&mut m, 5.0), ["channel_health", "channel_state"]);
+    assert_eq!(m.poll_timeout(), Some(t(10.0)));
+    let at_10 = kinds(&mut m, 10.0);
+    assert_eq!(at_10[..2], ["zone_state", "kiln_state"], "{at_10:?}");
+    // box2 never spoke: silent from 10 s after the start.
+    let next = m.poll_timeout().unwrap();
+    assert!(
+        (next.epoch_s() - 10.0).abs() < 0.01 && next > t(10.0),
+        "{next:?}"
+    );
+    assert!(!m.source_silent(1));
+    m.handle_timeout(next);
+    assert!(m.source_silent(1));
+    // box spoke at 5 s: silent from 15 s, unless an alarm delay comes first.
+    let next = m.poll_timeout().unwrap();
+    assert!(next > t(10.0) && next <= t(15.01), "{next:?}");
+    let box_silent = t(15.01);
+    while m.poll_timeout().is_some_and(|n| n <= box_silent) {
+        assert!(!m.source_silent(0));
+        let n = m.poll_timeout().unwrap();
+        m.handle_timeout(n);
+    }
+    assert!(m.source_silent(0));
+    assert_eq!(m.poll_timeout(), Some(t(20.0)), "the next cycle");
 }

@@ -279,7 +279,7 @@ pub fn sigma_c(channel: &Channel, t_c: f64) -> f64 {
 }
 
 /// A channel's state as published on `{root}/channel/{channel}`.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ChannelReport {
     pub schema: &'static str,
     pub channel: Name,

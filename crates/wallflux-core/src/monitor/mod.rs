@@ -1,52 +1,66 @@
 //! The monitor: per-channel and per-zone state, driven by readings and time.
 //!
-//! Sans-IO like the physics: readings go in through `handle_*`, results
-//! come out of `poll_*`, and every call takes `now`. The live daemon and
-//! `analyze` drive the same engine, so a replay reproduces the live numbers.
+//! Sans-IO like the physics: inputs go in through `handle_*`, results come
+//! out of `poll_*`, and every call takes `now`. The live daemon and
+//! `analyze` drive the same monitor, so a replay reproduces the live
+//! outputs.
+//!
+//! # Driving it
+//!
+//! 1. Feed what arrives, in time order: [`Monitor::handle_scan`] (a
+//!    decoder's scan), [`Monitor::handle_decode_error`] (a frame the
+//!    decoder rejected), [`Monitor::handle_value`] (one reading, from a
+//!    samples file), [`Monitor::handle_command`] (an operator command),
+//!    and the requests of the sinks ([`Monitor::handle_status_request`],
+//!    [`Monitor::handle_alarm_states_request`]).
+//! 2. Ask [`Monitor::poll_timeout`] when the monitor next needs the time
+//!    (a zone's interval, a channel's period, an alarm's delay or shelve,
+//!    a source falling silent, the next flood summary) and call
+//!    [`Monitor::handle_timeout`] with the time then (or later). A replay
+//!    calls [`Monitor::handle_timeout_before`] with each row's time.
+//! 3. After every `handle_*` call, drain [`Monitor::poll_output`] until it
+//!    returns `None`, and route each [`output::Output`] to its sinks. Every
+//!    output is queued in the order it happened; none is built by the
+//!    driver.
 
 pub mod alarm;
 pub mod alarm_engine;
 pub mod channel;
 pub mod command;
+mod emit;
 pub mod energy;
 pub mod lining;
+pub mod output;
 pub mod source;
 pub mod trend;
 pub mod wall;
 pub mod zone;
 
+use std::collections::VecDeque;
 use std::sync::Arc;
 
-use heapless::Deque;
-
 use crate::config::{BaselineStart, Model, Settings, Zone};
-use crate::protocol::scan::{self, InputAddress, Scan};
+use crate::protocol::scan::{self, Scan};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
-use alarm_engine::{AlarmEngine, AlarmOutput, AlarmReport};
+use alarm_engine::{AlarmEngine, AlarmReport};
 use channel::{ChannelReport, ChannelState, Health};
 use command::{Command, CommandError};
+use energy::{EnergyMeter, EnergyTotals};
+use output::{ChannelHealthChange, Output, UnknownInput, ZoneState};
 use source::{SourceCounters, SourceState};
-use zone::{ZoneEngine, ZoneReport, STALE_INTERVALS};
+use zone::{ZoneEngine, STALE_INTERVALS};
 
-/// Something notable that the edges log and publish.
-#[derive(Debug, Clone, PartialEq)]
-pub enum Event {
-    /// A channel's health changed (logged once per change).
-    ChannelHealth {
-        channel: usize,
-        time: Timestamp,
-        from: Health,
-        to: Health,
-        reason: &'static str,
-    },
-    /// A frame's input has no configured channel (counted; logged once).
-    UnknownInput { source: usize, input: InputAddress },
-}
+/// Outputs the queue holds without growing (it keeps its capacity; a
+/// driver drains it after every call).
+const OUTPUT_QUEUE: usize = 64;
 
-/// Most events queued between two polls; beyond it the oldest are dropped
-/// and counted (they are log lines; channel state is still published).
-const EVENT_QUEUE: usize = 64;
+/// While an alarm flood lasts, one grouped summary at most this often, s.
+pub const FLOOD_SUMMARY_EVERY_S: f64 = 60.0;
+
+/// How long after its silence limit a source is looked at again: silence is
+/// "longer than the limit", so the check comes just after it.
+const SILENCE_SLACK_S: f64 = 1e-3;
 
 pub struct Monitor {
     settings: Arc<Settings>,
@@ -58,13 +72,18 @@ pub struct Monitor {
     channel_due: Vec<Timestamp>,
     channel_period_s: f64,
     zones: Vec<ZoneEngine>,
-    events: Deque<Event, EVENT_QUEUE>,
+    outputs: VecDeque<Output>,
     unknown_inputs_seen: Vec<[bool; 65]>,
     /// Each source's health: last reading, silence, counters.
     sources: Vec<SourceState>,
     start: Timestamp,
     alarms: AlarmEngine,
-    pub events_dropped: u64,
+    meter: EnergyMeter,
+    /// The energy price per kWh and its currency, if configured.
+    price: Option<(f64, Arc<str>)>,
+    /// Alarm lines grouped into the flood summary since the flood began.
+    flood_grouped: u64,
+    last_flood_summary: Option<Timestamp>,
     pub unknown_inputs: u64,
 }
 
@@ -117,27 +136,47 @@ impl Monitor {
             channel_due: vec![start; n],
             channel_period_s,
             zones,
-            events: Deque::new(),
+            outputs: VecDeque::with_capacity(OUTPUT_QUEUE),
             unknown_inputs_seen: vec![[false; 65]; settings.sources.len()],
             sources: vec![SourceState::default(); settings.sources.len()],
             start,
             alarms: AlarmEngine::new(&settings, saved, start),
-            events_dropped: 0,
+            meter: new_meter(&settings, EnergyTotals::default()),
+            price: settings
+                .site
+                .energy_price
+                .as_ref()
+                .map(|(p, c)| (*p, Arc::from(c.as_str()))),
+            flood_grouped: 0,
+            last_flood_summary: None,
             unknown_inputs: 0,
             settings,
         }
+    }
+
+    /// Resumes the energy accounting from saved totals.
+    pub fn restore_energy(&mut self, totals: EnergyTotals) {
+        self.meter = new_meter(&self.settings, totals);
+    }
+
+    /// The energy totals (to persist).
+    pub fn energy_totals(&self) -> &EnergyTotals {
+        &self.meter.totals
     }
 
     pub fn settings(&self) -> &Settings {
         &self.settings
     }
 
-    fn push_event(&mut self, e: Event) {
-        if let Err(e) = self.events.push_back(e) {
-            self.events.pop_front();
-            self.events_dropped += 1;
-            let _ = self.events.push_back(e);
-        }
+    fn push(&mut self, o: Output) {
+        self.outputs.push_back(o);
+    }
+
+    /// The next output, oldest first (drain until `None` after every
+    /// `handle_*` call).
+    #[must_use]
+    pub fn poll_output(&mut self) -> Option<Output> {
+        self.outputs.pop_front()
     }
 
     /// A scan from source `source`, received at `now` (a source index the
@@ -175,7 +214,8 @@ impl Monitor {
                     let seen = &mut self.unknown_inputs_seen[source][usize::from(input.min(64))];
                     if !*seen {
                         *seen = true;
-                        self.push_event(Event::UnknownInput { source, input });
+                        let source = self.settings.sources[source].name.clone();
+                        self.push(Output::UnknownInput(UnknownInput { source, input }));
                     }
                 }
             }
@@ -285,35 +325,92 @@ impl Monitor {
             self.channels[ch].announced = health;
             // A change is published at once, not at the next period.
             self.channel_due[ch] = now;
-            self.push_event(Event::ChannelHealth {
-                channel: ch,
+            self.push(Output::ChannelHealth(ChannelHealthChange {
+                channel: self.settings.channels[ch].name.clone(),
                 time: now,
                 from,
                 to: health,
                 reason,
-            });
+            }));
         }
     }
 
-    /// The next due zone cycle at `now`, if any (call until `None`). The
-    /// report is stamped with its due time, so a replay and the live run
-    /// give the same times.
-    pub fn poll_zone(&mut self, now: Timestamp) -> Option<ZoneReport> {
-        self.poll_due(now, false)
+    /// Everything due at or before `now`: sources falling silent, alarm
+    /// timers, zone cycles (each state stamped with its due time, so that a
+    /// replay and the live run give the same times, and after the cycles of
+    /// one instant the kiln state), channel states, alarm outputs.
+    pub fn handle_timeout(&mut self, now: Timestamp) {
+        self.run_due(now, false);
     }
 
-    /// As [`Self::poll_zone`], but only cycles due strictly before `now`: a
-    /// replay calls it before handling a row stamped `now`, so that a cycle
-    /// due at `now` still sees that row's readings (its estimate holds for
-    /// the time it is stamped with).
-    pub fn poll_zone_before(&mut self, now: Timestamp) -> Option<ZoneReport> {
-        self.poll_due(now, true)
+    /// As [`Self::handle_timeout`], but zone cycles only when due strictly
+    /// before `now`: a replay calls it before handling a row stamped `now`,
+    /// so that a cycle due at `now` still sees that row's readings (its
+    /// estimate holds for the time it is stamped with).
+    pub fn handle_timeout_before(&mut self, now: Timestamp) {
+        self.run_due(now, true);
+    }
+
+    /// When the monitor next needs [`Self::handle_timeout`]: the earliest of
+    /// the zones' next cycles, the channels' next states, a source falling
+    /// silent, an alarm's delay or shelve ending, the next flood summary.
+    pub fn poll_timeout(&self) -> Option<Timestamp> {
+        let zones = self.zones.iter().map(|z| z.next_due);
+        let channels = self.channel_due.iter().copied();
+        let silence = self
+            .sources
+            .iter()
+            .zip(&self.settings.sources)
+            .filter(|(s, _)| !s.silent)
+            .map(|(s, c)| {
+                s.silent_from(self.start, c.silence_s)
+                    .plus_s(SILENCE_SLACK_S)
+            });
+        let flood = self
+            .last_flood_summary
+            .map(|t| t.plus_s(FLOOD_SUMMARY_EVERY_S));
+        zones
+            .chain(channels)
+            .chain(silence)
+            .chain(self.alarms.next_deadline())
+            .chain(flood)
+            .filter(|t| t.epoch_s().is_finite())
+            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
+    }
+
+    fn run_due(&mut self, now: Timestamp, strict: bool) {
+        self.tick(now);
+        while let Some(due) = self.next_cycle(now, strict) {
+            for i in 0..self.zones.len() {
+                if self.zones[i].next_due == due {
+                    self.cycle_zone(i, due, now);
+                }
+            }
+            let kiln = self
+                .meter
+                .report(due, self.price.as_ref().map(|(p, c)| (*p, c)));
+            self.push(Output::KilnState(kiln));
+        }
+        while let Some(ch) = self.poll_channel(now) {
+            self.push(Output::ChannelState(ch));
+        }
+        self.collect_alarms(now);
+    }
+
+    /// The earliest zone cycle due at `now` (strictly before it if
+    /// `strict`).
+    fn next_cycle(&self, now: Timestamp, strict: bool) -> Option<Timestamp> {
+        self.zones
+            .iter()
+            .map(|z| z.next_due)
+            .filter(|&d| d < now || (!strict && d == now))
+            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
     }
 
     /// At the end of a replay: every zone that has had readings since its
     /// last cycle gets a last cycle at `now` (a partial interval), so the
     /// readings after the last interval boundary are published too. Then
-    /// call [`Self::poll_zone`] until `None`.
+    /// call [`Self::handle_timeout`] with `now`.
     pub fn close_partial_intervals(&mut self, now: Timestamp) {
         for (i, z) in self.zones.iter_mut().enumerate() {
             let interval = self.settings.zones[i].interval_s;
@@ -324,14 +421,9 @@ impl Monitor {
         }
     }
 
-    fn poll_due(&mut self, now: Timestamp, strict: bool) -> Option<ZoneReport> {
-        let (i, due) = self
-            .zones
-            .iter()
-            .enumerate()
-            .filter(|(_, z)| z.next_due < now || (!strict && z.next_due == now))
-            .map(|(i, z)| (i, z.next_due))
-            .min_by(|a, b| a.1.epoch_s().total_cmp(&b.1.epoch_s()))?;
+    /// Zone `i`'s cycle due at `due` (handled at `now`): its state, its
+    /// energy, its channels' zone faults, its alarms.
+    fn cycle_zone(&mut self, i: usize, due: Timestamp, now: Timestamp) {
         for ch in 0..self.channels.len() {
             self.check_health(ch, due);
         }
@@ -370,7 +462,10 @@ impl Monitor {
             let c = self.channels[p.channel].latest.map(|r| r.celsius);
             self.alarms.on_channel(p.channel, h, c, due);
         }
-        Some(report)
+        self.meter
+            .record(i, report.heat_loss_w, report.hot_face_c, interval, due);
+        let cycle = self.zones[i].cycles;
+        self.push(Output::ZoneState(ZoneState { report, cycle }));
     }
 
     /// Every zone's learned lining baseline, by zone name (to persist).
@@ -440,11 +535,16 @@ impl Monitor {
 
     /// The next channel state due for publication at `now` (its period, or
     /// at once after a health change).
-    pub fn poll_channel(&mut self, now: Timestamp) -> Option<ChannelReport> {
+    fn poll_channel(&mut self, now: Timestamp) -> Option<ChannelReport> {
         let ch = (0..self.channels.len()).find(|&c| self.channel_due[c] <= now)?;
         self.check_health(ch, now);
         self.channel_due[ch] = now.plus_s(self.channel_period_s);
-        let cfg = &self.settings.channels[ch];
+        self.channel_state(ch, now)
+    }
+
+    /// Channel `ch`'s state at `now`, as its next publication would say.
+    pub fn channel_state(&self, ch: usize, now: Timestamp) -> Option<ChannelReport> {
+        let cfg = self.settings.channels.get(ch)?;
         let state = &self.channels[ch];
         let (health, reason) = state.health_at(now, self.stale_after_s[ch]);
         let valid = health == Health::Ok;
@@ -478,7 +578,7 @@ impl Monitor {
 
     /// Time-driven work that no reading triggers: sources falling silent,
     /// alarm timers (shelves running out, delays completing).
-    pub fn tick(&mut self, now: Timestamp) {
+    fn tick(&mut self, now: Timestamp) {
         for s in 0..self.sources.len() {
             let limit = self.settings.sources[s].silence_s;
             let silent = self.sources[s].silent_at(now, self.start, limit);
@@ -514,13 +614,10 @@ impl Monitor {
         self.sources.get(s).is_some_and(|s| s.silent)
     }
 
-    /// The next alarm transition or trend alert.
-    pub fn poll_alarm(&mut self) -> Option<AlarmOutput> {
-        self.alarms.poll()
-    }
-
-    /// An operator command; `Ok(alarm index)` when accepted (for the
-    /// baseline actions, `Ok(zone index)`).
+    /// An operator command, already parsed; `Ok(alarm index)` when accepted
+    /// (for the baseline actions, `Ok(zone index)`). Its alarm outputs come
+    /// with the next `handle_*` call ([`Self::handle_command`] takes the
+    /// payload, replies and collects them at once).
     pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
         if cmd.action.is_baseline() {
             return self.baseline_command(cmd, now);
@@ -537,22 +634,19 @@ impl Monitor {
     }
 
     /// The `{root}/alarm/{name}` payload of alarm `i` at `now`.
-    pub fn alarm_report(&self, i: usize, now: Timestamp) -> AlarmReport<'_> {
+    pub fn alarm_report(&self, i: usize, now: Timestamp) -> AlarmReport {
         self.alarms.report(&self.settings, i, now)
     }
+}
 
-    /// The next queued event.
-    pub fn poll_event(&mut self) -> Option<Event> {
-        self.events.pop_front()
-    }
-
-    /// The earliest time a zone cycle is due (for the driver's timer).
-    pub fn next_zone_due(&self) -> Option<Timestamp> {
-        self.zones
-            .iter()
-            .map(|z| z.next_due)
-            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
-    }
+/// The kiln's energy meter for `settings`, resuming from `totals`.
+fn new_meter(settings: &Settings, totals: EnergyTotals) -> EnergyMeter {
+    EnergyMeter::new(
+        settings.zones.len(),
+        settings.site.firing_start_c,
+        settings.site.operation,
+        totals,
+    )
 }
 
 /// Whether a zone keeps a lining baseline: the layered model with a
