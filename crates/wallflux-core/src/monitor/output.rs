@@ -300,3 +300,121 @@ pub struct FloodNotice {
     /// The alarms active at the summary.
     pub active: Vec<String>,
 }
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+    use serde_json::json;
+
+    /// The payloads that earlier versions built as `json!` objects: the
+    /// structs give the very same bytes (keys in alphabetical order, none
+    /// left out, `null` for an absent value).
+    #[test]
+    fn event_and_status_bytes_are_those_of_the_json_objects_they_replace() {
+        let time = Timestamp::from_epoch_s(1_700_000_000.0);
+        let event = AlarmEvent {
+            active: true,
+            alarm: "roof-hot".into(),
+            announced: true,
+            by: None,
+            cause: Cause::Activated,
+            event_id: "roof-hot-3".into(),
+            from: AlarmState::Normal,
+            message: "roof shell hot".into(),
+            priority: Priority::High,
+            reason: None,
+            schema: "wallflux.event/1",
+            seq: 3,
+            setpoint: Some(120.0),
+            time,
+            to: AlarmState::Unacknowledged,
+            event_type: "alarm",
+            unit: "°C",
+            value: Some(123.4),
+            configured_setpoint: 120.0,
+            grouped: false,
+        };
+        let old = json!({
+            "schema": "wallflux.event/1", "type": "alarm", "time": time,
+            "alarm": "roof-hot", "event_id": "roof-hot-3", "seq": 3,
+            "from": AlarmState::Normal, "to": AlarmState::Unacknowledged,
+            "cause": Cause::Activated, "active": true, "announced": true,
+            "value": Some(123.4), "setpoint": Some(120.0), "unit": "°C",
+            "priority": Priority::High, "by": None::<&str>,
+            "message": "roof shell hot", "reason": None::<&str>,
+        });
+        assert_eq!(
+            serde_json::to_string(&event).unwrap(),
+            serde_json::to_string(&old).unwrap()
+        );
+
+        let trend = TrendEvent {
+            alarm: "roof-hot".into(),
+            channel: None,
+            eta_h: 2.5,
+            limit: 120.0,
+            message: "roof shell about 2.5 h from 120 °C".into(),
+            quantity: "shell_c",
+            rate_per_h: 4.0,
+            schema: "wallflux.event/1",
+            time,
+            event_type: "trend",
+            unit: "°C",
+            value: 110.0,
+            zone: Some("roof".into()),
+            line_complete: true,
+        };
+        let old = json!({
+            "schema": "wallflux.event/1", "type": "trend", "time": time,
+            "alarm": "roof-hot", "zone": Some("roof"), "channel": None::<&str>,
+            "quantity": "shell_c", "value": 110.0, "rate_per_h": 4.0,
+            "limit": 120.0, "unit": "°C", "eta_h": 2.5,
+            "message": "roof shell about 2.5 h from 120 °C",
+        });
+        assert_eq!(
+            serde_json::to_string(&trend).unwrap(),
+            serde_json::to_string(&old).unwrap()
+        );
+
+        let status = StatusReport {
+            alarm_flood: false,
+            alarm_rate_per_10min: 2,
+            alarms_active: 1,
+            mqtt: Some(LinkStatus {
+                connections: 1,
+                published: 40,
+                queued: 3,
+                ..LinkStatus::default()
+            }),
+            schema: "wallflux.status/1",
+            sources: vec![SourceStatus {
+                frame_errors: 4,
+                frames: 100,
+                lost_scans: 2,
+                open: Some(true),
+                reopens: Some(0),
+                silent: false,
+                source: "box".try_into().unwrap(),
+            }],
+            state: "online",
+            time,
+            unknown_inputs: 5,
+            version: "0.1.0",
+        };
+        let old = json!({
+            "schema": "wallflux.status/1", "state": "online", "time": time,
+            "version": "0.1.0",
+            "sources": [{"source": "box", "open": true, "silent": false,
+                "frames": 100, "frame_errors": 4, "lost_scans": 2, "reopens": 0}],
+            "alarms_active": 1, "alarm_rate_per_10min": 2, "alarm_flood": false,
+            "mqtt": {"connections": 1, "failed_attempts": 0, "published": 40,
+                "queued": 3, "coalesced": 0, "dropped_zone_states": 0,
+                "dropped_channels": 0, "lost_events": 0, "commands_dropped": 0},
+            "unknown_inputs": 5,
+        });
+        assert_eq!(
+            serde_json::to_string(&status).unwrap(),
+            serde_json::to_string(&old).unwrap()
+        );
+    }
+}
