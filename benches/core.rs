@@ -8,6 +8,7 @@ use std::sync::Arc;
 use criterion::{criterion_group, criterion_main, Criterion};
 use wallflux::acquire::line::{encode_frame, LineParser, Unit, Value, MAX_LINE_BYTES};
 use wallflux::config;
+use wallflux::monitor::output::{Output, ZoneState};
 use wallflux::monitor::Monitor;
 use wallflux::physics::thermocouple::{compensated_c, emf_mv, temperature_c, TcType};
 use wallflux::time::Timestamp;
@@ -94,10 +95,13 @@ fn zone_cycle(c: &mut Criterion) {
                 );
             }
             let mut n = 0;
-            while let Some(r) = m.poll_zone(now) {
+            m.handle_timeout(now);
+            while let Some(o) = m.poll_output() {
+                let Output::ZoneState(ZoneState { report: r, .. }) = o else {
+                    continue;
+                };
                 n += r.probes.len();
             }
-            while m.poll_event().is_some() {}
             n
         })
     });

@@ -133,10 +133,9 @@ impl Rig {
                     now,
                 );
             }
-            self.m.tick(now);
-            while self.m.poll_zone(now).is_some() {}
-            while self.m.poll_alarm().is_some() {}
-            while self.m.poll_event().is_some() {}
+            self.m.handle_timeout(now);
+            self.m.handle_timeout(now);
+            while self.m.poll_output().is_some() {}
         }
     }
 

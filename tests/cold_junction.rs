@@ -6,10 +6,12 @@
 
 use std::sync::Arc;
 
-use wallflux::acquire::line::{Frame, Unit, Value};
+use wallflux::acquire::line::{self, Frame, Unit, Value};
 use wallflux::config;
 use wallflux::monitor::channel::{ChannelReport, Health};
+use wallflux::monitor::output::Output;
 use wallflux::monitor::Monitor;
+use wallflux::protocol::scan::Scan;
 use wallflux::time::Timestamp;
 
 const CONFIG: &str = r#"
@@ -65,22 +67,31 @@ layers = [{ material = "m", thickness_mm = 200 }]
 probes = [{ channel = "tc", depth_mm = 20 }, { channel = "tc-deep", depth_mm = 120 }, { channel = "tc2", depth_mm = 200 }]
 "#;
 
-fn frame(values: &[(u8, Value)], cj: Option<f64>) -> Frame {
-    Frame {
+/// A line frame with `values` and `cj`, as the scan its decoder hands on.
+fn frame(values: &[(u8, Value)], cj: Option<f64>) -> Scan {
+    line::to_scan(&Frame {
         seq: 0,
         values: values.iter().copied().collect(),
         cj_c: cj,
         lost_before: 0,
         source_restarted: false,
-    }
+    })
 }
 
 /// Every channel state due at `at`, by name (a state is due once per
 /// period or at a change, so all are taken at once).
 fn reports(m: &mut Monitor, at: f64) -> Vec<ChannelReport> {
+    channel_states(m, Timestamp::from_epoch_s(at))
+}
+
+/// The channel states due at `now`.
+fn channel_states(m: &mut Monitor, now: Timestamp) -> Vec<ChannelReport> {
     let mut out = Vec::new();
-    while let Some(c) = m.poll_channel(Timestamp::from_epoch_s(at)) {
-        out.push(c);
+    m.handle_timeout(now);
+    while let Some(o) = m.poll_output() {
+        if let Output::ChannelState(c) = o {
+            out.push(c);
+        }
     }
     out
 }
@@ -115,7 +126,7 @@ fn cold_junction_sources_in_order() {
     };
 
     // The cold-junction channel in the same frame, no cj=.
-    m.handle_frame(
+    m.handle_scan(
         0,
         &frame(&[(1, mv), (2, terminals(25.0))], None),
         Timestamp::from_epoch_s(1.0),
@@ -129,7 +140,7 @@ fn cold_junction_sources_in_order() {
 
     // A frame's cj= wins over the channel.
     // (40 s later: a 24 °C change in a second would rightly be a spike.)
-    m.handle_frame(
+    m.handle_scan(
         0,
         &frame(&[(1, mv), (2, terminals(25.0))], Some(0.0)),
         Timestamp::from_epoch_s(40.0),
@@ -143,7 +154,7 @@ fn cold_junction_sources_in_order() {
     // Without either for longer than the silence limit: no compensation
     // is possible, and the channel says why (a fixed value no longer
     // stands in for a configured terminal sensor).
-    m.handle_frame(0, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(80.0));
+    m.handle_scan(0, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(80.0));
     let r = report(&mut m, 80.0, "tc");
     assert_eq!((r.status, r.celsius), (Health::Invalid, None));
     assert!(
@@ -154,7 +165,7 @@ fn cold_junction_sources_in_order() {
     );
 
     // A source with only a fixed cj_c uses it.
-    m.handle_frame(1, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(81.0));
+    m.handle_scan(1, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(81.0));
     let t = report(&mut m, 81.0, "tc2").celsius.unwrap();
     let want = wallflux::physics::thermocouple::compensated_c(
         wallflux::physics::thermocouple::TcType::K,
@@ -183,7 +194,7 @@ fn calibration_is_applied_and_its_expiry_reported() {
     let june_2026 = Timestamp::parse("2026-06-01T00:00:00Z").unwrap();
     for (now, overdue) in [(june_2025, false), (june_2026, true)] {
         let mut m = Monitor::new(s.clone(), now);
-        m.handle_frame(
+        m.handle_scan(
             0,
             &frame(
                 &[(
@@ -198,7 +209,7 @@ fn calibration_is_applied_and_its_expiry_reported() {
             now,
         );
         let mut seen = false;
-        while let Some(c) = m.poll_channel(now) {
+        for c in channel_states(&mut m, now) {
             if c.channel.as_str() == "tc" {
                 assert!((c.celsius.unwrap() - 502.0).abs() < 1e-9, "{:?}", c.celsius);
                 assert_eq!(c.calibration_overdue, overdue);
@@ -243,7 +254,7 @@ fn terminal_sensor_faults_invalidate_the_millivolt_channels() {
     let mut at = 0.0;
     let mut step = |m: &mut Monitor, terminal: Value| {
         at += 10.0;
-        m.handle_frame(
+        m.handle_scan(
             0,
             &frame(&[(1, MV), (2, terminal)], None),
             Timestamp::from_epoch_s(at),
@@ -285,7 +296,7 @@ fn terminal_sensor_faults_invalidate_the_millivolt_channels() {
     assert!(tc.reason.contains("spike"), "{}", tc.reason);
     // A frame's own cj= is the box's measurement: it still compensates.
     at += 10.0;
-    m.handle_frame(
+    m.handle_scan(
         0,
         &frame(&[(1, MV)], Some(0.0)),
         Timestamp::from_epoch_s(at),
@@ -318,11 +329,10 @@ fn a_failed_cold_junction_raises_the_thermocouple_fault_alarm() {
     let run = |m: &mut Monitor, from: u32, to: u32, terminal: Value| {
         for k in from..to {
             let now = Timestamp::from_epoch_s(f64::from(k));
-            m.handle_frame(0, &frame(&[(1, MV), (2, terminal), (3, deep)], None), now);
-            m.handle_frame(1, &frame(&[(1, MV)], None), now);
-            m.tick(now);
-            while m.poll_zone(now).is_some() {}
-            while m.poll_alarm().is_some() {}
+            m.handle_scan(0, &frame(&[(1, MV), (2, terminal), (3, deep)], None), now);
+            m.handle_scan(1, &frame(&[(1, MV)], None), now);
+            m.handle_timeout(now);
+            while m.poll_output().is_some() {}
         }
     };
     run(&mut m, 1, 60, terminal_c(24.0));
@@ -389,7 +399,7 @@ fn terminal_channels_in_the_configuration() {
     let old = CONFIG.replace("type = \"terminal\"", "type = \"K\"");
     let s = Arc::new(config::parse(&old, "t", None).unwrap());
     let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
-    m.handle_frame(
+    m.handle_scan(
         0,
         &frame(&[(1, MV), (2, terminal_c(120.0))], None),
         Timestamp::from_epoch_s(1.0),
@@ -399,4 +409,89 @@ fn terminal_channels_in_the_configuration() {
         (term.status, term.tc_type),
         (Health::OutOfRange, "terminal")
     );
+}
+
+/// Source health is the monitor's, whatever the input kind: scans and the
+/// losses their sequence shows, decode errors the edge reports, and
+/// silence, which only a reading ends (a decode error is no reading).
+#[test]
+fn source_health_is_counted_per_source() {
+    let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
+    let c = Value::Reading {
+        value: 25.0,
+        unit: Unit::Celsius,
+    };
+    let mut gap = frame(&[(2, c)], None);
+    gap.lost_before = 4;
+    m.handle_scan(0, &frame(&[(2, c)], None), Timestamp::from_epoch_s(1.0));
+    m.handle_scan(0, &gap, Timestamp::from_epoch_s(2.0));
+    m.handle_decode_error(0, Timestamp::from_epoch_s(3.0));
+    m.handle_decode_error(1, Timestamp::from_epoch_s(3.0));
+    m.handle_decode_error(1, Timestamp::from_epoch_s(4.0));
+    let (a, b) = (m.source_counters(0), m.source_counters(1));
+    assert_eq!((a.scans, a.lost_scans, a.decode_errors), (1 + 1, 4, 1));
+    assert_eq!((b.scans, b.lost_scans, b.decode_errors), (0, 0, 2));
+    // silence_s = 10 for "box": silent 10 s after its last reading at 2 s.
+    m.handle_timeout(Timestamp::from_epoch_s(11.5));
+    assert!(!m.source_silent(0));
+    m.handle_timeout(Timestamp::from_epoch_s(12.5));
+    assert!(m.source_silent(0));
+    m.handle_decode_error(0, Timestamp::from_epoch_s(13.0));
+    m.handle_timeout(Timestamp::from_epoch_s(13.0));
+    assert!(m.source_silent(0), "a rejected line does not end a silence");
+    m.handle_scan(0, &frame(&[(2, c)], None), Timestamp::from_epoch_s(14.0));
+    m.handle_timeout(Timestamp::from_epoch_s(14.0));
+    assert!(!m.source_silent(0));
+}
+
+/// The monitor says when it next needs the time: channel states at once
+/// after a change and every zone interval (10 s here), the zone's cycle, a
+/// source just after its silence limit (10 s after its last reading, the
+/// start for one that never spoke); and `handle_timeout` then does that
+/// work.
+#[test]
+fn poll_timeout_names_the_next_due_work() {
+    let t = Timestamp::from_epoch_s;
+    let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let mut m = Monitor::new(s, t(0.0));
+    assert_eq!(m.poll_timeout(), Some(t(0.0)), "first channel states");
+    assert_eq!(channel_states(&mut m, t(0.0)).len(), 4);
+    assert_eq!(m.poll_timeout(), Some(t(10.0)), "the zone and the channels");
+    let terminals = Value::Reading {
+        value: 25.0,
+        unit: Unit::Celsius,
+    };
+    m.handle_scan(0, &frame(&[(2, terminals)], None), t(5.0));
+    assert_eq!(m.poll_timeout(), Some(t(5.0)), "a health change");
+    let kinds = |m: &mut Monitor, now: f64| {
+        m.handle_timeout(t(now));
+        std::iter::from_fn(|| m.poll_output())
+            .map(|o| o.kind().name())
+            .collect::<Vec<_>>()
+    };
+    assert_eq!(kinds(&mut m, 5.0), ["channel_health", "channel_state"]);
+    assert_eq!(m.poll_timeout(), Some(t(10.0)));
+    let at_10 = kinds(&mut m, 10.0);
+    assert_eq!(at_10[..2], ["zone_state", "kiln_state"], "{at_10:?}");
+    // box2 never spoke: silent from 10 s after the start.
+    let next = m.poll_timeout().unwrap();
+    assert!(
+        (next.epoch_s() - 10.0).abs() < 0.01 && next > t(10.0),
+        "{next:?}"
+    );
+    assert!(!m.source_silent(1));
+    m.handle_timeout(next);
+    assert!(m.source_silent(1));
+    // box spoke at 5 s: silent from 15 s, unless an alarm delay comes first.
+    let next = m.poll_timeout().unwrap();
+    assert!(next > t(10.0) && next <= t(15.01), "{next:?}");
+    let box_silent = t(15.01);
+    while m.poll_timeout().is_some_and(|n| n <= box_silent) {
+        assert!(!m.source_silent(0));
+        let n = m.poll_timeout().unwrap();
+        m.handle_timeout(n);
+    }
+    assert!(m.source_silent(0));
+    assert_eq!(m.poll_timeout(), Some(t(20.0)), "the next cycle");
 }

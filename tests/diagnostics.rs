@@ -15,6 +15,7 @@ use std::sync::Arc;
 use wallflux::acquire::line::{Unit, Value};
 use wallflux::config;
 use wallflux::monitor::channel::Health;
+use wallflux::monitor::output::{Output, ZoneState};
 use wallflux::monitor::zone::{ZoneReport, ZoneStatus};
 use wallflux::monitor::Monitor;
 use wallflux::time::Timestamp;
@@ -45,7 +46,11 @@ fn run(
     let mut out = Vec::new();
     for s in from_s..from_s + secs {
         let now = Timestamp::from_epoch_s(f64::from(s));
-        while let Some(r) = m.poll_zone(now) {
+        m.handle_timeout(now);
+        while let Some(o) = m.poll_output() {
+            let Output::ZoneState(ZoneState { report: r, .. }) = o else {
+                continue;
+            };
             out.push(r);
         }
         for i in 0..DEPTHS_MM.len() {
@@ -84,13 +89,15 @@ fn assert_within_uncertainty(r: &ZoneReport) {
 }
 
 fn channel_health(m: &mut Monitor, at_s: f64, channel: &str) -> Health {
-    let mut found = None;
-    while let Some(c) = m.poll_channel(Timestamp::from_epoch_s(at_s)) {
-        if c.channel.as_str() == channel {
-            found = Some(c.status);
-        }
-    }
-    found.expect("channel published")
+    let ch = m
+        .settings()
+        .channels
+        .iter()
+        .position(|c| c.name.as_str() == channel)
+        .expect("a configured channel");
+    m.channel_state(ch, Timestamp::from_epoch_s(at_s))
+        .expect("a channel state")
+        .status
 }
 
 #[test]
@@ -228,7 +235,11 @@ fn open_and_stale_probes_degrade_then_insufficient() {
     // Silence: after three intervals every probe is stale.
     let mut out = Vec::new();
     for s in 120..200 {
-        while let Some(r) = m.poll_zone(Timestamp::from_epoch_s(f64::from(s))) {
+        m.handle_timeout(Timestamp::from_epoch_s(f64::from(s)));
+        while let Some(o) = m.poll_output() {
+            let Output::ZoneState(ZoneState { report: r, .. }) = o else {
+                continue;
+            };
             out.push(r);
         }
     }

@@ -113,8 +113,9 @@ fn run_engine(s: config::Settings) {
             };
             m.handle_value(i, Value::Reading { value: v, unit }, Some(25.0), now);
         }
-        while m.poll_zone(now).is_some() {}
-        m.tick(now);
+        m.handle_timeout(now);
+        while m.poll_output().is_some() {}
+        m.handle_timeout(now);
     }
 }
 

@@ -17,6 +17,7 @@ use std::sync::Arc;
 use wallflux::acquire::line::{Unit, Value};
 use wallflux::config::{self, Settings};
 use wallflux::monitor::channel;
+use wallflux::monitor::output::{Output, ZoneState};
 use wallflux::monitor::zone::ZoneReport;
 use wallflux::monitor::Monitor;
 use wallflux::physics::layered::{LayerSpec, LayeredWall};
@@ -140,7 +141,13 @@ fn zone_state(settings: &Arc<Settings>, readings: &[f64]) -> ZoneReport {
             now,
         );
     }
-    m.poll_zone(now).expect("a zone state")
+    m.handle_timeout(now);
+    std::iter::from_fn(|| m.poll_output())
+        .find_map(|o| match o {
+            Output::ZoneState(z) => Some(z.report),
+            _ => None,
+        })
+        .expect("a zone state")
 }
 
 /// (hot face, shell, q(0), q(L)) of one draw, or None if the fit failed.
@@ -389,7 +396,11 @@ fn transient_budget_on_a_steady_wall() {
                 now,
             );
         }
-        while let Some(r) = m.poll_zone(now) {
+        m.handle_timeout(now);
+        while let Some(o) = m.poll_output() {
+            let Output::ZoneState(ZoneState { report: r, .. }) = o else {
+                continue;
+            };
             last = Some(r);
         }
     }

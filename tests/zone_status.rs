@@ -15,6 +15,7 @@ use std::sync::Arc;
 
 use wallflux::acquire::line::{Unit, Value};
 use wallflux::config::{self, Settings};
+use wallflux::monitor::output::Output;
 use wallflux::monitor::zone::{ZoneReport, ZoneStatus};
 use wallflux::monitor::Monitor;
 use wallflux::sim::wall::{Layer, WallSim};
@@ -110,8 +111,11 @@ impl Rig {
             );
         }
         let mut out = Vec::new();
-        while let Some(r) = self.m.poll_zone(now) {
-            out.push(r);
+        self.m.handle_timeout(now);
+        while let Some(o) = self.m.poll_output() {
+            if let Output::ZoneState(z) = o {
+                out.push(z.report);
+            }
         }
         out
     }
@@ -408,7 +412,6 @@ fn a_withheld_number_neither_clears_nor_raises_an_alarm() {
     for _ in 0..20 {
         rig.minute(1000.0);
     }
-    while rig.m.poll_alarm().is_some() {}
     assert_eq!(
         rig.m.alarms().state(loss, now(&rig)),
         AlarmState::Unacknowledged
@@ -568,7 +571,10 @@ fn a_model_without_numbers_says_why_in_its_note() {
                 None,
                 now,
             );
-            while let Some(r) = m.poll_zone(now) {
+            m.handle_timeout(now);
+            while let Some(o) = m.poll_output() {
+                let Output::ZoneState(z) = o else { continue };
+                let r = z.report;
                 assert_eq!(r.status, ZoneStatus::InsufficientData, "{model}");
                 assert_eq!(r.hot_face_c, None, "{model}");
                 notes.push(r.model_note.expect("a note").to_string());
@@ -584,7 +590,13 @@ fn a_model_without_numbers_says_why_in_its_note() {
         Arc::new(config::parse(&config("transient", layers, &depths), "t", None).unwrap());
     let mut m = Monitor::new(settings, Timestamp::from_epoch_s(T0));
     let now = Timestamp::from_epoch_s(T0 + 120.0);
-    let r = m.poll_zone(now).expect("a zone state");
+    m.handle_timeout(now);
+    let r = std::iter::from_fn(|| m.poll_output())
+        .find_map(|o| match o {
+            Output::ZoneState(z) => Some(z.report),
+            _ => None,
+        })
+        .expect("a zone state");
     assert_eq!(r.status, ZoneStatus::InsufficientData);
     assert_eq!(
         r.model_note.as_deref(),

@@ -1,6 +1,8 @@
 //! The serial edge: open the port, read bytes, feed the line parser, hand
-//! frames to the engine. On any error or disappearance of the device it logs
-//! once, backs off (capped) and reopens; it never ends the daemon.
+//! each frame to the engine as a scan (and each rejected line as a decode
+//! error, which the monitor counts). On any error or disappearance of the
+//! device it logs once, backs off (capped) and reopens; it never ends the
+//! daemon. It keeps only the port's own facts (open, reopened).
 
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::Arc;
@@ -11,28 +13,37 @@ use tokio::sync::{mpsc, watch};
 use tokio_serial::SerialPortBuilderExt;
 use tracing::{info, warn};
 
-use super::line::{Frame, FrameError, LineCounters, LineParser};
+use super::line::{self, FrameError, LineCounters, LineParser};
 use crate::app::clock::Clock;
 use crate::config::Source;
+use crate::protocol::scan::Scan;
 use crate::time::Timestamp;
 
-/// A frame from source `source`, stamped when its line ended.
+/// What a line brought: a scan, or a line the decoder rejected. Moved by
+/// value through the bounded channel: boxing the scan would allocate per
+/// scan, which the acquisition path does not.
 #[derive(Debug, Clone)]
-pub struct SourceFrame {
-    pub source: usize,
-    pub time: Timestamp,
-    pub frame: Frame,
+#[allow(clippy::large_enum_variant)]
+pub enum Delivery {
+    Scan(Scan),
+    DecodeError,
 }
 
-/// Counters and state of one source, shared with the status report.
+/// A delivery from source `source`, stamped when its line ended.
+#[derive(Debug, Clone)]
+pub struct FromSource {
+    pub source: usize,
+    pub time: Timestamp,
+    pub delivery: Delivery,
+}
+
+/// The port's state, shared with the status report (the monitor keeps the
+/// source's scan counters).
 #[derive(Debug, Default)]
 pub struct SourceHealth {
     pub open: AtomicBool,
     pub opens: AtomicU64,
     pub open_failures: AtomicU64,
-    pub frames: AtomicU64,
-    pub frame_errors: AtomicU64,
-    pub lost_scans: AtomicU64,
 }
 
 const MIN_BACKOFF: Duration = Duration::from_millis(500);
@@ -47,7 +58,7 @@ const ERROR_SUMMARY_EVERY: Duration = Duration::from_secs(60);
 pub async fn run(
     index: usize,
     source: Source,
-    tx: mpsc::Sender<SourceFrame>,
+    tx: mpsc::Sender<FromSource>,
     health: Arc<SourceHealth>,
     clock: Clock,
     mut shutdown: watch::Receiver<bool>,
@@ -123,28 +134,21 @@ pub async fn run(
                         silent = false;
                     }
                     for &b in &buf[..n] {
-                        match parser.push(b) {
-                            None => {}
-                            Some(Ok(frame)) => {
-                                health.frames.fetch_add(1, Ordering::Relaxed);
-                                if frame.lost_before > 0 {
-                                    health
-                                        .lost_scans
-                                        .fetch_add(u64::from(frame.lost_before), Ordering::Relaxed);
-                                }
-                                let msg = SourceFrame {
-                                    source: index,
-                                    time: clock.now(),
-                                    frame,
-                                };
-                                if tx.send(msg).await.is_err() {
-                                    return; // the engine has stopped
-                                }
-                            }
+                        let delivery = match parser.push(b) {
+                            None => continue,
+                            Some(Ok(frame)) => Delivery::Scan(line::to_scan(&frame)),
                             Some(Err(e)) => {
-                                health.frame_errors.fetch_add(1, Ordering::Relaxed);
                                 errors.note(name, e, parser.counters());
+                                Delivery::DecodeError
                             }
+                        };
+                        let msg = FromSource {
+                            source: index,
+                            time: clock.now(),
+                            delivery,
+                        };
+                        if tx.send(msg).await.is_err() {
+                            return; // the engine has stopped
                         }
                     }
                 }

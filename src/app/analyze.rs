@@ -18,6 +18,7 @@ use anyhow::anyhow;
 use super::Failure;
 use crate::acquire::line::{Unit, Value};
 use crate::config::Signal;
+use crate::monitor::output::Output;
 use crate::monitor::Monitor;
 use crate::time::Timestamp;
 
@@ -138,11 +139,8 @@ pub fn replay(
         let mon = monitor.get_or_insert_with(|| Monitor::new(settings.clone(), time));
         // Everything due before this row's time is complete: emit it (a
         // cycle due at this very time waits for this row).
-        while let Some(r) = mon.poll_zone_before(time) {
-            serde_json::to_writer(&mut out, &r).map_err(|e| write_err(e.into()))?;
-            out.write_all(b"\n").map_err(write_err)?;
-            stats.states += 1;
-        }
+        mon.handle_timeout_before(time);
+        drain(mon, &mut out, &mut stats).map_err(write_err)?;
         last = Some(time);
         if let Some(&src) = cj_names.get(ch) {
             match v.parse::<f64>() {
@@ -192,12 +190,21 @@ pub fn replay(
     if let (Some(mon), Some(t)) = (monitor.as_mut(), last) {
         // The last partial interval too: its readings are published.
         mon.close_partial_intervals(t);
-        while let Some(r) = mon.poll_zone(t) {
-            serde_json::to_writer(&mut out, &r).map_err(|e| write_err(e.into()))?;
-            out.write_all(b"\n").map_err(write_err)?;
-            stats.states += 1;
-        }
+        mon.handle_timeout(t);
+        drain(mon, &mut out, &mut stats).map_err(write_err)?;
     }
     out.flush().map_err(write_err)?;
     Ok(stats)
+}
+
+/// Writes the monitor's pending outputs: each zone state as a JSON line.
+fn drain(mon: &mut Monitor, out: &mut impl Write, stats: &mut ReplayStats) -> std::io::Result<()> {
+    while let Some(o) = mon.poll_output() {
+        if let Output::ZoneState(z) = &o {
+            serde_json::to_writer(&mut *out, &z.report)?;
+            out.write_all(b"\n")?;
+            stats.states += 1;
+        }
+    }
+    Ok(())
 }

@@ -1,3 +1,7 @@
-//! Publishing: engine outputs to MQTT messages (and log lines).
+//! Publishing: the monitor's outputs to their sinks. `route` decides where
+//! each output goes on MQTT (one place); `queue` hands messages to the
+//! `mqtt` link without waiting on it; `log` writes the log lines.
+pub mod log;
 pub mod mqtt;
 pub mod queue;
+pub mod route;

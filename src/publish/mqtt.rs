@@ -11,7 +11,7 @@ use std::time::Duration;
 
 use rumqttc::{AsyncClient, Event, LastWill, MqttOptions, Outgoing, Packet, QoS};
 use serde::Serialize;
-use tokio::sync::{mpsc, watch};
+use tokio::sync::{mpsc, watch, Notify};
 use tracing::{info, warn};
 
 use super::queue::Queue;
@@ -39,6 +39,9 @@ pub struct LinkHealth {
     pub published: AtomicU64,
     /// Commands not handed to the engine (its queue full, or absurdly large).
     pub commands_dropped: AtomicU64,
+    /// Signalled on every connection: a new session may have lost the
+    /// retained alarm states.
+    pub reconnected: Notify,
 }
 
 #[derive(Serialize)]
@@ -135,6 +138,7 @@ pub async fn run(
                 Ok(Event::Incoming(Packet::ConnAck(ack))) => {
                     health.connected.store(true, Ordering::Relaxed);
                     health.connections.fetch_add(1, Ordering::Relaxed);
+                    health.reconnected.notify_one();
                     info!(broker = %target, session_present = ack.session_present,
                         after_failed_attempts = failures_since_up, "MQTT broker connected");
                     failures_since_up = 0;

@@ -7,8 +7,9 @@ use std::alloc::{GlobalAlloc, Layout, System};
 use std::sync::atomic::{AtomicUsize, Ordering};
 use std::sync::Arc;
 
-use wallflux::acquire::line::{encode_frame, LineParser, Unit, Value, MAX_LINE_BYTES};
+use wallflux::acquire::line::{encode_frame, to_scan, LineParser, Unit, Value, MAX_LINE_BYTES};
 use wallflux::config;
+use wallflux::monitor::output::{Output, ZoneState};
 use wallflux::monitor::Monitor;
 use wallflux::time::Timestamp;
 
@@ -83,10 +84,14 @@ pub fn steady_zone(config_text: &str, depths_mm: &[f64], warm_s: u32, counted_s:
         let mut probes = 0;
         for &b in line.as_bytes() {
             if let Some(Ok(frame)) = p.push(b) {
-                m.handle_frame(0, &frame, now);
+                m.handle_scan(0, &to_scan(&frame), now);
             }
         }
-        while let Some(r) = m.poll_zone(now) {
+        m.handle_timeout(now);
+        while let Some(o) = m.poll_output() {
+            let Output::ZoneState(ZoneState { report: r, .. }) = o else {
+                continue;
+            };
             probes += r.probes.len();
             if s >= warm_s {
                 assert!(
@@ -97,7 +102,6 @@ pub fn steady_zone(config_text: &str, depths_mm: &[f64], warm_s: u32, counted_s:
                 );
             }
         }
-        while m.poll_event().is_some() {}
         probes
     };
     for s in 0..warm_s {

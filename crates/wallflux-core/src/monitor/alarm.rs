@@ -377,6 +377,25 @@ impl Alarm {
         &self.flags
     }
 
+    /// The next time [`Self::tick`] has work: a shelve running out or a
+    /// delay completing (`None` when neither is pending).
+    pub fn next_deadline(&self) -> Option<Timestamp> {
+        let shelve = self.flags.shelved_until.map(Timestamp::from_epoch_s);
+        let on = self
+            .on_since
+            .filter(|_| !self.flags.active)
+            .map(|t0| t0.plus_s(self.spec.on_delay_s.max(0.0)));
+        let off = self
+            .off_since
+            .filter(|_| self.flags.active)
+            .map(|t0| t0.plus_s(self.spec.off_delay_s.max(0.0)));
+        [shelve, on, off]
+            .into_iter()
+            .flatten()
+            .filter(|t| t.epoch_s().is_finite())
+            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
+    }
+
     /// Is the alarm shelved at `now`? A shelve ends at `shelved_until` itself.
     pub fn shelved(&self, now: Timestamp) -> bool {
         self.flags
@@ -1085,6 +1104,24 @@ mod tests {
             off_delay_s,
             ..spec(AlarmKind::High, 100.0, 2.0)
         })
+    }
+
+    #[test]
+    fn the_next_deadline_is_the_delay_or_the_shelve_end() {
+        let mut a = delayed(30.0, 20.0);
+        assert_eq!(a.next_deadline(), None);
+        a.evaluate(Some(150.0), at(100.0));
+        assert_eq!(a.next_deadline(), Some(at(130.0)), "the on-delay ends");
+        assert!(a.tick(at(130.0)).is_some(), "and completes there");
+        assert_eq!(a.next_deadline(), None);
+        a.evaluate(Some(50.0), at(140.0));
+        assert_eq!(a.next_deadline(), Some(at(160.0)), "the off-delay ends");
+        a.shelve("op", 5.0, at(150.0)).unwrap();
+        assert_eq!(a.next_deadline(), Some(at(160.0)), "the earlier of the two");
+        a.tick(at(160.0));
+        assert_eq!(a.next_deadline(), Some(at(450.0)), "the shelve's end");
+        a.tick(at(450.0));
+        assert_eq!(a.next_deadline(), None);
     }
 
     #[test]

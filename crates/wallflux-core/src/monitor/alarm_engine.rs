@@ -327,6 +327,15 @@ impl AlarmEngine {
         }
     }
 
+    /// The next time [`Self::tick`] has work (a shelve running out, a delay
+    /// completing), if any.
+    pub fn next_deadline(&self) -> Option<Timestamp> {
+        self.slots
+            .iter()
+            .filter_map(|s| s.alarm.next_deadline())
+            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
+    }
+
     /// Timers: shelves running out, delays completing.
     pub fn tick(&mut self, now: Timestamp) {
         for i in 0..self.slots.len() {
@@ -390,12 +399,7 @@ impl AlarmEngine {
     }
 
     /// The `{root}/alarm/{name}` payload of alarm `i`.
-    pub fn report<'a>(
-        &'a self,
-        settings: &'a Settings,
-        i: usize,
-        now: Timestamp,
-    ) -> AlarmReport<'a> {
+    pub fn report(&self, settings: &Settings, i: usize, now: Timestamp) -> AlarmReport {
         let c = &self.configs[i];
         let s = &self.slots[i];
         let f = s.alarm.flags();
@@ -403,10 +407,10 @@ impl AlarmEngine {
         AlarmReport {
             schema: "wallflux.alarm/1",
             time: now,
-            name: &c.name,
-            zone,
-            channel,
-            source,
+            name: c.name.clone(),
+            zone: zone.map(str::to_owned),
+            channel: channel.map(str::to_owned),
+            source: source.map(str::to_owned),
             quantity,
             kind: c.spec.kind,
             value: s.value,
@@ -430,11 +434,11 @@ impl AlarmEngine {
             last_transition: f.last_transition.map(Timestamp::from_epoch_s),
             seq: f.seq,
             event_id: event_id(&c.name, f.seq),
-            last_user: f.last_user.as_deref(),
+            last_user: f.last_user.clone(),
             builtin: c.builtin,
-            message: &c.message,
-            consequence: &c.consequence,
-            action: &c.action,
+            message: c.message.clone(),
+            consequence: c.consequence.clone(),
+            action: c.action.clone(),
         }
     }
 }
@@ -471,17 +475,19 @@ pub fn target_names(
     }
 }
 
-#[derive(Debug, Serialize)]
-pub struct AlarmReport<'a> {
+/// The `{root}/alarm/{name}` payload (owned: it leaves the monitor as an
+/// output).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct AlarmReport {
     pub schema: &'static str,
     pub time: Timestamp,
-    pub name: &'a str,
+    pub name: String,
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub zone: Option<&'a str>,
+    pub zone: Option<String>,
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub channel: Option<&'a str>,
+    pub channel: Option<String>,
     #[serde(skip_serializing_if = "Option::is_none")]
-    pub source: Option<&'a str>,
+    pub source: Option<String>,
     pub quantity: &'static str,
     pub kind: AlarmKind,
     pub value: Option<f64>,
@@ -503,11 +509,11 @@ pub struct AlarmReport<'a> {
     pub last_transition: Option<Timestamp>,
     pub seq: u64,
     pub event_id: String,
-    pub last_user: Option<&'a str>,
+    pub last_user: Option<String>,
     pub builtin: bool,
-    pub message: &'a str,
-    pub consequence: &'a str,
-    pub action: &'a str,
+    pub message: String,
+    pub consequence: String,
+    pub action: String,
 }
 
 fn fault_value(h: Health) -> f64 {

@@ -6,7 +6,7 @@ use serde::Serialize;
 use crate::config::{Channel, ChannelKind, Name, Signal};
 use crate::physics::thermocouple::{self, TcError};
 use crate::physics::tolerance;
-use crate::protocol::line::{Unit, Value};
+use crate::protocol::scan::{self, Unit};
 use crate::time::Timestamp;
 
 crate::word_enum! {
@@ -180,15 +180,17 @@ impl ChannelState {
 /// else the source's fixed one.
 pub fn convert(
     channel: &Channel,
-    value: Value,
+    value: scan::Reading,
     cj_c: Option<f64>,
 ) -> Result<f64, (Health, &'static str)> {
     if channel.kind == ChannelKind::Terminal {
         return convert_terminal(value);
     }
     let (v, unit) = match value {
-        Value::Open => return Err((Health::Open, "the source reports an open thermocouple")),
-        Value::Reading { value, unit } => (value, unit),
+        scan::Reading::Open => {
+            return Err((Health::Open, "the source reports an open thermocouple"))
+        }
+        scan::Reading::Measured { value, unit } => (value, unit),
     };
     match (channel.signal, unit) {
         (Signal::Celsius, Unit::Celsius) => {
@@ -233,20 +235,20 @@ pub fn convert(
 
 /// A terminal sensor's value: °C within the plausible terminal range
 /// ([`TERMINAL_MIN_C`] to [`TERMINAL_MAX_C`]).
-fn convert_terminal(value: Value) -> Result<f64, (Health, &'static str)> {
+fn convert_terminal(value: scan::Reading) -> Result<f64, (Health, &'static str)> {
     match value {
-        Value::Open => Err((Health::Open, "the source reports the terminal sensor open")),
-        Value::Reading {
+        scan::Reading::Open => Err((Health::Open, "the source reports the terminal sensor open")),
+        scan::Reading::Measured {
             unit: Unit::Millivolts,
             ..
         } => Err((
             Health::Invalid,
             "millivolts received from a terminal sensor (it is read in °C)",
         )),
-        Value::Reading { value, .. } if (TERMINAL_MIN_C..=TERMINAL_MAX_C).contains(&value) => {
+        scan::Reading::Measured { value, .. } if (TERMINAL_MIN_C..=TERMINAL_MAX_C).contains(&value) => {
             Ok(value)
         }
-        Value::Reading { .. } => Err((
+        scan::Reading::Measured { .. } => Err((
             Health::OutOfRange,
             "terminal temperature outside the plausible -40 to 85 °C of a field box (sensor or wiring fault)",
         )),
@@ -277,7 +279,7 @@ pub fn sigma_c(channel: &Channel, t_c: f64) -> f64 {
 }
 
 /// A channel's state as published on `{root}/channel/{channel}`.
-#[derive(Debug, Clone, Serialize)]
+#[derive(Debug, Clone, PartialEq, Serialize)]
 pub struct ChannelReport {
     pub schema: &'static str,
     pub channel: Name,

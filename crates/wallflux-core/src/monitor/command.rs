@@ -304,8 +304,10 @@ pub fn command_id(payload: &[u8]) -> Option<String> {
     text(raw.id, "id").ok()
 }
 
+/// The reply payload: `{"id":…,"ok":true}` or
+/// `{"id":…,"ok":false,"error":"…","code":"…"}`; `id` None is `null`.
 #[derive(Serialize)]
-struct Reply<'a> {
+pub struct Reply<'a> {
     id: Option<&'a str>,
     ok: bool,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -314,26 +316,23 @@ struct Reply<'a> {
     code: Option<&'static str>,
 }
 
-/// The reply payload: `{"id":…,"ok":true}` or
-/// `{"id":…,"ok":false,"error":"…","code":"…"}`; `id` None is `null`.
-pub fn reply_json(id: Option<&str>, result: Result<(), &CommandError>) -> Vec<u8> {
-    let reply = match result {
-        Ok(()) => Reply {
-            id,
-            ok: true,
-            error: None,
-            code: None,
-        },
-        Err(e) => Reply {
-            id,
-            ok: false,
-            error: Some(e.to_string()),
-            code: Some(e.code()),
-        },
-    };
-    // Serialising strings and booleans cannot fail; the fallback is only
-    // there so that no path can panic.
-    serde_json::to_vec(&reply).unwrap_or_else(|_| br#"{"id":null,"ok":false}"#.to_vec())
+impl<'a> Reply<'a> {
+    pub fn new(id: Option<&'a str>, result: Result<(), &CommandError>) -> Self {
+        match result {
+            Ok(()) => Reply {
+                id,
+                ok: true,
+                error: None,
+                code: None,
+            },
+            Err(e) => Reply {
+                id,
+                ok: false,
+                error: Some(e.to_string()),
+                code: Some(e.code()),
+            },
+        }
+    }
 }
 
 #[cfg(test)]
@@ -572,6 +571,10 @@ mod tests {
         assert_eq!(command_id(b"not json"), None);
         assert_eq!(command_id(br#"{"id":"bad\u0007"}"#), None);
         assert_eq!(command_id(br#"{"id":17}"#), None);
+    }
+
+    fn reply_json(id: Option<&str>, result: Result<(), &CommandError>) -> Vec<u8> {
+        serde_json::to_vec(&Reply::new(id, result)).unwrap()
     }
 
     #[test]

@@ -14,6 +14,8 @@
 //! zone has fallen back below it. `"continuous"` (a tunnel or roller kiln,
 //! always hot): no firings; the kiln reports per UTC day and a rolling 24 h.
 
+use std::sync::Arc;
+
 use serde::{Deserialize, Serialize};
 
 use crate::config::Operation;
@@ -313,8 +315,8 @@ impl EnergyMeter {
 
 /// The `{root}/kiln/state` payload. Firing fields are absent for a
 /// continuous kiln.
-#[derive(Debug, Clone, Serialize)]
-pub struct KilnReport<'a> {
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct KilnReport {
     pub schema: &'static str,
     pub time: Timestamp,
     /// Σ of the zones' heat losses that are losses (≥ 0), W.
@@ -334,8 +336,8 @@ pub struct KilnReport<'a> {
     pub last_firing_kwh: Option<Option<f64>>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub last_firing_hours: Option<Option<f64>>,
-    #[serde(skip_serializing_if = "Option::is_none")]
-    pub currency: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none", serialize_with = "as_str")]
+    pub currency: Option<Arc<str>>,
     #[serde(skip_serializing_if = "Option::is_none")]
     pub cost_today: Option<f64>,
     #[serde(skip_serializing_if = "Option::is_none")]
@@ -357,8 +359,18 @@ pub struct KilnReport<'a> {
     pub cost_24h: Option<f64>,
 }
 
+/// A shared currency name, written as the text it is.
+fn as_str<S: serde::Serializer>(c: &Option<Arc<str>>, s: S) -> Result<S::Ok, S::Error> {
+    match c {
+        Some(c) => s.serialize_str(c),
+        None => s.serialize_none(),
+    }
+}
+
 impl EnergyMeter {
-    pub fn report<'a>(&self, now: Timestamp, price: Option<(f64, &'a str)>) -> KilnReport<'a> {
+    /// The kiln state at `now`; `price` is the energy price per kWh and its
+    /// currency (shared, so that a report does not allocate).
+    pub fn report(&self, now: Timestamp, price: Option<(f64, &Arc<str>)>) -> KilnReport {
         let (heat_loss_w, heat_gain_w, zones_reporting) = self.kiln_heat_w();
         let (loss_24h, gain_24h) = self.rolling_24h_kwh(now);
         let t = &self.totals;
@@ -379,7 +391,7 @@ impl EnergyMeter {
             energy_firing_kwh: some(firing),
             last_firing_kwh: some(t.last_firing_kwh),
             last_firing_hours: some(t.last_firing_hours),
-            currency: price.map(|(_, c)| c),
+            currency: price.map(|(_, c)| c.clone()),
             cost_today: price.map(|(p, _)| p * t.today_kwh),
             cost_firing: price
                 .and_then(|(p, _)| firing.map(|f| p * f))
@@ -439,7 +451,7 @@ mod tests {
         assert!(m.totals.firing_started.is_some());
         let r = m.report(
             Timestamp::from_epoch_s(day0 + 86_400.0 + 30.0),
-            Some((0.12, "EUR")),
+            Some((0.12, &Arc::from("EUR"))),
         );
         assert!((r.cost_today.unwrap() - 0.12 * r.energy_today_kwh).abs() < 1e-12);
     }
@@ -527,7 +539,7 @@ mod tests {
         assert!((l24 - (143.0 * 0.5 + 0.05)).abs() < 1e-9, "{l24}");
         // A day later with nothing recorded the window is empty.
         assert_eq!(m.rolling_24h_kwh(now.plus_s(86_400.0)), (0.0, 0.0));
-        let r = serde_json::to_value(m.report(now, Some((0.1, "EUR")))).unwrap();
+        let r = serde_json::to_value(m.report(now, Some((0.1, &Arc::from("EUR"))))).unwrap();
         assert_eq!(r["operation"], "continuous");
         assert!(r.get("firing_active").is_none() && r.get("energy_firing_kwh").is_none());
         assert!((r["cost_24h"].as_f64().unwrap() - 0.1 * l24).abs() < 1e-9);

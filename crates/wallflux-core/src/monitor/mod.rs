@@ -1,53 +1,67 @@
 //! The monitor: per-channel and per-zone state, driven by readings and time.
 //!
-//! Sans-IO like the physics: readings go in through `handle_*`, results
-//! come out of `poll_*`, and every call takes `now`. The live daemon and
-//! `analyze` drive the same engine, so a replay reproduces the live numbers.
+//! Sans-IO like the physics: inputs go in through `handle_*`, results come
+//! out of `poll_*`, and every call takes `now`. The live daemon and
+//! `analyze` drive the same monitor, so a replay reproduces the live
+//! outputs.
+//!
+//! # Driving it
+//!
+//! 1. Feed what arrives, in time order: [`Monitor::handle_scan`] (a
+//!    decoder's scan), [`Monitor::handle_decode_error`] (a frame the
+//!    decoder rejected), [`Monitor::handle_value`] (one reading, from a
+//!    samples file), [`Monitor::handle_command`] (an operator command),
+//!    and the requests of the sinks ([`Monitor::handle_status_request`],
+//!    [`Monitor::handle_alarm_states_request`]).
+//! 2. Ask [`Monitor::poll_timeout`] when the monitor next needs the time
+//!    (a zone's interval, a channel's period, an alarm's delay or shelve,
+//!    a source falling silent, the next flood summary) and call
+//!    [`Monitor::handle_timeout`] with the time then (or later). A replay
+//!    calls [`Monitor::handle_timeout_before`] with each row's time.
+//! 3. After every `handle_*` call, drain [`Monitor::poll_output`] until it
+//!    returns `None`, and route each [`output::Output`] to its sinks. Every
+//!    output is queued in the order it happened; none is built by the
+//!    driver.
 
 pub mod alarm;
 pub mod alarm_engine;
 pub mod channel;
 pub mod command;
+mod emit;
 pub mod energy;
 pub mod lining;
 pub mod model;
+pub mod output;
+pub mod source;
 pub mod trend;
 pub mod wall;
 pub mod zone;
 
+use std::collections::VecDeque;
 use std::sync::Arc;
 
-use heapless::Deque;
-
-use crate::bounded::PushWithin;
-
 use crate::config::{BaselineStart, Model, Settings, Zone};
-use crate::protocol::line::{Frame, Value};
+use crate::protocol::scan::{self, Scan};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
-use alarm_engine::{AlarmEngine, AlarmOutput, AlarmReport};
+use alarm_engine::{AlarmEngine, AlarmReport};
 use channel::{ChannelReport, ChannelState, Health};
 use command::{Command, CommandError};
-use zone::{ZoneEngine, ZoneReport, STALE_INTERVALS};
+use energy::{EnergyMeter, EnergyTotals};
+use output::{ChannelHealthChange, Output, UnknownInput, ZoneState};
+use source::{SourceCounters, SourceState};
+use zone::{ZoneEngine, STALE_INTERVALS};
 
-/// Something notable that the edges log and publish.
-#[derive(Debug, Clone, PartialEq)]
-pub enum Event {
-    /// A channel's health changed (logged once per change).
-    ChannelHealth {
-        channel: usize,
-        time: Timestamp,
-        from: Health,
-        to: Health,
-        reason: &'static str,
-    },
-    /// A frame's input has no configured channel (counted; logged once).
-    UnknownInput { source: usize, input: u8 },
-}
+/// Outputs the queue holds without growing (it keeps its capacity; a
+/// driver drains it after every call).
+const OUTPUT_QUEUE: usize = 64;
 
-/// Most events queued between two polls; beyond it the oldest are dropped
-/// and counted (they are log lines; channel state is still published).
-const EVENT_QUEUE: usize = 64;
+/// While an alarm flood lasts, one grouped summary at most this often, s.
+pub const FLOOD_SUMMARY_EVERY_S: f64 = 60.0;
+
+/// How long after its silence limit a source is looked at again: silence is
+/// "longer than the limit", so the check comes just after it.
+const SILENCE_SLACK_S: f64 = 1e-3;
 
 pub struct Monitor {
     settings: Arc<Settings>,
@@ -59,14 +73,18 @@ pub struct Monitor {
     channel_due: Vec<Timestamp>,
     channel_period_s: f64,
     zones: Vec<ZoneEngine>,
-    events: Deque<Event, EVENT_QUEUE>,
+    outputs: VecDeque<Output>,
     unknown_inputs_seen: Vec<[bool; 65]>,
-    /// Latest value of any kind from each source, and whether it is silent.
-    source_seen: Vec<Option<Timestamp>>,
-    source_silent: Vec<bool>,
+    /// Each source's health: last reading, silence, counters.
+    sources: Vec<SourceState>,
     start: Timestamp,
     alarms: AlarmEngine,
-    pub events_dropped: u64,
+    meter: EnergyMeter,
+    /// The energy price per kWh and its currency, if configured.
+    price: Option<(f64, Arc<str>)>,
+    /// Alarm lines grouped into the flood summary since the flood began.
+    flood_grouped: u64,
+    last_flood_summary: Option<Timestamp>,
     pub unknown_inputs: u64,
 }
 
@@ -119,54 +137,73 @@ impl Monitor {
             channel_due: vec![start; n],
             channel_period_s,
             zones,
-            events: Deque::new(),
+            outputs: VecDeque::with_capacity(OUTPUT_QUEUE),
             unknown_inputs_seen: vec![[false; 65]; settings.sources.len()],
-            source_seen: vec![None; settings.sources.len()],
-            source_silent: vec![false; settings.sources.len()],
+            sources: vec![SourceState::default(); settings.sources.len()],
             start,
             alarms: AlarmEngine::new(&settings, saved, start),
-            events_dropped: 0,
+            meter: new_meter(&settings, EnergyTotals::default()),
+            price: settings
+                .site
+                .energy_price
+                .as_ref()
+                .map(|(p, c)| (*p, Arc::from(c.as_str()))),
+            flood_grouped: 0,
+            last_flood_summary: None,
             unknown_inputs: 0,
             settings,
         }
+    }
+
+    /// Resumes the energy accounting from saved totals.
+    pub fn restore_energy(&mut self, totals: EnergyTotals) {
+        self.meter = new_meter(&self.settings, totals);
+    }
+
+    /// The energy totals (to persist).
+    pub fn energy_totals(&self) -> &EnergyTotals {
+        &self.meter.totals
     }
 
     pub fn settings(&self) -> &Settings {
         &self.settings
     }
 
-    fn push_event(&mut self, e: Event) {
-        // Full: the oldest makes room, and is counted.
-        if self.events.is_full() {
-            self.events.pop_front();
-            self.events_dropped += 1;
-        }
-        if self.events.push_within(e, "queued events").is_err() {
-            self.events_dropped += 1;
-        }
+    fn push(&mut self, o: Output) {
+        self.outputs.push_back(o);
     }
 
-    /// A line-protocol frame from source `source`, received at `now`.
-    /// The cold junction: the frame's `cj=`, else the source's
-    /// cold-junction (terminal) sensor (its value in this frame, or its
-    /// latest reading while it is `ok`), else the source's fixed `cj_c`. A
-    /// terminal sensor that is not `ok` makes the frame's millivolt values
-    /// invalid, with the sensor's fault as their reason.
-    pub fn handle_frame(&mut self, source: usize, frame: &Frame, now: Timestamp) {
-        let src = &self.settings.sources[source];
-        let cj_channel = src.cj_channel;
-        let cj = match (frame.cj_c, cj_channel) {
+    /// The next output, oldest first (drain until `None` after every
+    /// `handle_*` call).
+    #[must_use]
+    pub fn poll_output(&mut self) -> Option<Output> {
+        self.outputs.pop_front()
+    }
+
+    /// A scan from source `source`, received at `now` (a source index the
+    /// configuration does not have is ignored). The cold junction: the
+    /// scan's own, else the source's cold-junction (terminal) sensor (its
+    /// reading in this scan, or its latest reading while it is `ok`), else
+    /// the source's fixed `cj_c`. A terminal sensor that is not `ok` makes
+    /// the scan's millivolt readings invalid, with the sensor's fault as
+    /// their reason.
+    pub fn handle_scan(&mut self, source: usize, scan: &Scan, now: Timestamp) {
+        let Some(state) = self.sources.get_mut(source) else {
+            return;
+        };
+        state.note_scan(scan.lost_before, scan.source_restarted);
+        let cj_channel = self.settings.sources[source].cj_channel;
+        let cj = match (scan.cj_c, cj_channel) {
             (Some(c), _) => Ok(Some(c)),
             (None, Some(cc)) => {
-                let input = self.settings.channels[cc].input;
-                if let Some(&(_, v)) = frame.values.iter().find(|(i, _)| *i == input) {
-                    self.apply_value(cc, v, Ok(None), now);
+                if let Some(r) = scan.reading(self.settings.channels[cc].input) {
+                    self.apply_value(cc, r, Ok(None), now);
                 }
                 self.cold_junction_c(cc, now).map(Some)
             }
             (None, None) => Ok(self.settings.sources[source].cj_c),
         };
-        for &(input, value) in &frame.values {
+        for &(input, value) in &scan.readings {
             let channel = self.settings.channel_for(source, input);
             if channel.is_some() && channel == cj_channel {
                 continue; // handled first, above
@@ -178,11 +215,28 @@ impl Monitor {
                     let seen = &mut self.unknown_inputs_seen[source][usize::from(input.min(64))];
                     if !*seen {
                         *seen = true;
-                        self.push_event(Event::UnknownInput { source, input });
+                        let source = self.settings.sources[source].name.clone();
+                        self.push(Output::UnknownInput(UnknownInput { source, input }));
                     }
                 }
             }
         }
+    }
+
+    /// A frame from source `source` that its decoder rejected, at `now`
+    /// (counted in the source's health; it is no reading, so it does not
+    /// end a silence).
+    pub fn handle_decode_error(&mut self, source: usize, _now: Timestamp) {
+        if let Some(s) = self.sources.get_mut(source) {
+            s.counters.decode_errors += 1;
+        }
+    }
+
+    /// Source `s`'s counters (zero for an unknown index).
+    pub fn source_counters(&self, s: usize) -> SourceCounters {
+        self.sources
+            .get(s)
+            .map_or_else(SourceCounters::default, |s| s.counters)
     }
 
     /// The temperature of cold-junction (terminal) sensor `cc` at `now`,
@@ -196,11 +250,18 @@ impl Monitor {
         }
     }
 
-    /// One value for channel `ch` (from a frame, or a samples file), with
-    /// the cold-junction temperature that applies to it. A millivolt
-    /// channel whose source has a cold-junction sensor that is not `ok` is
-    /// invalid whatever `cj_c` says.
-    pub fn handle_value(&mut self, ch: usize, value: Value, cj_c: Option<f64>, now: Timestamp) {
+    /// One reading for channel `ch` (from a samples file), with the
+    /// cold-junction temperature that applies to it. A millivolt channel
+    /// whose source has a cold-junction sensor that is not `ok` is invalid
+    /// whatever `cj_c` says.
+    pub fn handle_value(
+        &mut self,
+        ch: usize,
+        value: impl Into<scan::Reading>,
+        cj_c: Option<f64>,
+        now: Timestamp,
+    ) {
+        let value = value.into();
         let Some(cfg) = self.settings.channels.get(ch) else {
             return;
         };
@@ -223,7 +284,7 @@ impl Monitor {
     fn apply_value(
         &mut self,
         ch: usize,
-        value: Value,
+        value: scan::Reading,
         cj: Result<Option<f64>, &'static str>,
         now: Timestamp,
     ) {
@@ -232,16 +293,16 @@ impl Monitor {
         };
         let result = match (value, cj) {
             (
-                Value::Reading {
-                    unit: crate::protocol::line::Unit::Millivolts,
+                scan::Reading::Measured {
+                    unit: scan::Unit::Millivolts,
                     ..
                 },
                 Err(reason),
             ) if cfg.signal == crate::config::Signal::Millivolts => Err((Health::Invalid, reason)),
             (_, cj) => channel::convert(cfg, value, cj.ok().flatten()),
         };
-        if let Some(seen) = self.source_seen.get_mut(cfg.source) {
-            *seen = Some(now);
+        if let Some(s) = self.sources.get_mut(cfg.source) {
+            s.seen = Some(now);
         }
         let state = &mut self.channels[ch];
         state.last_seen = Some(now);
@@ -265,35 +326,92 @@ impl Monitor {
             self.channels[ch].announced = health;
             // A change is published at once, not at the next period.
             self.channel_due[ch] = now;
-            self.push_event(Event::ChannelHealth {
-                channel: ch,
+            self.push(Output::ChannelHealth(ChannelHealthChange {
+                channel: self.settings.channels[ch].name.clone(),
                 time: now,
                 from,
                 to: health,
                 reason,
-            });
+            }));
         }
     }
 
-    /// The next due zone cycle at `now`, if any (call until `None`). The
-    /// report is stamped with its due time, so a replay and the live run
-    /// give the same times.
-    pub fn poll_zone(&mut self, now: Timestamp) -> Option<ZoneReport> {
-        self.poll_due(now, false)
+    /// Everything due at or before `now`: sources falling silent, alarm
+    /// timers, zone cycles (each state stamped with its due time, so that a
+    /// replay and the live run give the same times, and after the cycles of
+    /// one instant the kiln state), channel states, alarm outputs.
+    pub fn handle_timeout(&mut self, now: Timestamp) {
+        self.run_due(now, false);
     }
 
-    /// As [`Self::poll_zone`], but only cycles due strictly before `now`: a
-    /// replay calls it before handling a row stamped `now`, so that a cycle
-    /// due at `now` still sees that row's readings (its estimate holds for
-    /// the time it is stamped with).
-    pub fn poll_zone_before(&mut self, now: Timestamp) -> Option<ZoneReport> {
-        self.poll_due(now, true)
+    /// As [`Self::handle_timeout`], but zone cycles only when due strictly
+    /// before `now`: a replay calls it before handling a row stamped `now`,
+    /// so that a cycle due at `now` still sees that row's readings (its
+    /// estimate holds for the time it is stamped with).
+    pub fn handle_timeout_before(&mut self, now: Timestamp) {
+        self.run_due(now, true);
+    }
+
+    /// When the monitor next needs [`Self::handle_timeout`]: the earliest of
+    /// the zones' next cycles, the channels' next states, a source falling
+    /// silent, an alarm's delay or shelve ending, the next flood summary.
+    pub fn poll_timeout(&self) -> Option<Timestamp> {
+        let zones = self.zones.iter().map(|z| z.next_due);
+        let channels = self.channel_due.iter().copied();
+        let silence = self
+            .sources
+            .iter()
+            .zip(&self.settings.sources)
+            .filter(|(s, _)| !s.silent)
+            .map(|(s, c)| {
+                s.silent_from(self.start, c.silence_s)
+                    .plus_s(SILENCE_SLACK_S)
+            });
+        let flood = self
+            .last_flood_summary
+            .map(|t| t.plus_s(FLOOD_SUMMARY_EVERY_S));
+        zones
+            .chain(channels)
+            .chain(silence)
+            .chain(self.alarms.next_deadline())
+            .chain(flood)
+            .filter(|t| t.epoch_s().is_finite())
+            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
+    }
+
+    fn run_due(&mut self, now: Timestamp, strict: bool) {
+        self.tick(now);
+        while let Some(due) = self.next_cycle(now, strict) {
+            for i in 0..self.zones.len() {
+                if self.zones[i].next_due == due {
+                    self.cycle_zone(i, due, now);
+                }
+            }
+            let kiln = self
+                .meter
+                .report(due, self.price.as_ref().map(|(p, c)| (*p, c)));
+            self.push(Output::KilnState(kiln));
+        }
+        while let Some(ch) = self.poll_channel(now) {
+            self.push(Output::ChannelState(ch));
+        }
+        self.collect_alarms(now);
+    }
+
+    /// The earliest zone cycle due at `now` (strictly before it if
+    /// `strict`).
+    fn next_cycle(&self, now: Timestamp, strict: bool) -> Option<Timestamp> {
+        self.zones
+            .iter()
+            .map(|z| z.next_due)
+            .filter(|&d| d < now || (!strict && d == now))
+            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
     }
 
     /// At the end of a replay: every zone that has had readings since its
     /// last cycle gets a last cycle at `now` (a partial interval), so the
     /// readings after the last interval boundary are published too. Then
-    /// call [`Self::poll_zone`] until `None`.
+    /// call [`Self::handle_timeout`] with `now`.
     pub fn close_partial_intervals(&mut self, now: Timestamp) {
         for (i, z) in self.zones.iter_mut().enumerate() {
             let interval = self.settings.zones[i].interval_s;
@@ -304,14 +422,9 @@ impl Monitor {
         }
     }
 
-    fn poll_due(&mut self, now: Timestamp, strict: bool) -> Option<ZoneReport> {
-        let (i, due) = self
-            .zones
-            .iter()
-            .enumerate()
-            .filter(|(_, z)| z.next_due < now || (!strict && z.next_due == now))
-            .map(|(i, z)| (i, z.next_due))
-            .min_by(|a, b| a.1.epoch_s().total_cmp(&b.1.epoch_s()))?;
+    /// Zone `i`'s cycle due at `due` (handled at `now`): its state, its
+    /// energy, its channels' zone faults, its alarms.
+    fn cycle_zone(&mut self, i: usize, due: Timestamp, now: Timestamp) {
         for ch in 0..self.channels.len() {
             self.check_health(ch, due);
         }
@@ -350,7 +463,10 @@ impl Monitor {
             let c = self.channels[p.channel].latest.map(|r| r.celsius);
             self.alarms.on_channel(p.channel, h, c, due);
         }
-        Some(report)
+        self.meter
+            .record(i, report.heat_loss_w, report.hot_face_c, interval, due);
+        let cycle = self.zones[i].cycles;
+        self.push(Output::ZoneState(ZoneState { report, cycle }));
     }
 
     /// Every zone's learned lining baseline, by zone name (to persist).
@@ -420,11 +536,16 @@ impl Monitor {
 
     /// The next channel state due for publication at `now` (its period, or
     /// at once after a health change).
-    pub fn poll_channel(&mut self, now: Timestamp) -> Option<ChannelReport> {
+    fn poll_channel(&mut self, now: Timestamp) -> Option<ChannelReport> {
         let ch = (0..self.channels.len()).find(|&c| self.channel_due[c] <= now)?;
         self.check_health(ch, now);
         self.channel_due[ch] = now.plus_s(self.channel_period_s);
-        let cfg = &self.settings.channels[ch];
+        self.channel_state(ch, now)
+    }
+
+    /// Channel `ch`'s state at `now`, as its next publication would say.
+    pub fn channel_state(&self, ch: usize, now: Timestamp) -> Option<ChannelReport> {
+        let cfg = self.settings.channels.get(ch)?;
         let state = &self.channels[ch];
         let (health, reason) = state.health_at(now, self.stale_after_s[ch]);
         let valid = health == Health::Ok;
@@ -447,24 +568,23 @@ impl Monitor {
     fn update_suppression(&mut self, now: Timestamp) {
         let channels = &self.channels;
         let stale = &self.stale_after_s;
-        let silent = &self.source_silent;
+        let sources = &self.sources;
         self.alarms.update_suppression(
             &self.settings,
             |c| channels[c].health_at(now, stale[c]).0,
-            |s| silent[s],
+            |s| sources[s].silent,
             now,
         );
     }
 
     /// Time-driven work that no reading triggers: sources falling silent,
     /// alarm timers (shelves running out, delays completing).
-    pub fn tick(&mut self, now: Timestamp) {
-        for s in 0..self.source_silent.len() {
+    fn tick(&mut self, now: Timestamp) {
+        for s in 0..self.sources.len() {
             let limit = self.settings.sources[s].silence_s;
-            let since = self.source_seen[s].unwrap_or(self.start);
-            let silent = now.since(since) > limit;
-            if silent != self.source_silent[s] {
-                self.source_silent[s] = silent;
+            let silent = self.sources[s].silent_at(now, self.start, limit);
+            if silent != self.sources[s].silent {
+                self.sources[s].silent = silent;
                 self.update_suppression(now);
             }
             self.alarms.on_source(s, silent, now);
@@ -492,16 +612,13 @@ impl Monitor {
 
     /// Whether source `s` is silent (no value within its silence limit).
     pub fn source_silent(&self, s: usize) -> bool {
-        self.source_silent.get(s).copied().unwrap_or(false)
+        self.sources.get(s).is_some_and(|s| s.silent)
     }
 
-    /// The next alarm transition or trend alert.
-    pub fn poll_alarm(&mut self) -> Option<AlarmOutput> {
-        self.alarms.poll()
-    }
-
-    /// An operator command; `Ok(alarm index)` when accepted (for the
-    /// baseline actions, `Ok(zone index)`).
+    /// An operator command, already parsed; `Ok(alarm index)` when accepted
+    /// (for the baseline actions, `Ok(zone index)`). Its alarm outputs come
+    /// with the next `handle_*` call ([`Self::handle_command`] takes the
+    /// payload, replies and collects them at once).
     pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
         if cmd.action.is_baseline() {
             return self.baseline_command(cmd, now);
@@ -518,22 +635,19 @@ impl Monitor {
     }
 
     /// The `{root}/alarm/{name}` payload of alarm `i` at `now`.
-    pub fn alarm_report(&self, i: usize, now: Timestamp) -> AlarmReport<'_> {
+    pub fn alarm_report(&self, i: usize, now: Timestamp) -> AlarmReport {
         self.alarms.report(&self.settings, i, now)
     }
+}
 
-    /// The next queued event.
-    pub fn poll_event(&mut self) -> Option<Event> {
-        self.events.pop_front()
-    }
-
-    /// The earliest time a zone cycle is due (for the driver's timer).
-    pub fn next_zone_due(&self) -> Option<Timestamp> {
-        self.zones
-            .iter()
-            .map(|z| z.next_due)
-            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
-    }
+/// The kiln's energy meter for `settings`, resuming from `totals`.
+fn new_meter(settings: &Settings, totals: EnergyTotals) -> EnergyMeter {
+    EnergyMeter::new(
+        settings.zones.len(),
+        settings.site.firing_start_c,
+        settings.site.operation,
+        totals,
+    )
 }
 
 /// Whether a zone keeps a lining baseline: the layered model with a

@@ -59,6 +59,8 @@
 
 use core::fmt::Write as _;
 
+use super::scan::{Reading, Scan, MAX_READINGS};
+
 /// Most bytes in a line body: everything before the terminator (`\n`, or
 /// `\r\n`, neither counted).
 pub const MAX_LINE_BYTES: usize = 512;
@@ -68,6 +70,9 @@ pub const MAX_INPUT: u8 = 64;
 
 /// Most readings in one frame: each input at most once.
 pub const MAX_FRAME_VALUES: usize = MAX_INPUT as usize;
+
+// Every frame fits the scan it becomes.
+const _: () = assert!(MAX_FRAME_VALUES <= MAX_READINGS);
 
 /// Most decimal digits (integer and fraction together) in one value: keeps
 /// numbers to what a box can measure and rejects runaway garbage.
@@ -111,14 +116,9 @@ pub fn crc16_ccitt_false(data: &[u8]) -> u16 {
     crc
 }
 
-/// Unit of a reading as sent by the box.
-#[derive(Debug, Clone, Copy, PartialEq)]
-pub enum Unit {
-    /// Linearised temperature in °C (`C`).
-    Celsius,
-    /// Raw thermocouple EMF in mV (`mV`), to be cold-junction compensated.
-    Millivolts,
-}
+/// Unit of a reading as sent by the box: `C` is [`Unit::Celsius`], `mV`
+/// is [`Unit::Millivolts`] (the scan's units; the line carries no other).
+pub use super::scan::Unit;
 
 /// One input's value in a frame.
 #[derive(Debug, Clone, Copy, PartialEq)]
@@ -146,6 +146,33 @@ pub struct Frame {
     /// box restarted. Not set for the first frame after
     /// [`LineParser::new`] or [`LineParser::reset_sequence`].
     pub source_restarted: bool,
+}
+
+impl From<Value> for Reading {
+    fn from(v: Value) -> Reading {
+        match v {
+            Value::Reading { value, unit } => Reading::Measured { value, unit },
+            Value::Open => Reading::Open,
+        }
+    }
+}
+
+/// The frame as the input-neutral scan the monitor takes: every value,
+/// the `cj=` temperature and the sequence's loss and restart.
+pub fn to_scan(frame: &Frame) -> Scan {
+    let mut readings = heapless::Vec::new();
+    for &(input, value) in &frame.values {
+        // A frame holds at most 64 values, the scan's capacity too.
+        if readings.push((input, Reading::from(value))).is_err() {
+            break;
+        }
+    }
+    Scan {
+        readings,
+        cj_c: frame.cj_c,
+        lost_before: frame.lost_before,
+        source_restarted: frame.source_restarted,
+    }
 }
 
 impl Frame {
@@ -1357,6 +1384,41 @@ mod tests {
         assert_eq!(accept(&mut p, 15).lost_before, 3, "12, 13, 14 lost");
         assert_eq!(p.counters().lost_scans, 3);
         assert_eq!(p.counters().frames, 3);
+    }
+
+    #[test]
+    fn a_frame_becomes_the_same_scan() {
+        let mut p = LineParser::new();
+        accept(&mut p, 7);
+        let got: Vec<_> = p
+            .feed(&sealed("#9 1=812.4C 7=open 12=-0.183mV cj=24.6C"))
+            .collect();
+        let scan = to_scan(got[0].as_ref().unwrap());
+        assert_eq!(
+            scan.readings.as_slice(),
+            &[
+                (
+                    1,
+                    Reading::Measured {
+                        value: 812.4,
+                        unit: Unit::Celsius
+                    }
+                ),
+                (7, Reading::Open),
+                (
+                    12,
+                    Reading::Measured {
+                        value: -0.183,
+                        unit: Unit::Millivolts
+                    }
+                ),
+            ]
+        );
+        assert_eq!(scan.cj_c, Some(24.6));
+        assert_eq!(scan.lost_before, 1, "8 lost between 7 and 9");
+        assert!(!scan.source_restarted);
+        assert_eq!(scan.reading(7), Some(Reading::Open));
+        assert_eq!(scan.reading(2), None);
     }
 
     #[test]

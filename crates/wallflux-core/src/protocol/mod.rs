@@ -1,2 +1,5 @@
-//! Decoders of the inputs' wire formats, sans IO: bytes in, frames out.
+//! Decoders of the inputs' wire formats, sans IO: bytes in, frames out, and
+//! each decoder's frames turned into the input-neutral [`scan::Scan`] the
+//! monitor takes.
 pub mod line;
+pub mod scan;
