@@ -16,6 +16,7 @@ use tokio::sync::{mpsc, watch};
 use tracing::{info, warn};
 
 use super::clock::Clock;
+use super::record::Recorder;
 use super::state;
 use crate::acquire::serial::{self, Delivery, FromSource, SourceHealth};
 use crate::config::Settings;
@@ -39,6 +40,10 @@ const STATUS_EVERY: Duration = Duration::from_secs(60);
 /// The longest sleep when the monitor has nothing due (it always has: a
 /// zone's next cycle), real time.
 const IDLE: Duration = Duration::from_secs(3600);
+/// How long after a deadline the engine wakes for it (real time): a scan
+/// stamped just before the deadline is on its way from its source task and
+/// must be handled first, as a replay of the stamps would.
+const IN_FLIGHT: Duration = Duration::from_millis(2);
 
 /// File of the energy totals in the state directory.
 pub const ENERGY_FILE: &str = "energy.json";
@@ -54,6 +59,17 @@ pub async fn run(
     clock: Clock,
     shutdown: impl Future<Output = ()>,
     observer: Option<Observer>,
+) -> anyhow::Result<()> {
+    run_recording(settings, clock, shutdown, observer, None).await
+}
+
+/// As [`run`], writing every scan handled to `recorder`.
+pub async fn run_recording(
+    settings: Arc<Settings>,
+    clock: Clock,
+    shutdown: impl Future<Output = ()>,
+    observer: Option<Observer>,
+    recorder: Option<Recorder>,
 ) -> anyhow::Result<()> {
     let root = settings.topic_root();
     let queue = Arc::new(Queue::new(settings.mqtt.queue_capacity));
@@ -71,6 +87,19 @@ pub async fn run(
         stop_rx.clone(),
     ));
 
+    // The monitor starts before any source does: every scan is stamped at
+    // or after its start, as a recording of them replays.
+    let mut engine = Engine::new(
+        settings.clone(),
+        root.clone(),
+        queue.clone(),
+        clock,
+        observer,
+    );
+    engine.recorder = recorder;
+    if let Some(r) = engine.recorder.as_mut() {
+        r.start(engine.monitor.started());
+    }
     let (tx, mut rx) = mpsc::channel(256);
     let mut source_health = Vec::new();
     let mut source_tasks = Vec::new();
@@ -96,7 +125,6 @@ pub async fn run(
         topic_root = %root, state_dir = %settings.state_dir.display(), "wallflux started"
     );
 
-    let mut engine = Engine::new(settings.clone(), root, queue.clone(), clock, observer);
     engine.monitor.handle_alarm_states_request(clock.now());
     engine.drain(&source_health, &link);
     let mut status_tick = tokio::time::interval(STATUS_EVERY);
@@ -110,7 +138,7 @@ pub async fn run(
         let deadline = engine.monitor.poll_timeout();
         let wake = deadline.map_or_else(
             || tokio::time::Instant::now() + IDLE,
-            |t| clock.instant_of(t),
+            |t| clock.instant_of(t) + IN_FLIGHT,
         );
         tokio::select! {
             msg = rx.recv(), if sources_open => match msg {
@@ -119,16 +147,24 @@ pub async fn run(
             },
             Some(payload) = cmd_rx.recv() => engine.monitor.handle_command(&payload, clock.now()),
             _ = tokio::time::sleep_until(wake) => {
-                // Woken for `deadline`: the monitor's time has reached it
-                // even if the clock reads a rounding error earlier.
-                let now = clock.now();
-                let now = deadline.filter(|d| *d > now).unwrap_or(now);
-                engine.monitor.handle_timeout(now);
+                // The scans already queued first (each after the deadlines
+                // before its stamp), then the deadline itself.
+                while let Ok(f) = rx.try_recv() {
+                    engine.source(f);
+                }
+                if let Some(d) = deadline {
+                    engine.monitor.handle_timeout(d);
+                }
             }
             // A new broker session may have lost retained alarm states.
             _ = link.reconnected.notified() => engine.monitor.handle_alarm_states_request(clock.now()),
             _ = status_tick.tick() => engine.monitor.handle_status_request(clock.now()),
-            _ = save_tick.tick() => engine.save_energy(),
+            _ = save_tick.tick() => {
+                engine.save_energy();
+                if let Some(r) = engine.recorder.as_mut() {
+                    r.flush();
+                }
+            }
             _ = &mut shutdown => break,
         }
         engine.drain(&source_health, &link);
@@ -139,6 +175,9 @@ pub async fn run(
     engine.drain(&source_health, &link);
     engine.save_energy();
     engine.save_alarms();
+    if let Some(r) = engine.recorder.as_mut() {
+        r.flush();
+    }
     let _ = stop_tx.send(true);
     for t in source_tasks {
         let _ = tokio::time::timeout(Duration::from_secs(2), t).await;
@@ -158,6 +197,7 @@ struct Engine {
     queue: Arc<Queue>,
     observer: Option<Observer>,
     monitor: Monitor,
+    recorder: Option<Recorder>,
 }
 
 impl Engine {
@@ -197,13 +237,21 @@ impl Engine {
             queue,
             observer,
             monitor,
+            recorder: None,
         }
     }
 
-    /// What a source delivered.
+    /// What a source delivered, after every deadline before its stamp (as
+    /// `analyze` replays it).
     fn source(&mut self, f: FromSource) {
+        self.monitor.handle_timeout_before(f.time);
         match f.delivery {
-            Delivery::Scan(scan) => self.monitor.handle_scan(f.source, &scan, f.time),
+            Delivery::Scan(scan) => {
+                if let Some(r) = self.recorder.as_mut() {
+                    r.scan(&self.settings, f.source, &scan, f.time);
+                }
+                self.monitor.handle_scan(f.source, &scan, f.time)
+            }
             Delivery::DecodeError => self.monitor.handle_decode_error(f.source, f.time),
         }
     }

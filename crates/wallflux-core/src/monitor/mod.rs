@@ -164,6 +164,11 @@ impl Monitor {
         &self.settings
     }
 
+    /// When the monitor started (its zones' interval grid begins there).
+    pub fn started(&self) -> Timestamp {
+        self.start
+    }
+
     fn push(&mut self, o: Output) {
         self.outputs.push_back(o);
     }
