@@ -151,8 +151,11 @@ pub fn replay(
         let mon = monitor.get_or_insert_with(|| Monitor::new(settings.clone(), time));
         // Everything due before this row's time is complete: emit it (a
         // cycle due at this very time waits for this row).
-        mon.handle_timeout_before(time);
-        drain(mon, &mut out, &mut stats, outputs).map_err(write_err)?;
+        if last != Some(time) {
+            // (Rows of one scan share a time: once is enough.)
+            mon.handle_timeout_before(time);
+            drain(mon, &mut out, &mut stats, outputs).map_err(write_err)?;
+        }
         last = Some(time);
         if ch.is_empty() && v.is_empty() {
             continue; // the start of a recording
