@@ -269,3 +269,102 @@ fn configured_alarm() {
         |_| NORMAL,
     );
 }
+
+/// The alarm-flood policy is the monitor's: twelve thermocouples failing
+/// together (their `-fault` alarms, 30 s on-delay) exceed ISA-18.2's ten
+/// alarms in ten minutes; their events are marked grouped, one summary
+/// names the active alarms (again at most once a minute while it lasts),
+/// and when the ten minutes have passed the end says how many were
+/// grouped.
+#[test]
+fn a_flood_is_summarised_not_logged_line_by_line() {
+    use wallflux::monitor::output::{AlarmEvent, FloodNotice, Output};
+    let mut text = String::from(
+        "[site]\nplant = \"p\"\nkiln = \"k\"\n[mqtt]\nhost = \"127.0.0.1\"\n\
+         [[source]]\nname = \"box\"\nkind = \"line\"\nport = \"/dev/null\"\nsilence_s = 30\n\
+         [[material]]\nname = \"m\"\nconductivity_w_mk = 1.2\ndensity_kg_m3 = 2000.0\nspecific_heat_j_kgk = 1000.0\n",
+    );
+    for i in 0..12 {
+        text += &format!(
+            "[[channel]]\nname = \"p{i}\"\nsource = \"box\"\ninput = {}\ntype = \"K\"\nuncertainty_c = 0.5\n",
+            i + 1
+        );
+    }
+    for z in 0..2 {
+        text += &format!(
+            "[[zone]]\nname = \"z{z}\"\narea_m2 = 4.0\nmodel = \"quadratic\"\ninterval_s = 10\n\
+             layers = [{{ material = \"m\", thickness_mm = 300 }}]\nprobes = ["
+        );
+        for p in 0..6 {
+            text += &format!(
+                "{{ channel = \"p{}\", depth_mm = {} }},",
+                6 * z + p,
+                30 + 50 * p
+            );
+        }
+        text += "]\n";
+    }
+    let s = Arc::new(config::parse(&text, "t", None).unwrap());
+    let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
+    type Seen = (Vec<AlarmEvent>, Vec<FloodNotice>);
+    fn feed(m: &mut Monitor, seen: &mut Seen, from: u32, to: u32, open: bool) {
+        for t in from..to {
+            let now = Timestamp::from_epoch_s(f64::from(t));
+            m.handle_timeout(now);
+            for ch in 0..12 {
+                let depth = 30.0 + 50.0 * (ch % 6) as f64;
+                let v = if open {
+                    Value::Open
+                } else {
+                    Value::Reading {
+                        value: 900.0 - 2.0 * depth,
+                        unit: Unit::Celsius,
+                    }
+                };
+                m.handle_value(ch, v, None, now);
+            }
+            while let Some(o) = m.poll_output() {
+                match o {
+                    Output::AlarmEvent(e) => seen.0.push(e),
+                    Output::AlarmFlood(f) => seen.1.push(f),
+                    _ => {}
+                }
+            }
+        }
+    }
+    let mut seen: Seen = (Vec::new(), Vec::new());
+    feed(&mut m, &mut seen, 0, 60, false);
+    assert!(seen.0.is_empty() && seen.1.is_empty(), "{seen:?}");
+    feed(&mut m, &mut seen, 60, 180, true);
+    let (events, notices) = &seen;
+    let activated: Vec<_> = events
+        .iter()
+        .filter(|e| e.alarm.ends_with("-fault") && e.to == AlarmState::Unacknowledged)
+        .collect();
+    assert_eq!(activated.len(), 12, "{events:?}");
+    let first = notices.first().expect("a flood summary").clone();
+    assert!(!first.over && first.rate_per_10min > 10, "{first:?}");
+    assert!(first.active.iter().any(|a| a == "p11-fault"), "{first:?}");
+    // The activations that made the flood, and those after: grouped.
+    let grouped = events.iter().filter(|e| e.grouped).count();
+    assert!(grouped >= 2, "{events:?}");
+    assert_eq!(
+        first.grouped,
+        events
+            .iter()
+            .filter(|e| e.grouped && e.time <= first.time)
+            .count() as u64
+    );
+    // Readings back, then ten quiet minutes: the flood ends, once.
+    feed(&mut m, &mut seen, 180, 900, false);
+    let (events, notices) = &seen;
+    let summaries: Vec<_> = notices.iter().filter(|n| !n.over).collect();
+    for w in summaries.windows(2) {
+        assert!(w[1].time.since(w[0].time) >= 60.0, "{summaries:?}");
+    }
+    let ends: Vec<_> = notices.iter().filter(|n| n.over).collect();
+    assert_eq!(ends.len(), 1, "{notices:?}");
+    let grouped = events.iter().filter(|e| e.grouped).count() as u64;
+    assert_eq!(ends[0].grouped, grouped);
+    assert!(ends[0].time.since(first.time) >= 600.0, "{notices:?}");
+}

@@ -213,6 +213,59 @@ fn analyze_reproduces_a_closed_form_wall() {
             assert!(r.abs() < 0.05, "{p}");
         }
     }
+
+    // Every output: the same zone states, and after each the kiln state of
+    // its instant (one zone: the kiln loses what the zone loses), the
+    // probe's health change, the channel states.
+    let args = |outputs: &str| {
+        run(&[
+            "analyze",
+            "--config",
+            cfg.to_str().unwrap(),
+            "--samples",
+            samples.to_str().unwrap(),
+            "--outputs",
+            outputs,
+        ])
+    };
+    let o = args("all");
+    assert_eq!(o.status.code(), Some(0), "{}", stderr(&o));
+    let all: Vec<serde_json::Value> = String::from_utf8_lossy(&o.stdout)
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    let of = |kind: &str| -> Vec<&serde_json::Value> {
+        all.iter()
+            .filter(|l| l["kind"] == kind)
+            .map(|l| &l["output"])
+            .collect()
+    };
+    let zones = of("zone_state");
+    assert_eq!(zones.len(), lines.len());
+    assert!(zones.iter().zip(&lines).all(|(a, b)| *a == b));
+    let kilns = of("kiln_state");
+    assert_eq!(kilns.len(), zones.len());
+    for (k, z) in kilns.iter().zip(&zones) {
+        assert_eq!(k["time"], z["time"]);
+        assert_eq!(k["heat_loss_w"], z["heat_loss_w"]);
+    }
+    // Energy: 60 intervals of 10 s at the zone's loss, E = P t.
+    let want_kwh = (q0 + qs * l) * 10.0 * 600.0 / 3.6e6;
+    let got_kwh = kilns[59]["energy_total_kwh"].as_f64().unwrap();
+    assert!(
+        (got_kwh - want_kwh).abs() < 0.005 * want_kwh,
+        "{got_kwh} kWh"
+    );
+    let opened: Vec<_> = of("channel_health")
+        .into_iter()
+        .filter(|c| c["channel"] == "p1" && c["to"] == "open")
+        .collect();
+    assert_eq!(opened.len(), 1, "{all:?}");
+    assert!(!of("channel_state").is_empty());
+
+    let o = args("some");
+    assert_eq!(o.status.code(), Some(2));
+    assert!(stderr(&o).contains("zone_states or all"), "{}", stderr(&o));
 }
 
 /// A record with a gap of a year (a logger stopped over the summer): the

@@ -254,3 +254,174 @@ fn abrupt_death_publishes_the_last_will() {
     assert!(will.json.get("time").is_none());
     drop(pty);
 }
+
+/// The hot face of the replay scenario at `t` s after the feed began: 700 °C,
+/// 900 °C from 4 s to 9 s (the shell passes the 350 °C touch limit), then
+/// 700 °C again, with a slow drift so that the rates are not zero.
+fn scenario_hot_face_c(t: f64) -> f64 {
+    let base = if (4.0..9.0).contains(&t) {
+        900.0
+    } else {
+        700.0
+    };
+    base + 3.0 * t
+}
+
+/// What the daemon published on `topic` (`zone/wall/state`, `kiln/state`,
+/// `events`), in order.
+fn published<'a>(msgs: &'a [common::mqtt::Msg], topic: &str) -> Vec<&'a serde_json::Value> {
+    let topic = format!("wf/test-plant/k1/{topic}");
+    msgs.iter()
+        .filter(|m| m.topic == topic && !m.retained)
+        .map(|m| &m.json)
+        .collect()
+}
+
+/// `analyze` equals live: the scans the daemon handled (its own recording,
+/// `run --record`) replayed by `analyze --outputs all` give the very zone
+/// states, kiln states and alarm events the daemon published over MQTT,
+/// field for field. The scenario moves the hot face (a linear slab,
+/// 2000 K/m: shell = hot face − 500 K) across the shell-touch limit and
+/// back, so that there are spikes held back, an activation and a return.
+#[test]
+fn analyze_replays_what_the_daemon_published() {
+    let dir = temp_dir("daemon-replay");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, "wf/test-plant/k1/#");
+    let pty = Pty::open().unwrap();
+    let mut cfg = one_zone_config(&pty.path, port, K, 250.0, &DEPTHS_MM, 1.0);
+    cfg += "\n[[alarm]]\nname = \"wall-shell-touch\"\nsetpoint = 350.0\ndeadband = 5.0\non_delay_s = 0.0\n";
+    let cfg = write(&dir, "wallflux.toml", &cfg);
+    let recording = dir.join("recording.csv");
+    let mut daemon = bin()
+        .args(["run", "--config", cfg.to_str().unwrap(), "--record"])
+        .arg(&recording)
+        .stdout(std::process::Stdio::null())
+        .stderr(std::fs::File::create(dir.join("daemon.log")).unwrap())
+        .spawn()
+        .unwrap();
+    wait_for(&rx, Duration::from_secs(20), "status online", |m| {
+        m.topic == "wf/test-plant/k1/status" && m.json["state"] == "online"
+    });
+    let mut master = pty.master;
+    let begun = std::time::Instant::now();
+    let mut line = heapless::String::<{ MAX_LINE_BYTES + 2 }>::new();
+    for seq in 0u32.. {
+        let t = begun.elapsed().as_secs_f64();
+        if t > 13.0 {
+            break;
+        }
+        let hot = scenario_hot_face_c(t);
+        let mut values: heapless::Vec<(u8, Value), 64> = heapless::Vec::new();
+        for (i, d) in DEPTHS_MM.iter().enumerate() {
+            let v = Value::Reading {
+                value: ((hot - 2000.0 * d / 1000.0) * 100.0).round() / 100.0,
+                unit: Unit::Celsius,
+            };
+            values.push((i as u8 + 1, v)).unwrap();
+        }
+        line.clear();
+        encode_frame(seq, &values, None, &mut line).unwrap();
+        master.write_all(line.as_bytes()).unwrap();
+        std::thread::sleep(Duration::from_millis(100));
+    }
+    // SIGTERM: everything queued is published before `offline`.
+    // SAFETY: kill(2) on our own child's pid.
+    unsafe {
+        libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);
+    }
+    let mut live = Vec::new();
+    loop {
+        let m = rx
+            .recv_timeout(Duration::from_secs(20))
+            .expect("status offline");
+        let offline = m.topic == "wf/test-plant/k1/status" && m.json["state"] == "offline";
+        live.push(m);
+        if offline {
+            break;
+        }
+    }
+    assert_eq!(daemon.wait().unwrap().code(), Some(0));
+
+    let o = run(&[
+        "analyze",
+        "--config",
+        cfg.to_str().unwrap(),
+        "--samples",
+        recording.to_str().unwrap(),
+        "--outputs",
+        "all",
+    ]);
+    assert_eq!(
+        o.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&o.stderr)
+    );
+    let replay: Vec<serde_json::Value> = String::from_utf8_lossy(&o.stdout)
+        .lines()
+        .map(|l| serde_json::from_str(l).unwrap())
+        .collect();
+    let of_kind = |kind: &str| -> Vec<&serde_json::Value> {
+        replay
+            .iter()
+            .filter(|l| l["kind"] == kind)
+            .map(|l| &l["output"])
+            .collect()
+    };
+    // The last recorded scan: after it the daemon ran on without readings
+    // (and the replay closes its partial interval), so the comparison ends
+    // there.
+    let text = std::fs::read_to_string(&recording).unwrap();
+    let last_s: f64 = text
+        .lines()
+        .last()
+        .and_then(|l| l.split(',').next())
+        .and_then(|t| t.parse().ok())
+        .unwrap();
+    // Times are published to the millisecond: the replay's last, partial
+    // state at `last_s` may read up to 0.5 ms earlier.
+    let before_end = |v: &&serde_json::Value| {
+        let t = wallflux::time::Timestamp::parse(v["time"].as_str().unwrap()).unwrap();
+        t.epoch_s() < last_s - 0.002
+    };
+    let alarm_events = |v: Vec<&serde_json::Value>| -> Vec<serde_json::Value> {
+        v.into_iter()
+            .filter(|e| e["type"] == "alarm")
+            .filter(before_end)
+            .cloned()
+            .collect()
+    };
+    for (topic, kind) in [
+        ("zone/wall/state", "zone_state"),
+        ("kiln/state", "kiln_state"),
+    ] {
+        let want: Vec<_> = published(&live, topic)
+            .into_iter()
+            .filter(before_end)
+            .collect();
+        let got: Vec<_> = of_kind(kind).into_iter().filter(before_end).collect();
+        assert!(want.len() >= 10, "{topic}: {} live states", want.len());
+        let times = |v: &[&serde_json::Value]| -> Vec<String> {
+            v.iter().map(|s| s["time"].to_string()).collect()
+        };
+        assert_eq!(
+            times(&got),
+            times(&want),
+            "{topic}: the replay's times and the live ones"
+        );
+        for (g, w) in got.iter().zip(&want) {
+            assert_eq!(g, w, "{topic}");
+        }
+    }
+    let want = alarm_events(published(&live, "events"));
+    let got = alarm_events(of_kind("alarm_event"));
+    let touch: Vec<_> = want
+        .iter()
+        .filter(|e| e["alarm"] == "wall-shell-touch")
+        .map(|e| e["cause"].as_str().unwrap())
+        .collect();
+    assert_eq!(touch, ["activated", "returned"], "{want:?}");
+    assert_eq!(got, want);
+}

@@ -189,7 +189,14 @@ fn transient_model_estimates_an_unmeasured_hot_face() {
     // numbers as the binary's replay (one engine, live or replayed).
     let settings = Arc::new(wallflux::config::parse(&config(), "t", None).unwrap());
     let mut mem = Vec::new();
-    let stats = wallflux::app::analyze::replay(settings, csv.as_bytes(), &mut mem, "mem").unwrap();
+    let stats = wallflux::app::analyze::replay(
+        settings,
+        csv.as_bytes(),
+        &mut mem,
+        "mem",
+        wallflux::app::cli::Outputs::ZoneStates,
+    )
+    .unwrap();
     assert_eq!(stats.states as usize, states.len());
     assert_eq!(
         String::from_utf8(mem).unwrap(),

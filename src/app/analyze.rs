@@ -1,12 +1,19 @@
-//! `wallflux analyze`: the live engine over recorded samples, driven by the
-//! samples' timestamps. Streams: constant memory whatever the file size.
+//! `wallflux analyze`: the live monitor over recorded samples, driven by
+//! the samples' timestamps as the daemon is driven by its clock: before
+//! each row every deadline up to it is handled (`handle_timeout_before`),
+//! and every output is drained. Streams: constant memory whatever the file
+//! size. By default it writes the zone states; `--outputs all` writes every
+//! output as `{"kind":…,"output":…}` (the output is the payload the daemon
+//! publishes).
 //!
 //! Samples CSV: header `time,channel,value`; `time` RFC 3339 or epoch
 //! seconds; `value` in the channel's signal unit (°C, or mV), or `open`.
 //! A row whose channel is `<source>.cj`, or the source's `cj_channel`,
 //! gives that source's cold-junction temperature (°C) for the millivolt
-//! channels that follow; otherwise the source's `cj_c` applies. Rows must be
-//! in time order.
+//! channels that follow; otherwise the source's `cj_c` applies. A row with
+//! neither channel nor value (`<time>,,`, the first row of a recording by
+//! `run --record`) says when the monitor started; otherwise it starts at
+//! the first row. Rows must be in time order.
 
 use std::collections::HashMap;
 use std::io::{BufRead, BufReader, BufWriter, Write};
@@ -18,14 +25,17 @@ use anyhow::anyhow;
 use super::Failure;
 use crate::acquire::line::{Unit, Value};
 use crate::config::Signal;
-use crate::monitor::output::Output;
+use serde::Serialize;
+
+use super::cli::Outputs;
+use crate::monitor::output::{Output, OutputKind};
 use crate::monitor::Monitor;
 use crate::time::Timestamp;
 
 /// Bad rows reported one by one before only counting.
 const REPORT_ROWS: u64 = 20;
 
-pub fn analyze(config: &Path, samples: &Path) -> Result<(), Failure> {
+pub fn analyze(config: &Path, samples: &Path, outputs: Outputs) -> Result<(), Failure> {
     let settings = Arc::new(super::load(config)?);
     super::log_warnings(&settings, config);
     let file = std::fs::File::open(samples)
@@ -36,6 +46,7 @@ pub fn analyze(config: &Path, samples: &Path) -> Result<(), Failure> {
         BufReader::new(file),
         BufWriter::new(out),
         &samples.display().to_string(),
+        outputs,
     )?;
     if stats.bad_rows > 0 || stats.unknown_rows > 0 || stats.out_of_order > 0 {
         super::say(&format!(
@@ -65,6 +76,7 @@ pub fn replay(
     input: impl BufRead,
     mut out: impl Write,
     label: &str,
+    outputs: Outputs,
 ) -> Result<ReplayStats, Failure> {
     let by_name: HashMap<&str, usize> = settings
         .channels
@@ -139,9 +151,15 @@ pub fn replay(
         let mon = monitor.get_or_insert_with(|| Monitor::new(settings.clone(), time));
         // Everything due before this row's time is complete: emit it (a
         // cycle due at this very time waits for this row).
-        mon.handle_timeout_before(time);
-        drain(mon, &mut out, &mut stats).map_err(write_err)?;
+        if last != Some(time) {
+            // (Rows of one scan share a time: once is enough.)
+            mon.handle_timeout_before(time);
+            drain(mon, &mut out, &mut stats, outputs).map_err(write_err)?;
+        }
         last = Some(time);
+        if ch.is_empty() && v.is_empty() {
+            continue; // the start of a recording
+        }
         if let Some(&src) = cj_names.get(ch) {
             match v.parse::<f64>() {
                 Ok(c) if c.is_finite() => cj[src] = Some(c),
@@ -191,20 +209,42 @@ pub fn replay(
         // The last partial interval too: its readings are published.
         mon.close_partial_intervals(t);
         mon.handle_timeout(t);
-        drain(mon, &mut out, &mut stats).map_err(write_err)?;
+        drain(mon, &mut out, &mut stats, outputs).map_err(write_err)?;
     }
     out.flush().map_err(write_err)?;
     Ok(stats)
 }
 
-/// Writes the monitor's pending outputs: each zone state as a JSON line.
-fn drain(mon: &mut Monitor, out: &mut impl Write, stats: &mut ReplayStats) -> std::io::Result<()> {
+/// Writes the monitor's pending outputs as JSON lines: the zone states, or
+/// with [`Outputs::All`] every output with its kind.
+fn drain(
+    mon: &mut Monitor,
+    out: &mut impl Write,
+    stats: &mut ReplayStats,
+    outputs: Outputs,
+) -> std::io::Result<()> {
     while let Some(o) = mon.poll_output() {
-        if let Output::ZoneState(z) = &o {
-            serde_json::to_writer(&mut *out, &z.report)?;
-            out.write_all(b"\n")?;
-            stats.states += 1;
+        let zone = matches!(o, Output::ZoneState(_));
+        stats.states += u64::from(zone);
+        match outputs {
+            Outputs::ZoneStates if zone => serde_json::to_writer(&mut *out, &o)?,
+            Outputs::ZoneStates => continue,
+            Outputs::All => serde_json::to_writer(
+                &mut *out,
+                &Line {
+                    kind: o.kind(),
+                    output: &o,
+                },
+            )?,
         }
+        out.write_all(b"\n")?;
     }
     Ok(())
+}
+
+/// One line of `--outputs all`.
+#[derive(Serialize)]
+struct Line<'a> {
+    kind: OutputKind,
+    output: &'a Output,
 }

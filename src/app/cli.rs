@@ -35,6 +35,10 @@ pub enum Command {
     Run {
         #[arg(long, value_name = "FILE")]
         config: PathBuf,
+        /// Also write every scan handled as `analyze` samples to this file
+        /// (replaced if it exists), for an exact replay.
+        #[arg(long, value_name = "FILE.csv")]
+        record: Option<PathBuf>,
     },
     /// A simulated kiln firing end to end: pseudo-terminal serial line,
     /// embedded MQTT broker, live summary on the terminal.
@@ -55,6 +59,10 @@ pub enum Command {
         /// CSV with header `time,channel,value`.
         #[arg(long, value_name = "FILE.csv")]
         samples: PathBuf,
+        /// What to write: `zone_states` (one zone state per line), or `all`
+        /// (every output the daemon would give, as `{"kind":…,"output":…}`).
+        #[arg(long, value_name = "WHICH", default_value = "zone_states", value_parser = parse_outputs)]
+        outputs: Outputs,
     },
     /// ITS-90 thermocouple conversion, for field checks with a calibrator.
     Tc(TcArgs),
@@ -113,4 +121,19 @@ pub struct TcArgs {
     /// Print JSON instead of text.
     #[arg(long)]
     pub json: bool,
+}
+
+wallflux_core::word_enum! {
+    /// What `analyze` writes.
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Outputs {
+        /// One zone state per line (the default).
+        ZoneStates = "zone_states",
+        /// Every output, each with its kind.
+        All = "all",
+    }
+}
+
+fn parse_outputs(s: &str) -> Result<Outputs, String> {
+    Outputs::from_name(s).ok_or_else(|| format!("{s:?}: expected {}", Outputs::choices()))
 }

@@ -10,6 +10,7 @@ pub mod clock;
 #[cfg(feature = "demo")]
 pub mod demo;
 pub mod logging;
+pub mod record;
 pub mod run;
 pub mod state;
 pub mod tc;
@@ -78,12 +79,26 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
     match cmd {
         Command::Check { config, strict } => check::check(&config, strict),
         Command::Tc(args) => tc::tc(&args),
-        Command::Analyze { config, samples } => analyze::analyze(&config, &samples),
-        Command::Run { config } => {
+        Command::Analyze {
+            config,
+            samples,
+            outputs,
+        } => analyze::analyze(&config, &samples, outputs),
+        Command::Run { config, record } => {
             let settings = Arc::new(load(&config)?);
             log_warnings(&settings, &config);
+            let clock = clock::Clock::real();
+            let recorder = match record {
+                Some(path) => Some(record::Recorder::create(&path).map_err(|e| {
+                    Failure::usage(anyhow::anyhow!(
+                        "cannot create the recording {}: {e}",
+                        path.display()
+                    ))
+                })?),
+                None => None,
+            };
             runtime()?.block_on(async move {
-                run::run(settings, clock::Clock::real(), shutdown_signal(), None)
+                run::run_recording(settings, clock, shutdown_signal(), None, recorder)
                     .await
                     .map_err(Failure::runtime)
             })

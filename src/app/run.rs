@@ -16,6 +16,7 @@ use tokio::sync::{mpsc, watch};
 use tracing::{info, warn};
 
 use super::clock::Clock;
+use super::record::Recorder;
 use super::state;
 use crate::acquire::serial::{self, Delivery, FromSource, SourceHealth};
 use crate::config::Settings;
@@ -45,6 +46,10 @@ const ROUNDING_S: f64 = 1e-3;
 /// How soon to look again when the clock was found short of a deadline,
 /// real time.
 const RECHECK: Duration = Duration::from_millis(5);
+/// How long after a deadline the engine wakes for it (real time): a scan
+/// stamped just before the deadline is on its way from its source task and
+/// must be handled first, as a replay of the stamps would.
+const IN_FLIGHT: Duration = Duration::from_millis(2);
 
 /// File of the energy totals in the state directory.
 pub const ENERGY_FILE: &str = "energy.json";
@@ -60,6 +65,17 @@ pub async fn run(
     clock: Clock,
     shutdown: impl Future<Output = ()>,
     observer: Option<Observer>,
+) -> anyhow::Result<()> {
+    run_recording(settings, clock, shutdown, observer, None).await
+}
+
+/// As [`run`], writing every scan handled to `recorder`.
+pub async fn run_recording(
+    settings: Arc<Settings>,
+    clock: Clock,
+    shutdown: impl Future<Output = ()>,
+    observer: Option<Observer>,
+    recorder: Option<Recorder>,
 ) -> anyhow::Result<()> {
     let root = settings.topic_root();
     let queue = Arc::new(Queue::new(settings.mqtt.queue_capacity));
@@ -77,6 +93,19 @@ pub async fn run(
         stop_rx.clone(),
     ));
 
+    // The monitor starts before any source does: every scan is stamped at
+    // or after its start, as a recording of them replays.
+    let mut engine = Engine::new(
+        settings.clone(),
+        root.clone(),
+        queue.clone(),
+        clock,
+        observer,
+    );
+    engine.recorder = recorder;
+    if let Some(r) = engine.recorder.as_mut() {
+        r.start(engine.monitor.started());
+    }
     let (tx, mut rx) = mpsc::channel(256);
     let mut source_health = Vec::new();
     let mut source_tasks = Vec::new();
@@ -102,7 +131,6 @@ pub async fn run(
         topic_root = %root, state_dir = %settings.state_dir.display(), "wallflux started"
     );
 
-    let mut engine = Engine::new(settings.clone(), root, queue.clone(), clock, observer);
     engine.monitor.handle_alarm_states_request(clock.now());
     engine.drain(&source_health, &link);
     let mut status_tick = tokio::time::interval(STATUS_EVERY);
@@ -120,7 +148,7 @@ pub async fn run(
         let wake = match deadline {
             None => tokio::time::Instant::now() + IDLE,
             Some(_) if early => tokio::time::Instant::now() + RECHECK,
-            Some(t) => clock.instant_of(t),
+            Some(t) => clock.instant_of(t) + IN_FLIGHT,
         };
         tokio::select! {
             msg = rx.recv(), if sources_open => match msg {
@@ -129,23 +157,27 @@ pub async fn run(
             },
             Some(payload) = cmd_rx.recv() => engine.monitor.handle_command(&payload, clock.now()),
             _ = tokio::time::sleep_until(wake) => {
-                // Woken for `deadline`: the monitor's time has reached it
-                // if the clock reads only a rounding error earlier. A clock
-                // further behind (driven by the demo's simulator, which
-                // waits for the daemon to read) is waited for: the monitor
-                // never runs ahead of the clock.
-                let now = clock.now();
-                early = deadline.is_some_and(|d| d.since(now) > ROUNDING_S);
-                if !early {
-                    let now = deadline.filter(|d| *d > now).unwrap_or(now);
+                // Woken for `deadline`. A clock still short of it by more
+                // than a rounding error (driven by the demo's simulator,
+                // which waits for the daemon to read) is waited for: the
+                // monitor never runs ahead of the clock. Otherwise the
+                // scans already queued first (each after the deadlines
+                // before its stamp), then the deadline itself.
+                early = deadline.is_some_and(|d| d.since(clock.now()) > ROUNDING_S);
+                if let Some(d) = deadline.filter(|_| !early) {
                     engine.take_queued(&mut rx);
-                    engine.monitor.handle_timeout(now);
+                    engine.monitor.handle_timeout(d);
                 }
             }
             // A new broker session may have lost retained alarm states.
             _ = link.reconnected.notified() => engine.monitor.handle_alarm_states_request(clock.now()),
             _ = status_tick.tick() => engine.monitor.handle_status_request(clock.now()),
-            _ = save_tick.tick() => engine.save_energy(),
+            _ = save_tick.tick() => {
+                engine.save_energy();
+                if let Some(r) = engine.recorder.as_mut() {
+                    r.flush();
+                }
+            }
             _ = &mut shutdown => break,
         }
         engine.drain(&source_health, &link);
@@ -158,6 +190,9 @@ pub async fn run(
     engine.drain(&source_health, &link);
     engine.save_energy();
     engine.save_alarms();
+    if let Some(r) = engine.recorder.as_mut() {
+        r.flush();
+    }
     let _ = stop_tx.send(true);
     for t in source_tasks {
         let _ = tokio::time::timeout(Duration::from_secs(2), t).await;
@@ -177,6 +212,7 @@ struct Engine {
     queue: Arc<Queue>,
     observer: Option<Observer>,
     monitor: Monitor,
+    recorder: Option<Recorder>,
 }
 
 impl Engine {
@@ -216,13 +252,21 @@ impl Engine {
             queue,
             observer,
             monitor,
+            recorder: None,
         }
     }
 
-    /// What a source delivered.
+    /// What a source delivered, after every deadline before its stamp (as
+    /// `analyze` replays it).
     fn source(&mut self, f: FromSource) {
+        self.monitor.handle_timeout_before(f.time);
         match f.delivery {
-            Delivery::Scan(scan) => self.monitor.handle_scan(f.source, &scan, f.time),
+            Delivery::Scan(scan) => {
+                if let Some(r) = self.recorder.as_mut() {
+                    r.scan(&self.settings, f.source, &scan, f.time);
+                }
+                self.monitor.handle_scan(f.source, &scan, f.time)
+            }
             Delivery::DecodeError => self.monitor.handle_decode_error(f.source, f.time),
         }
     }

@@ -46,6 +46,22 @@ impl Timestamp {
         Timestamp(self.0 + s)
     }
 
+    /// The first instant from `self` on at which `due` holds, stepping up one
+    /// representable instant at a time: a deadline computed as `t0 + d` can
+    /// round to just below the instant a test such as `t.since(t0) >= d`
+    /// accepts. A few steps always suffice for finite times; after them the
+    /// last instant tried is returned.
+    pub fn first_when(self, due: impl Fn(Timestamp) -> bool) -> Timestamp {
+        let mut t = self;
+        for _ in 0..8 {
+            if due(t) {
+                break;
+            }
+            t = Timestamp(t.0.next_up());
+        }
+        t
+    }
+
     /// Seconds from `earlier` to `self` (negative if `earlier` is later).
     pub fn since(self, earlier: Timestamp) -> f64 {
         self.0 - earlier.0

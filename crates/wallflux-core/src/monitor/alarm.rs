@@ -381,14 +381,19 @@ impl Alarm {
     /// delay completing (`None` when neither is pending).
     pub fn next_deadline(&self) -> Option<Timestamp> {
         let shelve = self.flags.shelved_until.map(Timestamp::from_epoch_s);
+        // The instants `complete_delays` accepts, to the last bit.
+        let after = |t0: Timestamp, delay_s: f64| {
+            let d = delay_s.max(0.0);
+            t0.plus_s(d).first_when(|t| t.since(t0) >= d)
+        };
         let on = self
             .on_since
             .filter(|_| !self.flags.active)
-            .map(|t0| t0.plus_s(self.spec.on_delay_s.max(0.0)));
+            .map(|t0| after(t0, self.spec.on_delay_s));
         let off = self
             .off_since
             .filter(|_| self.flags.active)
-            .map(|t0| t0.plus_s(self.spec.off_delay_s.max(0.0)));
+            .map(|t0| after(t0, self.spec.off_delay_s));
         [shelve, on, off]
             .into_iter()
             .flatten()

@@ -59,10 +59,6 @@ const OUTPUT_QUEUE: usize = 64;
 /// While an alarm flood lasts, one grouped summary at most this often, s.
 pub const FLOOD_SUMMARY_EVERY_S: f64 = 60.0;
 
-/// How long after its silence limit a source is looked at again: silence is
-/// "longer than the limit", so the check comes just after it.
-const SILENCE_SLACK_S: f64 = 1e-3;
-
 pub struct Monitor {
     settings: Arc<Settings>,
     channels: Vec<ChannelState>,
@@ -167,6 +163,11 @@ impl Monitor {
 
     pub fn settings(&self) -> &Settings {
         &self.settings
+    }
+
+    /// When the monitor started (its zones' interval grid begins there).
+    pub fn started(&self) -> Timestamp {
+        self.start
     }
 
     fn push(&mut self, o: Output) {
@@ -301,7 +302,8 @@ impl Monitor {
             ) if cfg.signal == crate::config::Signal::Millivolts => Err((Health::Invalid, reason)),
             (_, cj) => channel::convert(cfg, value, cj.ok().flatten()),
         };
-        if let Some(s) = self.sources.get_mut(cfg.source) {
+        let source = cfg.source;
+        if let Some(s) = self.sources.get_mut(source) {
             s.seen = Some(now);
         }
         let state = &mut self.channels[ch];
@@ -317,6 +319,18 @@ impl Monitor {
             }
         }
         self.check_health(ch, now);
+        self.end_silence(source, now);
+    }
+
+    /// A reading from source `s` at `now` ends its silence at once.
+    fn end_silence(&mut self, s: usize, now: Timestamp) {
+        if !self.sources.get(s).is_some_and(|s| s.silent) {
+            return;
+        }
+        self.sources[s].silent = false;
+        self.update_suppression(now);
+        self.alarms.on_source(s, false, now);
+        self.collect_alarms(now);
     }
 
     fn check_health(&mut self, ch: usize, now: Timestamp) {
@@ -336,18 +350,19 @@ impl Monitor {
         }
     }
 
-    /// Everything due at or before `now`: sources falling silent, alarm
-    /// timers, zone cycles (each state stamped with its due time, so that a
-    /// replay and the live run give the same times, and after the cycles of
-    /// one instant the kiln state), channel states, alarm outputs.
+    /// Everything due at or before `now`, each deadline in turn and at its
+    /// own time (so a late call gives what calls on time would have given):
+    /// sources falling silent, alarm timers, zone cycles (each state
+    /// stamped with its due time, and after the cycles of one instant the
+    /// kiln state), channel states, alarm outputs.
     pub fn handle_timeout(&mut self, now: Timestamp) {
         self.run_due(now, false);
     }
 
-    /// As [`Self::handle_timeout`], but zone cycles only when due strictly
-    /// before `now`: a replay calls it before handling a row stamped `now`,
-    /// so that a cycle due at `now` still sees that row's readings (its
-    /// estimate holds for the time it is stamped with).
+    /// As [`Self::handle_timeout`], but only deadlines strictly before
+    /// `now`: a replay calls it before handling a row stamped `now`, so that
+    /// a cycle due at `now` still sees that row's readings (its estimate
+    /// holds for the time it is stamped with).
     pub fn handle_timeout_before(&mut self, now: Timestamp) {
         self.run_due(now, true);
     }
@@ -363,13 +378,11 @@ impl Monitor {
             .iter()
             .zip(&self.settings.sources)
             .filter(|(s, _)| !s.silent)
-            .map(|(s, c)| {
-                s.silent_from(self.start, c.silence_s)
-                    .plus_s(SILENCE_SLACK_S)
-            });
-        let flood = self
-            .last_flood_summary
-            .map(|t| t.plus_s(FLOOD_SUMMARY_EVERY_S));
+            .map(|(s, c)| s.silent_from(self.start, c.silence_s));
+        let flood = self.last_flood_summary.map(|l| {
+            l.plus_s(FLOOD_SUMMARY_EVERY_S)
+                .first_when(|t| t.since(l) >= FLOOD_SUMMARY_EVERY_S)
+        });
         zones
             .chain(channels)
             .chain(silence)
@@ -380,32 +393,40 @@ impl Monitor {
     }
 
     fn run_due(&mut self, now: Timestamp, strict: bool) {
-        self.tick(now);
-        while let Some(due) = self.next_cycle(now, strict) {
-            for i in 0..self.zones.len() {
-                if self.zones[i].next_due == due {
-                    self.cycle_zone(i, due, now);
-                }
+        let mut last: Option<Timestamp> = None;
+        while let Some(at) = self
+            .poll_timeout()
+            .filter(|&at| at < now || (!strict && at == now))
+        {
+            if last.is_some_and(|l| at <= l) {
+                break; // no progress: never loop on a deadline
             }
-            let kiln = self
-                .meter
-                .report(due, self.price.as_ref().map(|(p, c)| (*p, c)));
-            self.push(Output::KilnState(kiln));
+            last = Some(at);
+            self.step(at, now);
         }
-        while let Some(ch) = self.poll_channel(now) {
-            self.push(Output::ChannelState(ch));
-        }
-        self.collect_alarms(now);
     }
 
-    /// The earliest zone cycle due at `now` (strictly before it if
-    /// `strict`).
-    fn next_cycle(&self, now: Timestamp, strict: bool) -> Option<Timestamp> {
-        self.zones
-            .iter()
-            .map(|z| z.next_due)
-            .filter(|&d| d < now || (!strict && d == now))
-            .min_by(|a, b| a.epoch_s().total_cmp(&b.epoch_s()))
+    /// The work due at deadline `at`, the driver being at `now` (≥ `at`;
+    /// far beyond it when a replay crosses a gap in its readings).
+    fn step(&mut self, at: Timestamp, now: Timestamp) {
+        self.tick(at);
+        let mut cycled = false;
+        for i in 0..self.zones.len() {
+            if self.zones[i].next_due == at {
+                self.cycle_zone(i, at, now);
+                cycled = true;
+            }
+        }
+        if cycled {
+            let kiln = self
+                .meter
+                .report(at, self.price.as_ref().map(|(p, c)| (*p, c)));
+            self.push(Output::KilnState(kiln));
+        }
+        while let Some(ch) = self.poll_channel(at, now) {
+            self.push(Output::ChannelState(ch));
+        }
+        self.collect_alarms(at);
     }
 
     /// At the end of a replay: every zone that has had readings since its
@@ -534,13 +555,15 @@ impl Monitor {
         self.zones.get(i).map_or(0, |z| z.cycles)
     }
 
-    /// The next channel state due for publication at `now` (its period, or
-    /// at once after a health change).
-    fn poll_channel(&mut self, now: Timestamp) -> Option<ChannelReport> {
-        let ch = (0..self.channels.len()).find(|&c| self.channel_due[c] <= now)?;
-        self.check_health(ch, now);
-        self.channel_due[ch] = now.plus_s(self.channel_period_s);
-        self.channel_state(ch, now)
+    /// The next channel state due at `at` (its period, or at once after a
+    /// health change); the one after it a period later, and not before the
+    /// driver's `now` (a replay crossing a gap publishes it once).
+    fn poll_channel(&mut self, at: Timestamp, now: Timestamp) -> Option<ChannelReport> {
+        let ch = (0..self.channels.len()).find(|&c| self.channel_due[c] <= at)?;
+        self.check_health(ch, at);
+        let next = at.plus_s(self.channel_period_s);
+        self.channel_due[ch] = if next < now { now } else { next };
+        self.channel_state(ch, at)
     }
 
     /// Channel `ch`'s state at `now`, as its next publication would say.

@@ -44,9 +44,12 @@ impl SourceState {
         now.since(self.seen.unwrap_or(start)) > limit_s
     }
 
-    /// When the source falls silent unless a reading comes first.
+    /// The first instant at which the source is silent unless a reading
+    /// comes first (silence is "longer than the limit").
     pub fn silent_from(&self, start: Timestamp, limit_s: f64) -> Timestamp {
-        self.seen.unwrap_or(start).plus_s(limit_s)
+        let seen = self.seen.unwrap_or(start);
+        seen.plus_s(limit_s)
+            .first_when(|t| self.silent_at(t, start, limit_s))
     }
 }
 
@@ -79,6 +82,13 @@ mod tests {
         assert!(s.silent_at(Timestamp::from_epoch_s(110.5), start, 10.0));
         s.seen = Some(Timestamp::from_epoch_s(120.0));
         assert!(!s.silent_at(Timestamp::from_epoch_s(125.0), start, 10.0));
-        assert_eq!(s.silent_from(start, 10.0), Timestamp::from_epoch_s(130.0));
+        let from = s.silent_from(start, 10.0);
+        assert!(s.silent_at(from, start, 10.0));
+        assert!(!s.silent_at(
+            Timestamp::from_epoch_s(from.epoch_s().next_down()),
+            start,
+            10.0
+        ));
+        assert!(from.since(Timestamp::from_epoch_s(130.0)) < 1e-9);
     }
 }
