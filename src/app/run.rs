@@ -210,12 +210,14 @@ impl Engine {
         }
     }
 
-    /// Handles the frames read until now, then drains at that instant: a
-    /// drain never judges a source silent while its frames wait in the
-    /// channel (the demo's clock runs fast), and at shutdown none is lost.
+    /// Handles the frames waiting in the channel (all stamped before now),
+    /// then drains at that instant: a drain never judges a source silent
+    /// while its frames wait (the demo's clock runs fast), and at shutdown
+    /// none is lost.
     fn drain_with(&mut self, rx: &mut mpsc::Receiver<SourceFrame>) {
+        let waiting = rx.len();
         let now = self.clock.now();
-        for _ in 0..rx.len() {
+        for _ in 0..waiting {
             match rx.try_recv() {
                 Ok(f) => self.monitor.handle_frame(f.source, &f.frame, f.time),
                 Err(_) => break,
