@@ -319,7 +319,7 @@ impl LineCounters {
 /// The IO edge owns the port and pumps bytes in:
 ///
 /// ```
-/// # use wallflux::acquire::line::LineParser;
+/// # use wallflux_core::protocol::line::LineParser;
 /// let mut parser = LineParser::new();
 /// let chunk = b"#1042 1=812.4C 2=640.1C 3=33.275mV cj=24.6C *5A9A\n";
 /// for outcome in parser.feed(chunk) {
