@@ -14,7 +14,8 @@
 //! - Ideal gas: `ρ = p/(R T)`, `R = 287.05` J/(kg·K), `β = 1/T_f`.
 //!
 //! # Convection (Incropera, DeWitt, Bergman & Lavine, *Fundamentals of Heat
-//! and Mass Transfer*, 6th ed., chapters 7 and 9)
+//! and Mass Transfer*, 6th ed., chapters 7 and 9; equation numbers from
+//! memory)
 //! - Vertical wall: Churchill–Chu over the whole range (eq. 9.26), length =
 //!   height.
 //! - Upper side of a hot plate, or lower side of a cold one: the larger of
