@@ -1,7 +1,8 @@
 //! Trend alerts keep their promise over a whole firing: the demo's firing
-//! (src/sim/firing.rs, a 28 h shuttle-kiln schedule of our own) on the demo
-//! kiln's three walls, each a finite-difference model (src/sim/wall.rs),
-//! through the pure engine in simulated time.
+//! (wallflux_sim::firing, a 28 h shuttle-kiln schedule of our own, scaled to
+//! each zone's set-point as in wallflux_sim::scenario) on the demo kiln's
+//! three walls, each a finite-difference model (wallflux_sim::wall), through
+//! the pure engine in simulated time.
 //!
 //! The promise (docs/alarms.md): at most one line per trend per
 //! `trend_repeat_min`, unless the estimated time to the limit halves; no
@@ -18,22 +19,12 @@ use wallflux::monitor::output::{Output, TrendEvent};
 use wallflux::monitor::zone::ZoneStatus;
 use wallflux::monitor::Monitor;
 use wallflux::sim::firing::FiringSchedule;
+use wallflux::sim::scenario::zone_setpoint_c;
 use wallflux::sim::wall::{Layer, WallSim};
 use wallflux::time::Timestamp;
 
 const T0: f64 = 1_800_000_000.0;
 const SCAN_S: f64 = 30.0;
-
-/// The demo's hot face at a set-point (as src/app/demo.rs: the door runs
-/// 2.5 % cooler, the roof 1 % hotter; demo data).
-fn hot_face_c(zone: &str, setpoint_c: f64, ambient_c: f64) -> f64 {
-    let factor = match zone {
-        "door" => 0.975,
-        "roof" => 1.01,
-        _ => 1.0,
-    };
-    ambient_c + (setpoint_c - ambient_c) * factor
-}
 
 struct Firing {
     settings: Arc<Settings>,
@@ -47,11 +38,17 @@ struct Firing {
 fn fire(config_text: &str) -> Firing {
     let text = config_text.replace("signal = \"millivolts\"\n", "");
     let settings = Arc::new(config::parse(&text, "demo.toml", None).expect("demo config"));
-    let schedule = FiringSchedule::demo();
+    // Each zone's own firing, as in the demo (sim::scenario).
+    let firings: Vec<FiringSchedule> = settings
+        .zones
+        .iter()
+        .map(|z| FiringSchedule::demo_to(zone_setpoint_c(z)))
+        .collect();
     let mut walls: Vec<WallSim> = settings
         .zones
         .iter()
-        .map(|z| {
+        .zip(&firings)
+        .map(|(z, firing)| {
             let layers = z
                 .layers
                 .iter()
@@ -60,8 +57,8 @@ fn fire(config_text: &str) -> Firing {
                     thickness_m: l.thickness_m,
                 })
                 .collect();
-            let mut w = WallSim::new(layers, 24, schedule.setpoint_c(0.0), z.surface).unwrap();
-            w.settle(hot_face_c(&z.name, schedule.setpoint_c(0.0), z.ambient_c));
+            let mut w = WallSim::new(layers, 24, firing.setpoint_c(0.0), z.surface).unwrap();
+            w.settle(firing.setpoint_c(0.0));
             w
         })
         .collect();
@@ -77,12 +74,12 @@ fn fire(config_text: &str) -> Firing {
             .wrapping_add(1_442_695_040_888_963_407);
         ((seed >> 11) as f64 / (1u64 << 53) as f64 - 0.5) * 0.3
     };
-    while t < schedule.duration_s() + 3600.0 {
+    let duration_s = firings.iter().map(|f| f.duration_s()).fold(0.0, f64::max);
+    while t < duration_s + 3600.0 {
         t += SCAN_S;
         let now = Timestamp::from_epoch_s(T0 + t);
-        let setpoint = schedule.setpoint_c(t);
-        for (w, z) in walls.iter_mut().zip(&settings.zones) {
-            w.step(SCAN_S, hot_face_c(&z.name, setpoint, z.ambient_c));
+        for (w, firing) in walls.iter_mut().zip(&firings) {
+            w.step(SCAN_S, firing.setpoint_c(t));
         }
         for (zi, z) in settings.zones.iter().enumerate() {
             for p in &z.probes {
@@ -120,11 +117,14 @@ fn fire(config_text: &str) -> Firing {
 
 #[test]
 fn a_whole_firing_gives_the_trend_lines_the_docs_promise_and_no_more() {
-    // The demo's roof is set up as a user would: with its firing set-point
-    // (its fibre's service limit, 1425 °C, lies above it).
+    // Every demo zone as a user would set it up: with its firing set-point
+    // (the roof's fibre's service limit, 1425 °C, lies above its 1250 °C).
     let f = fire(DEMO_CONFIG);
-    let roof = f.settings.zones.iter().find(|z| z.name.as_str() == "roof");
-    assert!(roof.and_then(|z| z.firing_setpoint_c).is_some());
+    assert!(f
+        .settings
+        .zones
+        .iter()
+        .all(|z| z.firing_setpoint_c.is_some()));
     let repeat_s = f.settings.trend.repeat_min * 60.0;
     let mut per_alarm: BTreeMap<usize, Vec<&TrendEvent>> = BTreeMap::new();
     for t in &f.trends {

@@ -86,7 +86,8 @@ pub struct DemoArgs {
     #[arg(long, default_value_t = 360.0, value_parser = parse_speed)]
     pub speed: f64,
     /// A configuration to demo instead of the built-in one (its sources are
-    /// replaced by simulated pseudo-terminals).
+    /// replaced by simulated pseudo-terminals; each zone fires to its
+    /// `firing_setpoint_c`, 1240 °C without one).
     #[arg(long, value_name = "FILE")]
     pub config: Option<PathBuf>,
 }

@@ -173,8 +173,9 @@ fn simulate(
         driver.set(kiln.time_s());
         for (si, pty) in ptys.iter_mut().enumerate() {
             if kiln.frame(settings, si, &mut line).is_ok() {
-                // A full pty buffer (daemon not reading) drops this scan,
-                // as a real box would overrun: never block the simulation.
+                // One frame at a time, read before the next: the line's
+                // buffer never fills (a full one would drop the frame, as a
+                // real box overruns, never block the simulation).
                 let _ = pty.master.write_all(line.as_bytes());
             }
         }

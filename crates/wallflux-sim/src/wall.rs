@@ -8,7 +8,8 @@
 //! hot face (`x = 0`) to the shell outer surface (`x = L`) and `q = −k ∂T/∂x`
 //! positive outward (DEVELOPERS.md conventions). Boundary conditions: Dirichlet at
 //! the hot face (the kiln atmosphere set-point), and at the shell
-//! `q(L) = surface_loss(T(L))` ([`wallflux_core::physics::surface`]).
+//! `q(L) = shell_loss(T(L))` (the simulator's own shell model,
+//! [`crate::shell`]).
 //!
 //! # Discretisation (vertex-centred finite volumes)
 //!
@@ -18,7 +19,7 @@
 //!   control volume straddles both materials, which gives continuity of flux.
 //! - Conductance of the segment between nodes `j` and `j+1`:
 //!   `G = k_m / Δx` with `k_m = ∫_{T_j}^{T_{j+1}} k dT / (T_{j+1} − T_j)`, the
-//!   Kirchhoff mean of the segment's material (`Property::mean_between`). A
+//!   Kirchhoff mean of the segment's material ([`crate::property`]). A
 //!   segment never spans two materials, so the series (harmonic-mean)
 //!   combination of resistances that a cell-centred grid needs at an interface
 //!   reduces here to one term per segment, and the Kirchhoff mean is the exact
@@ -40,7 +41,10 @@
 //! allocates nothing. This is not a hot path of the daemon.
 
 use wallflux_core::physics::material::{Material, Property};
-use wallflux_core::physics::surface::{surface_loss, SurfaceError, SurfaceParams, ZERO_CELSIUS_K};
+use wallflux_core::physics::surface::{SurfaceError, SurfaceParams};
+
+use crate::property::{bounds, integral, mean_between, value_at};
+use crate::shell::{shell_loss, ZERO_C_K};
 
 /// Most nodes a simulated wall may have (bounds the memory a bad
 /// configuration can ask for).
@@ -173,22 +177,23 @@ fn property_ok(p: &Property) -> bool {
             from_c,
             to_c,
         } => {
-            coefficients.iter().all(|a| a.is_finite())
-                && from_c < to_c
-                && p.bounds()
-                    .is_some_and(|(lo, hi)| lo > 0.0 && hi.is_finite())
+            coefficients.iter().all(|a| a.is_finite()) && from_c < to_c && {
+                let (lo, hi) = bounds(p);
+                lo > 0.0 && hi.is_finite()
+            }
         }
     }
 }
 
-/// Smallest and largest value a property takes (its table is clamped at the
-/// ends, so these bound it at every temperature).
+/// Smallest and largest value a property takes, widened by 1 % so that a
+/// polynomial's sampled bounds still bracket every value.
 fn property_bounds(p: &Property) -> (f64, f64) {
-    p.bounds().unwrap_or((f64::NAN, f64::NAN))
+    let (lo, hi) = bounds(p);
+    (0.99 * lo, 1.01 * hi)
 }
 
 fn temperature_ok(t_c: f64) -> bool {
-    t_c.is_finite() && t_c > -ZERO_CELSIUS_K
+    t_c.is_finite() && t_c > -ZERO_C_K
 }
 
 /// Temperature `T` at which `∫_T^{t_from} k dT' = target_w_m` (the Kirchhoff
@@ -211,7 +216,7 @@ fn invert_kirchhoff(k: &Property, t_from_c: f64, target_w_m: f64) -> f64 {
                 if !(mid > lo && mid < hi) {
                     break;
                 }
-                if k.integral(mid, t_from_c) > target_w_m {
+                if integral(k, mid, t_from_c) > target_w_m {
                     lo = mid;
                 } else {
                     hi = mid;
@@ -375,7 +380,7 @@ impl WallSim {
         for s in 0..self.seg_layer.len() {
             self.q_old_w_m2[s] = self.segment_flux(s, self.t_old[s], self.t_old[s + 1]);
         }
-        let q_shell_old = surface_loss(self.t_old[last], &self.surface).flux_w_m2;
+        let q_shell_old = shell_loss(self.t_old[last], &self.surface).flux_w_m2;
 
         self.t_iter.copy_from_slice(&self.t_old);
         self.t_iter[0] = hot_face_c;
@@ -409,7 +414,7 @@ impl WallSim {
         let q_in_new = self.segment_flux(0, self.t_iter[0], self.t_iter[1]);
         let q_in = theta * q_in_new + (1.0 - theta) * self.q_old_w_m2[0];
         let stored_0 = self.half_cell_enthalpy_change(0, self.t_old[0], self.t_iter[0]);
-        let q_shell_new = surface_loss(self.t_iter[last], &self.surface).flux_w_m2;
+        let q_shell_new = shell_loss(self.t_iter[last], &self.surface).flux_w_m2;
         self.energy_in_j_m2 += stored_0 + dt_s * q_in;
         self.energy_out_j_m2 += dt_s * (theta * q_shell_new + (1.0 - theta) * q_shell_old);
 
@@ -453,7 +458,7 @@ impl WallSim {
                 self.upper[r] = -theta * g_right;
                 rhs -= (1.0 - theta) * self.q_old_w_m2[j];
             } else {
-                let s = surface_loss(t_j, &self.surface);
+                let s = shell_loss(t_j, &self.surface);
                 diag += theta * (s.h_convection_w_m2k + s.h_radiation_w_m2k);
                 rhs += theta
                     * (s.h_convection_w_m2k * self.surface.ambient_c
@@ -473,7 +478,7 @@ impl WallSim {
     /// The steady flux q is the same through every layer. For a trial q the
     /// profile follows layer by layer from the hot face by inverting
     /// `∫_{T(x)}^{T_i} k dT = q (x − x_i)` (Kirchhoff transform); the shell
-    /// balance `q = surface_loss(T(L))` is then met by bisection on q, which
+    /// balance `q = shell_loss(T(L))` is then met by bisection on q, which
     /// is bracketed by the losses at the lowest and highest of the hot-face,
     /// air and surroundings temperatures (the loss rises with the shell
     /// temperature). The nodes are exact on any grid, up to round-off.
@@ -484,8 +489,8 @@ impl WallSim {
         let p = &self.surface;
         let lo = hot_face_c.min(p.ambient_c).min(p.surroundings_c);
         let hi = hot_face_c.max(p.ambient_c).max(p.surroundings_c);
-        let mut q_lo = surface_loss(lo, p).flux_w_m2;
-        let mut q_hi = surface_loss(hi, p).flux_w_m2;
+        let mut q_lo = shell_loss(lo, p).flux_w_m2;
+        let mut q_hi = shell_loss(hi, p).flux_w_m2;
         if !(q_lo.is_finite() && q_hi.is_finite()) {
             return;
         }
@@ -497,7 +502,7 @@ impl WallSim {
             // A trial flux that drives the shell below absolute zero is far
             // too large: treat it as a positive residual.
             let too_large = match self.shell_for_flux(hot_face_c, mid) {
-                Some(t_shell) => mid > surface_loss(t_shell, &self.surface).flux_w_m2,
+                Some(t_shell) => mid > shell_loss(t_shell, &self.surface).flux_w_m2,
                 None => true,
             };
             if too_large {
@@ -650,7 +655,7 @@ impl WallSim {
     /// `b` (Kirchhoff mean conductivity).
     fn segment_conductance(&self, s: usize, a_c: f64, b_c: f64) -> f64 {
         match self.layer_of_segment(s) {
-            Some(l) => l.material.conductivity_w_mk.mean_between(a_c, b_c) / self.segment_dx(s),
+            Some(l) => mean_between(&l.material.conductivity_w_mk, a_c, b_c) / self.segment_dx(s),
             None => 0.0,
         }
     }
@@ -666,7 +671,7 @@ impl WallSim {
         match self.layer_of_segment(s) {
             Some(l) => {
                 l.material.density_kg_m3
-                    * l.material.specific_heat_j_kgk.at(t_c)
+                    * value_at(&l.material.specific_heat_j_kgk, t_c)
                     * 0.5
                     * self.segment_dx(s)
             }
@@ -680,7 +685,7 @@ impl WallSim {
         match self.layer_of_segment(s) {
             Some(l) => {
                 l.material.density_kg_m3
-                    * l.material.specific_heat_j_kgk.integral(a_c, b_c)
+                    * integral(&l.material.specific_heat_j_kgk, a_c, b_c)
                     * 0.5
                     * self.segment_dx(s)
             }
@@ -696,7 +701,7 @@ impl WallSim {
         let mut add = |s: usize| {
             if let Some(l) = self.layer_of_segment(s) {
                 c += l.material.density_kg_m3
-                    * l.material.specific_heat_j_kgk.mean_between(a_c, b_c)
+                    * mean_between(&l.material.specific_heat_j_kgk, a_c, b_c)
                     * 0.5
                     * self.segment_dx(s);
             }
@@ -715,7 +720,7 @@ impl WallSim {
             return f64::NAN;
         };
         if j >= last {
-            return surface_loss(t_j, &self.surface).flux_w_m2;
+            return shell_loss(t_j, &self.surface).flux_w_m2;
         }
         let from_right =
             self.segment_flux(j, t_j, self.t_c[j + 1]) + self.half_cell_capacity(j, t_j) * rate;
@@ -913,21 +918,21 @@ mod tests {
         let shell = sim.shell_c();
 
         // (1) Series resistances (Incropera eq. 3.19), with our own surface
-        // correlation: q = (T_hot − T_s) / Σ(L/k) = surface_loss(T_s).
+        // correlation: q = (T_hot − T_s) / Σ(L/k) = shell_loss(T_s).
         let r = 0.230 / 1.30 + 0.115 / 0.17 + 0.010 / 50.0;
         assert!(
             (q - (1200.0 - shell) / r).abs() < 1e-6,
             "q {q}, shell {shell}"
         );
-        let q_shell = surface_loss(shell, &still_air_2m()).flux_w_m2;
+        let q_shell = shell_loss(shell, &still_air_2m()).flux_w_m2;
         assert!((q - q_shell).abs() < 1e-6, "q {q} vs shell loss {q_shell}");
 
         // (2) docs/references.md values, computed with ht's Churchill–Chu over
         // CoolProp air: shell 120.09 °C, q 1265.1 W/m², interfaces 976.17 and
-        // 120.34 °C. Our Table A.4 air gives h_conv ≈ 1 % lower (see the
-        // surface tests), so the shell runs warmer by
-        // Δh·(T_s − T_∞)/(h_tot + 1/R) ≈ 0.06 × 95 / (13.3 + 1.17) ≈ 0.4 K;
-        // a 2 % bound on h_conv allows 0.8 K. q moves by that over R
+        // 120.34 °C. The simulator's own air (sim::shell: Sutherland's law,
+        // ideal gas) and correlation differ from that; a difference Δh in
+        // h_conv moves the shell by Δh·(T_s − T_∞)/(h_tot + 1/R), so a 2 %
+        // bound on h_conv (0.12 × 95 / (13.3 + 1.17)) allows 0.8 K. q moves by that over R
         // (0.9 W/m²), the first interface by q·L/k (0.2 K).
         assert!((shell - 120.09).abs() < 0.8, "shell {shell}");
         assert!((q - 1265.1).abs() < 1.0, "q {q}");
@@ -959,7 +964,7 @@ mod tests {
         // q = 4842.39 W/m², midpoint 786.58 °C (T + bT²/2 linear in x).
         let k = |t: f64| 0.9 * (1.0 + 5e-4 * t);
         let table = Property::table("k", &[(0.0, k(0.0)), (1400.0, k(1400.0))]).expect("table");
-        let q = table.integral(300.0, 1200.0) / 0.23;
+        let q = integral(&table, 300.0, 1200.0) / 0.23;
         assert!((q - 4842.39).abs() < 0.01, "q {q}");
         let mid = invert_kirchhoff(&table, 1200.0, q * 0.115);
         assert!((mid - 786.58).abs() < 0.01, "midpoint {mid}");
@@ -1159,7 +1164,7 @@ mod tests {
                         WallSim::new(three_layers_tabulated(), 4, 25.0, surface).expect("wall");
                     sim.settle(hot);
                     let q = sim.flux_at(0.0);
-                    let loss = surface_loss(sim.shell_c(), &surface).flux_w_m2;
+                    let loss = shell_loss(sim.shell_c(), &surface).flux_w_m2;
                     assert!(
                         (q - loss).abs() < 1e-6 * q.abs().max(1.0),
                         "{surface:?} {hot}: {q} vs {loss}"

@@ -144,6 +144,13 @@ fn chi_square_quantile_against_scipy() {
 
 // --- Walls -------------------------------------------------------------------
 
+/// Steady temperatures of the core's model and the simulator differ by the
+/// difference of their independent shell models, K (derived in
+/// `steady_state_matches_the_simulator_and_references`).
+const SHELL_MODELS_K: f64 = 0.5;
+/// The same for fluxes, relative.
+const SHELL_MODELS_Q: f64 = 1e-3;
+
 fn still_air_2m() -> SurfaceParams {
     SurfaceParams {
         orientation: Orientation::Vertical,
@@ -519,19 +526,25 @@ fn steady_state_matches_the_simulator_and_references() {
             }
             // Kirchhoff-mean conductances make the steady nodes exact on any
             // grid; the simulator reaches the same state by bisection on q
-            // (another route): agreement to 1e-6 K at the depths both grids
-            // have as nodes (faces and interfaces; between its nodes the
-            // simulator interpolates a k(T)-curved profile linearly).
+            // (another route), at the depths both grids have as nodes (faces
+            // and interfaces; between its nodes the simulator interpolates a
+            // k(T)-curved profile linearly). The two shell models are
+            // independent (sim::shell: other air properties and
+            // correlations) and their losses differ by up to 0.6 % for this
+            // still-air wall at 30…300 °C: at the ≈ 111 °C shell that is
+            // δq ≈ 5 W/m², which moves the shell by δq/(h + 1/R) ≈ 0.4 K
+            // (h ≈ 12.8 W/(m²·K), R ≈ 0.85 m²·K/W) and the flux through the
+            // wall by 0.4 K/R ≈ 0.5 W/m² (0.05 %): 0.5 K and 0.1 % allowed.
             for x in [0.0, 0.230, 0.345, 0.355] {
                 let (t, want) = (m.temperature_at(x), sim.temperature_at(x));
                 assert!(
-                    (t - want).abs() < 1e-6,
+                    (t - want).abs() < SHELL_MODELS_K,
                     "{cells} cells at {x}: {t} vs {want}"
                 );
             }
             let q = sim.flux_at(0.1);
-            assert!((m.flux_hot_face_w_m2() - q).abs() < 1e-6 * q);
-            assert!((m.flux_shell_w_m2() - q).abs() < 1e-6 * q);
+            assert!((m.flux_hot_face_w_m2() - q).abs() < SHELL_MODELS_Q * q);
+            assert!((m.flux_shell_w_m2() - q).abs() < SHELL_MODELS_Q * q);
         }
     }
     // docs/references.md (ht + CoolProp): shell 120.09 °C, q 1265.1 W/m²,
@@ -670,9 +683,10 @@ fn estimator_for(materials: &[(Material, f64)], settings: TransientSettings) -> 
 fn initialiser_reproduces_a_settled_wall() {
     // A settled wall (sim::wall's steady solve, tabulated k) is steady and
     // layered with one flux, so the piecewise steady initial profile through
-    // exact readings must be that wall: faces and interfaces to 1e-6 K (the
-    // depths both grids share), both fluxes to 1e-6, from four probes or
-    // from one (then the shell balance closes it).
+    // exact readings must be that wall at the depths both grids share (faces
+    // and interfaces), from four probes or from one (then the shell balance
+    // closes it): to the difference of the two independent shell models
+    // (see `steady_state_matches_the_simulator_and_references`).
     let materials = three_materials_tabulated();
     let mut sim = WallSim::new(sim_layers(&materials), 40, 25.0, still_air_2m()).unwrap();
     sim.settle(1100.0);
@@ -702,15 +716,17 @@ fn initialiser_reproduces_a_settled_wall() {
         for x in [0.0, 0.230, 0.345, 0.355] {
             let (got, want) = (est.temperature_at(x), sim.temperature_at(x));
             assert!(
-                (got - want).abs() < 1e-6,
+                (got - want).abs() < SHELL_MODELS_K,
                 "{depths:?} at {x}: {got} vs {want}"
             );
         }
-        assert!((est.flux_hot_face_w_m2().0 - q).abs() < 1e-6 * q);
-        assert!((est.flux_shell_w_m2().0 - q).abs() < 1e-6 * q);
-        // Steady: no storage, no rate.
-        assert!(est.stored_w_m2().0.abs() < 1e-6 * q);
-        assert!(est.rate_c_per_h_at(0.2).abs() < 1e-6);
+        assert!((est.flux_hot_face_w_m2().0 - q).abs() < SHELL_MODELS_Q * q);
+        assert!((est.flux_shell_w_m2().0 - q).abs() < SHELL_MODELS_Q * q);
+        // Steady: no storage, no rate, up to the shell models' difference.
+        let stored = est.stored_w_m2().0;
+        assert!(stored.abs() < SHELL_MODELS_Q * q, "stored {stored} W/m²");
+        let rate = est.rate_c_per_h_at(0.2);
+        assert!(rate.abs() < 1e-6, "rate {rate} °C/h");
     }
 }
 
