@@ -13,7 +13,8 @@
 //! `∫_{T_in}^{T} k dT' = −q s`,
 //!
 //! which [`Conductivity::step`] solves for `T` (`s` may be negative, to
-//! march against the flux). `k > 0` makes `Θ` strictly increasing, so the
+//! march against the flux); [`Conductivity::inverse`] is the same inverse
+//! transform for a given potential, as the quadratic model needs it. `k > 0` makes `Θ` strictly increasing, so the
 //! root is unique; `k_min ≤ k ≤ k_max` brackets it between
 //! `T_in − q s / k_min` and `T_in − q s / k_max`.
 //!
@@ -100,13 +101,14 @@ impl<'a> Conductivity<'a> {
     /// The temperature a depth `s_m` further along a flux `q_w_m2` from a
     /// point at `from_c`: `Θ(T) = Θ(from) − q s` (see the module docs).
     pub fn step(&self, from_c: f64, q_w_m2: f64, s_m: f64) -> Result<f64, KirchhoffError> {
-        self.invert(from_c, q_w_m2 * s_m)
+        self.inverse(from_c, -(q_w_m2 * s_m))
     }
 
-    /// The temperature `T` with `∫_{from}^{T} k dT' = −drop_w_m`, by the
-    /// safeguarded Newton iteration of the module docs.
-    pub fn invert(&self, from_c: f64, drop_w_m: f64) -> Result<f64, KirchhoffError> {
-        let target = -drop_w_m;
+    /// The inverse transform: the temperature `T` with
+    /// `∫_{from}^{T} k dT' = theta_w_m`, by the safeguarded Newton iteration
+    /// of the module docs.
+    pub fn inverse(&self, from_c: f64, theta_w_m: f64) -> Result<f64, KirchhoffError> {
+        let target = theta_w_m;
         if let Property::Constant(k) = self.k {
             let t = from_c + target / k;
             return finite(t);
@@ -264,6 +266,25 @@ mod tests {
     }
 
     #[test]
+    fn inverse_undoes_the_integral_through_the_clamped_tails() {
+        // k = 0.9 (1 + 5e-4 T) tabulated on 0…1400 °C, constant beyond:
+        // Θ(T) = ∫_0^T k is exact for the table (trapezoids of a linear k),
+        // so the inverse transform returns every T.
+        let k = |t: f64| 0.9 * (1.0 + 5e-4 * t);
+        let p = Property::table("k", &[(0.0, k(0.0)), (1400.0, k(1400.0))]).unwrap();
+        let c = Conductivity::new(&p).unwrap();
+        for t in [-50.0, 0.0, 25.0, 300.0, 786.57, 1200.0, 1600.0] {
+            let back = c.inverse(0.0, p.integral(0.0, t)).unwrap();
+            assert!((back - t).abs() < 1e-9, "{t} → {back}");
+        }
+        let two = Property::Constant(2.0);
+        assert_eq!(
+            Conductivity::new(&two).unwrap().inverse(10.0, 40.0),
+            Ok(30.0)
+        );
+    }
+
+    #[test]
     fn a_step_back_returns_to_the_start() {
         // Θ is linear in depth, so stepping s then −s is the identity.
         let k = linear_k(0.5, 6e-4);
@@ -296,11 +317,11 @@ mod tests {
             Err(KirchhoffError::NonFinite)
         );
         assert_eq!(
-            c.invert(1000.0, f64::INFINITY),
+            c.inverse(1000.0, f64::INFINITY),
             Err(KirchhoffError::NonFinite)
         );
         let k = Property::Constant(1.0);
         let c = Conductivity::new(&k).unwrap();
-        assert_eq!(c.invert(f64::NAN, 1.0), Err(KirchhoffError::NonFinite));
+        assert_eq!(c.inverse(f64::NAN, 1.0), Err(KirchhoffError::NonFinite));
     }
 }
