@@ -17,8 +17,9 @@
 //!    `(1, u, u²)/σ | y/σ` is folded into a 3×3 upper-triangular `R` and a
 //!    right-hand side `z` by Givens rotations, one row at a time (the
 //!    row-updating QR least-squares method; Golub & Van Loan, *Matrix
-//!    Computations*, Givens QR and least squares). The condition number is
-//!    that of the weighted design matrix, not its square, and no row is stored.
+//!    Computations*, Givens QR and least squares; [`crate::physics::linalg`]).
+//!    The condition number is that of the weighted design matrix, not its
+//!    square, and no row is stored.
 //!
 //! The coefficients in `u` are `d = R⁻¹ z`, their covariance
 //! `(AᵀWA)⁻¹ = R⁻¹ R⁻ᵀ`. They are mapped back to the coefficients in `x`
@@ -34,6 +35,8 @@
 //! by. A caller that prefers the a-posteriori estimate multiplies variances by
 //! [`PolyFit::reduced_chi2`] (Press et al., *Numerical Recipes*, "General
 //! linear least squares", discuss both choices).
+
+use crate::physics::linalg::GivensQr;
 
 /// Highest polynomial degree supported.
 pub const MAX_DEGREE: usize = 2;
@@ -275,45 +278,18 @@ where
     };
 
     // Pass 2: fold each weighted row into R and z by Givens rotations.
-    let mut r = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
-    let mut z = [0.0_f64; MAX_COEFFS];
+    let mut qr = GivensQr::<MAX_COEFFS>::new(p);
     for (x, y, sigma) in points.clone() {
         let sqrt_w = 1.0 / sigma;
         let u = (x - center) / half_span;
-        let mut row = [sqrt_w, sqrt_w * u, sqrt_w * u * u];
-        let mut rhs = sqrt_w * y;
-        givens_fold(&mut r, &mut z, &mut row, &mut rhs, p);
+        qr.fold([sqrt_w, sqrt_w * u, sqrt_w * u * u], sqrt_w * y);
     }
-
-    // Rank: R_jj against the norm of column j (‖a_j‖² = Σ_i R_ij², Q being
-    // orthogonal), so the test is independent of the overall weight scale.
-    for j in 0..p {
-        let norm = r
-            .iter()
-            .take(j + 1)
-            .fold(0.0_f64, |acc, row| acc.hypot(row[j]));
-        let independent = r[j][j] > RANK_TOLERANCE * norm; // false for NaN too
-        if !independent {
-            return Err(FitError::Singular);
-        }
+    if !qr.columns_independent(RANK_TOLERANCE) {
+        return Err(FitError::Singular);
     }
-
-    // d = R⁻¹ z by back substitution; cov_d = R⁻¹ R⁻ᵀ.
-    let mut d = [0.0_f64; MAX_COEFFS];
-    for i in (0..p).rev() {
-        let mut s = z[i];
-        for k in (i + 1)..p {
-            s -= r[i][k] * d[k];
-        }
-        d[i] = s / r[i][i];
-    }
-    let r_inv = upper_inverse(&r, p);
-    let mut cov_d = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
-    for i in 0..p {
-        for j in 0..p {
-            cov_d[i][j] = (i.max(j)..p).map(|k| r_inv[i][k] * r_inv[j][k]).sum();
-        }
-    }
+    // d = R⁻¹ z; cov_d = R⁻¹ R⁻ᵀ.
+    let d = qr.solve();
+    let cov_d = qr.covariance();
 
     // Back to x: y = d0 + d1 u + d2 u², u = (x − m)/h, so
     // c0 = d0 − d1 m/h + d2 m²/h², c1 = d1/h − 2 d2 m/h², c2 = d2/h².
@@ -370,54 +346,6 @@ where
         dof: n - p,
         centered,
     })
-}
-
-/// Fold one row `(row | rhs)` into the triangular factor `R | z` with Givens
-/// rotations that zero the row's entries left to right; `p ≤ 3` columns.
-fn givens_fold(
-    r: &mut [[f64; MAX_COEFFS]; MAX_COEFFS],
-    z: &mut [f64; MAX_COEFFS],
-    row: &mut [f64; MAX_COEFFS],
-    rhs: &mut f64,
-    p: usize,
-) {
-    for j in 0..p.min(MAX_COEFFS) {
-        let a = row[j];
-        if a == 0.0 {
-            continue;
-        }
-        let rjj = r[j][j];
-        let hyp = rjj.hypot(a);
-        let (c, s) = (rjj / hyp, a / hyp);
-        r[j][j] = hyp;
-        for k in (j + 1)..p.min(MAX_COEFFS) {
-            let (rk, ak) = (r[j][k], row[k]);
-            r[j][k] = c * rk + s * ak;
-            row[k] = c * ak - s * rk;
-        }
-        let zj = z[j];
-        z[j] = c * zj + s * *rhs;
-        *rhs = c * *rhs - s * zj;
-    }
-}
-
-/// Inverse of the leading `p × p` block of an upper-triangular matrix with a
-/// non-zero diagonal (checked by the caller), column by column.
-fn upper_inverse(r: &[[f64; MAX_COEFFS]; MAX_COEFFS], p: usize) -> [[f64; MAX_COEFFS]; MAX_COEFFS] {
-    // Column j of R⁻¹ solves R col = e_j; back substitution from row j up.
-    let mut inv = [[0.0_f64; MAX_COEFFS]; MAX_COEFFS];
-    for j in 0..p.min(MAX_COEFFS) {
-        let mut col = [0.0_f64; MAX_COEFFS];
-        for i in (0..=j).rev() {
-            let unit = if i == j { 1.0 } else { 0.0 };
-            let s: f64 = ((i + 1)..=j).map(|k| r[i][k] * col[k]).sum();
-            col[i] = (unit - s) / r[i][i];
-        }
-        for (row, c) in inv.iter_mut().zip(col) {
-            row[j] = c;
-        }
-    }
-    inv
 }
 
 /// Ordinary least-squares slope of `values` against `times` (e.g. °C per

@@ -24,8 +24,8 @@
 //! hot face: in each layer `Θ(T) = Θ(T_in) − q s` is solved for `T` (`k > 0`,
 //! so `Θ` is strictly increasing; safeguarded Newton, falling back to
 //! bisection inside a bracket set by the smallest and largest `k` of the
-//! layer; exact for a constant `k`, and [`Property::integral`] is exact for a
-//! piecewise-linear table), then at the layer's cold side the contact
+//! layer; exact for a constant `k`; the step shared with the transient
+//! model, [`crate::physics::kirchhoff`]), then at the layer's cold side the contact
 //! resistance drops the temperature by `q R_c` (the thermal circuit of
 //! Incropera ch. 3, eq. 3.19, with a contact resistance, §3.1.4) and the next
 //! layer starts. With constant `k` this is exactly the series resistance
@@ -97,7 +97,9 @@ use heapless::Vec as HVec;
 
 use crate::bounded::{Full, PushWithin};
 use crate::physics::fit::FitError;
-use crate::physics::material::{Material, Property};
+use crate::physics::kirchhoff::{Conductivity, KirchhoffError};
+use crate::physics::linalg::GivensQr;
+use crate::physics::material::Material;
 use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
 use crate::physics::surface::{surface_loss, SurfaceError, SurfaceParams, ZERO_CELSIUS_K};
 
@@ -130,10 +132,6 @@ const Z_THREE_SIGMA: f64 = 2.782_174_966_887_196;
 /// Step halvings tried before a Gauss–Newton step is declared unable to lower
 /// χ².
 const MAX_HALVINGS: usize = 40;
-
-/// Most safeguarded-Newton steps of one Kirchhoff inversion (Newton converges
-/// in a handful; bisection alone would need about 60 per 2⁻⁵³ of range).
-const MAX_INVERSION_STEPS: usize = 200;
 
 /// Most bisection steps of [`LayeredWall::solve_with_surface`].
 const MAX_BISECTIONS: usize = 300;
@@ -370,13 +368,11 @@ pub fn model_check(chi2: f64, dof: usize) -> ModelCheck {
     }
 }
 
-/// A validated layer: conductivity, nominal geometry and the bounds of `k`
-/// that bracket a Kirchhoff inversion.
+/// A validated layer: conductivity (with the bounds that bracket its
+/// Kirchhoff steps) and nominal geometry.
 #[derive(Debug, Clone, Copy)]
 struct Geom<'a> {
-    k: &'a Property,
-    k_min: f64,
-    k_max: f64,
+    k: Conductivity<'a>,
     start_m: f64,
     thickness_m: f64,
     contact_m2k_w: f64,
@@ -861,13 +857,10 @@ impl<'a> LayeredWall<'a> {
             if layer == last && contact_m2k_w != 0.0 {
                 return Err(LayeredError::ContactAtShell { contact_m2k_w });
             }
-            let k = &spec.material.conductivity_w_mk;
-            let (k_min, k_max) =
-                conductivity_bounds(k).ok_or(LayeredError::BadConductivity { layer })?;
+            let k = Conductivity::new(&spec.material.conductivity_w_mk)
+                .map_err(|_| LayeredError::BadConductivity { layer })?;
             let g = Geom {
                 k,
-                k_min,
-                k_max,
                 start_m,
                 thickness_m,
                 contact_m2k_w,
@@ -882,39 +875,6 @@ impl<'a> LayeredWall<'a> {
             .into());
         }
         Ok(geom)
-    }
-}
-
-/// `(min k, max k)` of a valid conductivity, `None` for an invalid one (a
-/// non-positive or non-finite value, an empty or unordered table): the
-/// fields of [`Property`] are public, so a value may not have passed its
-/// checked constructor, and [`Property::at`] would panic on an empty table.
-fn conductivity_bounds(k: &Property) -> Option<(f64, f64)> {
-    let positive = |v: f64| v.is_finite() && v > 0.0;
-    match k {
-        Property::Constant(v) => positive(*v).then_some((*v, *v)),
-        Property::Table(pts) => {
-            if pts.is_empty() {
-                return None;
-            }
-            let mut bounds = (f64::INFINITY, 0.0_f64);
-            let mut prev_t = f64::NEG_INFINITY;
-            for &(t, v) in pts {
-                if !(t.is_finite() && t > prev_t && positive(v)) {
-                    return None;
-                }
-                prev_t = t;
-                bounds = (bounds.0.min(v), bounds.1.max(v));
-            }
-            Some(bounds)
-        }
-        Property::Polynomial { coefficients, .. } => {
-            if !coefficients.iter().all(|a| a.is_finite()) {
-                return None;
-            }
-            k.bounds()
-                .filter(|&(lo, hi)| positive(lo) && hi.is_finite())
-        }
     }
 }
 
@@ -983,69 +943,6 @@ fn checked_probes(
     Ok(probes)
 }
 
-/// `T` with `∫_{from}^{T} k dT' = −drop_w_m`, the Kirchhoff step of a layer
-/// over a depth `s` carrying `q` (`drop_w_m = q s`).
-///
-/// Exact for a constant `k`. For a table, `k_min ≤ k ≤ k_max` brackets `T`
-/// between `from − drop/k_min` and `from − drop/k_max`; inside the bracket
-/// a Newton step on `F(T) = ∫_{from}^{T} k − (−drop)` (`F' = k(T) > 0`) is
-/// taken when it stays inside, a bisection otherwise (the safeguarded Newton
-/// method of Press et al., *Numerical Recipes*, §9.4, `rtsafe`). `Θ` is a
-/// piecewise quadratic for a piecewise-linear table, so Newton converges
-/// quadratically within a segment.
-fn invert_kirchhoff(g: &Geom<'_>, from_c: f64, drop_w_m: f64) -> Result<f64, LayeredError> {
-    let target = -drop_w_m;
-    if let Property::Constant(k) = g.k {
-        let t = from_c + target / k;
-        return if t.is_finite() {
-            Ok(t)
-        } else {
-            Err(FitError::NonFinite.into())
-        };
-    }
-    if target == 0.0 {
-        return Ok(from_c);
-    }
-    let a = from_c + target / g.k_min;
-    let b = from_c + target / g.k_max;
-    if !(a.is_finite() && b.is_finite()) {
-        return Err(FitError::NonFinite.into());
-    }
-    let (mut lo, mut hi) = (a.min(b), a.max(b));
-    let mut t = (from_c + target / g.k.at(from_c)).clamp(lo, hi);
-    for _ in 0..MAX_INVERSION_STEPS {
-        let f = g.k.integral(from_c, t) - target;
-        if f == 0.0 {
-            return Ok(t);
-        }
-        if f > 0.0 {
-            hi = t;
-        } else {
-            lo = t;
-        }
-        let newton = t - f / g.k.at(t);
-        let next = if newton > lo && newton < hi {
-            newton
-        } else {
-            let mid = 0.5 * (lo + hi);
-            if !(mid > lo && mid < hi) {
-                // The bracket is two adjacent doubles: done.
-                return Ok(mid);
-            }
-            mid
-        };
-        // Rounding of F is a few ulps of Θ ~ k (|T| + |T − from|).
-        let tol = 4.0 * f64::EPSILON * (next.abs() + (next - from_c).abs());
-        if (next - t).abs() <= tol {
-            return Ok(next);
-        }
-        t = next;
-    }
-    Err(LayeredError::NotConverged {
-        iterations: MAX_INVERSION_STEPS,
-    })
-}
-
 /// One Kirchhoff step of layer `g` from `from` over depth `s_m` at flux
 /// `q`, with the sensitivities: `k(T) ∂T = k(T_in) ∂T_in − s ∂q`, and, in
 /// the hot layer (whose depths move with its thickness), `− q ∂L_hot`.
@@ -1056,7 +953,10 @@ fn step(
     s_m: f64,
     hot_layer: bool,
 ) -> Result<Point, LayeredError> {
-    let t_c = invert_kirchhoff(g, from.t_c, q_w_m2 * s_m)?;
+    let t_c = g.k.step(from.t_c, q_w_m2, s_m).map_err(|e| match e {
+        KirchhoffError::NonFinite => LayeredError::from(FitError::NonFinite),
+        KirchhoffError::NotConverged { iterations } => LayeredError::NotConverged { iterations },
+    })?;
     let k_w_mk = g.k.at(t_c);
     let ratio = from.k_w_mk / k_w_mk;
     let d_l_hot = if hot_layer { q_w_m2 } else { 0.0 };
@@ -1310,76 +1210,26 @@ where
 }
 
 /// The least-squares solution `δ` of `J δ ≈ r` over the weighted rows, and
-/// the covariance `(JᵀJ)⁻¹ = R⁻¹R⁻ᵀ`, for `np ≤ 3` unknowns.
-///
-/// Each row is folded into a triangular `R | z` by Givens rotations (the
-/// row-updating QR least-squares method; Golub & Van Loan, *Matrix
-/// Computations*), as in [`crate::physics::fit`]; the rank test compares `R_jj` with
-/// the norm of column `j`, so it does not depend on the units of the
-/// unknowns.
-// Triangular index arithmetic reads better with indices than with iterators.
-#[allow(clippy::type_complexity, clippy::needless_range_loop)]
+/// the covariance `(JᵀJ)⁻¹ = R⁻¹R⁻ᵀ`, for `np ≤ 3` unknowns, by the Givens
+/// QR of [`crate::physics::linalg`] (shared with [`crate::physics::fit`]);
+/// the rank test does not depend on the units of the unknowns.
+#[allow(clippy::type_complexity)]
 fn least_squares_step(
     rows: &[Row],
     np: usize,
 ) -> Result<([f64; MAX_UNKNOWNS], [[f64; MAX_UNKNOWNS]; MAX_UNKNOWNS]), LayeredError> {
-    let p = np.min(MAX_UNKNOWNS);
-    let mut r = [[0.0_f64; MAX_UNKNOWNS]; MAX_UNKNOWNS];
-    let mut z = [0.0_f64; MAX_UNKNOWNS];
+    let mut qr = GivensQr::<MAX_UNKNOWNS>::new(np);
     for row in rows {
-        let mut a = row.j;
-        let mut rhs = row.r;
-        if !(rhs.is_finite() && a.iter().take(p).all(|v| v.is_finite())) {
+        if !(row.r.is_finite() && row.j.iter().take(np).all(|v| v.is_finite())) {
             return Err(FitError::NonFinite.into());
         }
-        for j in 0..p {
-            let aj = a[j];
-            if aj == 0.0 {
-                continue;
-            }
-            let hyp = r[j][j].hypot(aj);
-            let (c, s) = (r[j][j] / hyp, aj / hyp);
-            r[j][j] = hyp;
-            for k in (j + 1)..p {
-                let (rk, ak) = (r[j][k], a[k]);
-                r[j][k] = c * rk + s * ak;
-                a[k] = c * ak - s * rk;
-            }
-            let zj = z[j];
-            z[j] = c * zj + s * rhs;
-            rhs = c * rhs - s * zj;
-        }
+        qr.fold(row.j, row.r);
     }
-    for j in 0..p {
-        let norm = r
-            .iter()
-            .take(j + 1)
-            .fold(0.0_f64, |acc, row| acc.hypot(row[j]));
-        let independent = r[j][j] > RANK_TOLERANCE * norm; // false for NaN too
-        if !independent {
-            return Err(FitError::Singular.into());
-        }
+    if !qr.columns_independent(RANK_TOLERANCE) {
+        return Err(FitError::Singular.into());
     }
-    let mut delta = [0.0_f64; MAX_UNKNOWNS];
-    for i in (0..p).rev() {
-        let s: f64 = ((i + 1)..p).map(|k| r[i][k] * delta[k]).sum();
-        delta[i] = (z[i] - s) / r[i][i];
-    }
-    // R⁻¹ column by column (back substitution), then R⁻¹ R⁻ᵀ.
-    let mut inv = [[0.0_f64; MAX_UNKNOWNS]; MAX_UNKNOWNS];
-    for j in 0..p {
-        for i in (0..=j).rev() {
-            let unit = if i == j { 1.0 } else { 0.0 };
-            let s: f64 = ((i + 1)..=j).map(|k| r[i][k] * inv[k][j]).sum();
-            inv[i][j] = (unit - s) / r[i][i];
-        }
-    }
-    let mut cov = [[0.0_f64; MAX_UNKNOWNS]; MAX_UNKNOWNS];
-    for i in 0..p {
-        for j in 0..p {
-            cov[i][j] = (i.max(j)..p).map(|k| inv[i][k] * inv[j][k]).sum();
-        }
-    }
+    let delta = qr.solve();
+    let cov = qr.covariance();
     let finite = delta
         .iter()
         .chain(cov.iter().flatten())
@@ -1452,6 +1302,7 @@ fn solution_is_finite(s: &LayeredSolution) -> bool {
 mod tests {
     use super::*;
     use crate::physics::fit::test_rng::{mean_std, SplitMix64};
+    use crate::physics::material::Property;
     use crate::physics::surface::Orientation;
 
     fn close(got: f64, want: f64, rel: f64) -> bool {

@@ -287,43 +287,6 @@ impl Property {
         }
     }
 
-    /// The temperature `T` with `∫_{ref_c}^{T} k dT = theta` (the inverse
-    /// Kirchhoff transform), for a strictly positive property: Newton steps
-    /// on the exact integral, kept inside a bisection bracket on
-    /// −273.15…10 000 °C. None if `theta` is not finite or out of reach.
-    pub fn inverse_integral(&self, ref_c: f64, theta: f64) -> Option<f64> {
-        if !theta.is_finite() || !ref_c.is_finite() {
-            return None;
-        }
-        let (mut lo, mut hi) = (-273.15, 10_000.0);
-        let f = |t: f64| self.integral(ref_c, t) - theta;
-        if f(lo) > 0.0 || f(hi) < 0.0 {
-            return None;
-        }
-        let mut t = (ref_c + theta / self.at(ref_c)).clamp(lo, hi);
-        for _ in 0..100 {
-            let ft = f(t);
-            if ft.abs() <= 1e-12 * theta.abs().max(1.0) {
-                return Some(t);
-            }
-            if ft > 0.0 {
-                hi = t;
-            } else {
-                lo = t;
-            }
-            let newton = t - ft / self.at(t);
-            t = if newton > lo && newton < hi {
-                newton
-            } else {
-                0.5 * (lo + hi)
-            };
-            if hi - lo < 1e-12 {
-                return Some(t);
-            }
-        }
-        Some(t)
-    }
-
     /// Mean value over `[a, b]`: `∫k dT / (b − a)` (the value at `a` when the
     /// interval is empty). For conductivity this is the `k_m` of the
     /// Kirchhoff transform: `q = k_m (T1 − T2) / L` for a slab without source.
@@ -439,24 +402,6 @@ mod tests {
         assert!((got - want).abs() < 1e-9 * want, "{got} vs {want}");
         assert!((p.at(450.0) - k(450.0)).abs() < 1e-12);
         assert!((p.slope_at(450.0) - 0.9 * 5e-4).abs() < 1e-12);
-    }
-
-    /// The inverse Kirchhoff transform undoes the integral (round trip on
-    /// the linear table above, and through a clamped tail).
-    #[test]
-    fn inverse_integral_round_trips() {
-        let k = |t: f64| 0.9 * (1.0 + 5e-4 * t);
-        let p = Property::table("k", &[(0.0, k(0.0)), (1400.0, k(1400.0))]).unwrap();
-        for t in [-50.0, 0.0, 25.0, 300.0, 786.57, 1200.0, 1600.0] {
-            let theta = p.integral(0.0, t);
-            let back = p.inverse_integral(0.0, theta).unwrap();
-            assert!((back - t).abs() < 1e-9, "{t} → {back}");
-        }
-        assert_eq!(
-            Property::Constant(2.0).inverse_integral(10.0, 40.0),
-            Some(30.0)
-        );
-        assert_eq!(p.inverse_integral(0.0, f64::NAN), None);
     }
 
     /// Scaling multiplies every value and so every integral (linearity of

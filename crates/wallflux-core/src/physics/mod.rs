@@ -1,7 +1,9 @@
 //! The physics: pure functions over values, no IO, no clock.
 
 pub mod fit;
+pub mod kirchhoff;
 pub mod layered;
+pub mod linalg;
 pub mod material;
 pub mod profile;
 pub mod surface;

@@ -43,7 +43,10 @@
 //! `monitor::wall::Wall::budget`).
 
 use crate::physics::fit::{fit_points, FitError, PolyFit};
-use crate::physics::material::Material;
+use crate::physics::kirchhoff::Conductivity;
+use crate::physics::material::{Material, Property};
+use crate::physics::surface::ZERO_CELSIUS_K;
+use crate::physics::transient::MAX_TEMPERATURE_C;
 
 /// Reference temperature of the Kirchhoff potential Θ, °C.
 pub const THETA_REF_C: f64 = 0.0;
@@ -189,10 +192,7 @@ impl QuadraticWall<'_> {
             fit_points(points, 1)?
         };
 
-        let to_t = |th: f64| {
-            k.inverse_integral(THETA_REF_C, th)
-                .ok_or(FitError::NonFinite)
-        };
+        let to_t = |th: f64| temperature_of(k, th).ok_or(FitError::NonFinite);
         let hot_face_c = to_t(fit.value(0.0))?;
         let shell_c = to_t(fit.value(l))?;
         // Fourier's law, q = −k dT/dx = −dΘ/dx: the slope of the fit is the
@@ -279,9 +279,7 @@ impl QuadraticWall<'_> {
     /// Fitted temperature at `depth_m` below the hot face, °C (the fitted
     /// potential turned back into a temperature); None if out of reach.
     pub fn fitted_c(&self, sol: &WallSolution, depth_m: f64) -> Option<f64> {
-        self.material
-            .conductivity_w_mk
-            .inverse_integral(THETA_REF_C, sol.fit.value(depth_m))
+        temperature_of(&self.material.conductivity_w_mk, sol.fit.value(depth_m))
     }
 
     /// Standard uncertainty of [`Self::fitted_c`], °C: σ_Θ / k(T).
@@ -295,6 +293,20 @@ impl QuadraticWall<'_> {
 
 /// Number of distinct depths (within [`DEPTH_TOLERANCE_M`]), counted up to 3:
 /// all the degree choice needs, in at most 3 comparisons per sample.
+/// The temperature whose potential `∫_{THETA_REF_C}^{T} k dT` is `theta`
+/// (the inverse Kirchhoff transform of [`crate::physics::kirchhoff`]); `None`
+/// for an invalid conductivity, a potential that is not finite, or a
+/// temperature outside −273.15 °C … [`MAX_TEMPERATURE_C`].
+fn temperature_of(k: &Property, theta: f64) -> Option<f64> {
+    let t = Conductivity::new(k)
+        .ok()?
+        .inverse(THETA_REF_C, theta)
+        .ok()?;
+    (-ZERO_CELSIUS_K..=MAX_TEMPERATURE_C)
+        .contains(&t)
+        .then_some(t)
+}
+
 fn distinct_depths_up_to_3(samples: &[ProbeSample]) -> usize {
     let mut seen = [0.0_f64; 3];
     let mut count = 0;

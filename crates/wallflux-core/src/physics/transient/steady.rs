@@ -5,8 +5,11 @@
 //! layer. In each layer the Kirchhoff potential `Θ(T) = ∫k dT` is linear in
 //! `x`, so from a point `(x_a, T_a)` the temperature at `x_b` in the same
 //! layer solves `∫_{T_b}^{T_a} k dT = q (x_b − x_a)` (Incropera §3.2,
-//! variable conductivity); marching layer by layer gives the profile of any
-//! flux from any point ([`Stack::march`]).
+//! variable conductivity; the step shared with the layered model,
+//! [`crate::physics::kirchhoff`]); marching layer by layer gives the profile
+//! of any flux from any point ([`Stack::march`]). Unlike the layered fit's
+//! march this one goes from any depth in either direction and carries no
+//! Jacobian.
 //!
 //! The initial profile goes through the readings (averaged where probes
 //! share a depth), each span between adjacent probe depths being the steady
@@ -30,57 +33,16 @@ use heapless::Vec as HVec;
 use super::model::{temperature_ok, ShellBoundary};
 use super::{MAX_NODES, MAX_READINGS};
 use crate::bounded::{Full, PushWithin};
-use crate::physics::material::{Material, Property};
+use crate::physics::kirchhoff::Conductivity;
+use crate::physics::material::Material;
 use crate::physics::profile::{ProbeSample, DEPTH_TOLERANCE_M};
-
-/// Most Newton iterations of one Kirchhoff inversion.
-const MAX_NEWTON_ITERATIONS: usize = 60;
 
 /// Most bisection steps on a flux (more than f64 needs).
 const MAX_BISECTIONS: usize = 200;
 
-/// The temperature `T` with `∫_T^{from} k dT = target_w_m`: exact for a
-/// constant `k`; for a table, Newton's method kept inside the bracket
-/// `[from − target/k_min, from − target/k_max]` (bisection when a Newton
-/// step would leave it).
-pub(super) fn invert_kirchhoff(k: &Property, from_c: f64, target_w_m: f64) -> f64 {
-    match k {
-        Property::Constant(kv) => from_c - target_w_m / kv,
-        Property::Table(_) | Property::Polynomial { .. } => {
-            if target_w_m == 0.0 {
-                return from_c;
-            }
-            let (k_min, k_max) = bounds(k);
-            let a = from_c - target_w_m / k_min;
-            let b = from_c - target_w_m / k_max;
-            let (mut lo, mut hi) = (a.min(b), a.max(b));
-            let mut t = (from_c - target_w_m / k.at(from_c)).clamp(lo, hi);
-            for _ in 0..MAX_NEWTON_ITERATIONS {
-                // f(T) = ∫_T^from k − target falls as T rises, f' = −k(T).
-                let f = k.integral(t, from_c) - target_w_m;
-                if f > 0.0 {
-                    lo = t;
-                } else {
-                    hi = t;
-                }
-                let mut next = t + f / k.at(t);
-                if !(next > lo && next < hi) {
-                    next = 0.5 * (lo + hi);
-                }
-                if (next - t).abs() <= 1e-12 * t.abs().max(1.0) {
-                    return next;
-                }
-                t = next;
-            }
-            t
-        }
-    }
-}
-
-/// Smallest and largest value of a property (a table is clamped at its
-/// ends, so these bound it at every temperature).
-fn bounds(p: &Property) -> (f64, f64) {
-    p.bounds().unwrap_or((f64::NAN, f64::NAN))
+/// The checked conductivity of a layer's material (`None` if invalid).
+fn conductivity(m: &Material) -> Option<Conductivity<'_>> {
+    Conductivity::new(&m.conductivity_w_mk).ok()
 }
 
 /// The layers as the steady profile needs them.
@@ -106,7 +68,7 @@ impl Stack<'_> {
 
     /// Steady temperature at `to_m` with flux `q` through a point at
     /// `from_m` at `from_c` (either direction), or `None` if it falls to
-    /// absolute zero or is not finite. A contact resistance `R` on a
+    /// absolute zero, is not finite or a conductivity is invalid. A contact resistance `R` on a
     /// layer's cold side drops the temperature by `q R` where the path
     /// crosses it (Incropera §3.1.4). A point exactly on an interface is on
     /// its hot side, except `to_m` when `to_cold_side` is set.
@@ -130,18 +92,19 @@ impl Stack<'_> {
             .iter()
             .position(|&e| e >= from_m)
             .unwrap_or(layers - 1);
+        // One layer's Kirchhoff step from `x` to `x_next`; `None` if the
+        // conductivity is invalid or the step meets a non-finite number.
         let piece = |i: usize, x_next: f64, x: &mut f64, t: &mut f64| {
-            *t = invert_kirchhoff(
-                &self.materials[i].conductivity_w_mk,
-                *t,
-                q_w_m2 * (x_next - *x),
-            );
+            *t = conductivity(&self.materials[i])?
+                .step(*t, q_w_m2, x_next - *x)
+                .ok()?;
             *x = x_next;
+            Some(())
         };
         if to_m >= from_m {
             loop {
                 let end = self.ends_m[i];
-                piece(i, to_m.min(end), &mut x, &mut t);
+                piece(i, to_m.min(end), &mut x, &mut t)?;
                 if to_m < end || i + 1 == layers || (to_m == end && !to_cold_side) {
                     break;
                 }
@@ -154,7 +117,7 @@ impl Stack<'_> {
         } else {
             loop {
                 let start = self.start_of(i);
-                piece(i, to_m.max(start), &mut x, &mut t);
+                piece(i, to_m.max(start), &mut x, &mut t)?;
                 if to_m > start || i == 0 || (to_m == start && to_cold_side) {
                     break;
                 }
@@ -177,7 +140,7 @@ impl Stack<'_> {
         for (i, (m, &end)) in self.materials.iter().zip(self.ends_m).enumerate() {
             let overlap = end.min(b_m) - self.start_of(i).max(a_m);
             if overlap > 0.0 {
-                let (k_min, k_max) = bounds(&m.conductivity_w_mk);
+                let (k_min, k_max) = conductivity(m)?.bounds();
                 r_min += overlap / k_max;
                 r_max += overlap / k_min;
             }
