@@ -2,9 +2,7 @@
 //! key, exit 0; `--strict` refuses them (exit 2); the summary speaks the
 //! configuration's words; refusals that used to pass or panic later.
 
-mod common;
-
-use common::*;
+use crate::common::*;
 
 fn check(dir: &std::path::Path, name: &str, text: &str, strict: bool) -> std::process::Output {
     let cfg = write(dir, name, text);

@@ -2,9 +2,7 @@
 //! `check` sees them: `[site] operation` and `[[zone]] baseline_start`
 //! take their documented words and refuse others with the key and line.
 
-mod common;
-
-use common::*;
+use crate::common::*;
 
 fn check(text: &str) -> (Option<i32>, String) {
     let dir = temp_dir("config-keys");

@@ -14,15 +14,13 @@
 //! probe is E(852 °C) − E(25 °C) (NIST ITS-90 type K), so compensation with
 //! the terminal reading gives back 852 °C.
 
-mod common;
-
 use std::io::Write;
 use std::sync::atomic::{AtomicBool, Ordering};
 use std::sync::Arc;
 use std::time::Duration;
 
-use common::mqtt::{free_port, subscribe, wait_for, Broker};
-use common::*;
+use crate::common::mqtt::{free_port, subscribe, wait_for, Broker};
+use crate::common::*;
 use wallflux::acquire::line::{encode_frame, Unit, Value, MAX_LINE_BYTES};
 use wallflux::physics::thermocouple::{emf_mv, TcType};
 use wallflux::sim::pty::Pty;
@@ -133,7 +131,7 @@ fn terminal_sensor_failure_over_the_serial_line() {
     let log = dir.join("daemon.log");
     let daemon = start_daemon(&cfg, &log);
     let channel = |name: &'static str, status: &'static str| {
-        move |m: &common::mqtt::Msg| {
+        move |m: &crate::common::mqtt::Msg| {
             m.topic == format!("{ROOT}/channel/{name}") && m.json["status"] == status
         }
     };

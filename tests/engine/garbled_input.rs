@@ -13,8 +13,8 @@ use wallflux::monitor::command::{check_text, parse_command};
 use wallflux::monitor::Monitor;
 use wallflux::time::Timestamp;
 
-const EXAMPLE: &str = include_str!("../config/example.toml");
-const DEMO: &str = include_str!("../config/demo.toml");
+const EXAMPLE: &str = include_str!("../../config/example.toml");
+const DEMO: &str = include_str!("../../config/demo.toml");
 
 /// Values a garbled line may get: edge numbers, wrong types, broken syntax.
 fn token() -> impl Strategy<Value = String> {

@@ -5,13 +5,11 @@
 //! running: they get a bounded life, then SIGINT (then SIGKILL), and what
 //! they printed is checked for a panic. Nothing here asserts a duration.
 
-mod common;
-
 use std::process::{ExitStatus, Output, Stdio};
 use std::time::{Duration, Instant};
 
-use common::mqtt::free_port;
-use common::*;
+use crate::common::mqtt::free_port;
+use crate::common::*;
 
 fn text(b: &[u8]) -> String {
     String::from_utf8_lossy(b).into_owned()

@@ -7,14 +7,12 @@
 //! Wall: steady slab without source, constant k (Fourier's law, Incropera
 //! ch. 3): T(x) = 900 − (q/k) x with q = 3000 W/m², k = 1.5 W/mK.
 
-mod common;
-
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
-use common::feeder::Feeder;
-use common::mqtt::{free_port, subscribe, wait_for, Broker, Msg};
-use common::*;
+use crate::common::feeder::Feeder;
+use crate::common::mqtt::{free_port, subscribe, wait_for, Broker, Msg};
+use crate::common::*;
 use wallflux::sim::pty::Pty;
 
 const DEPTHS_MM: [f64; 5] = [20.0, 70.0, 130.0, 190.0, 250.0];
@@ -47,7 +45,7 @@ fn temp(i: usize, t: f64, s: &Scene) -> f64 {
     900.0 - Q / 1.5 * DEPTHS_MM[i] / 1000.0 + noise + rise
 }
 
-fn values(scene: Arc<Mutex<Scene>>) -> common::feeder::Values {
+fn values(scene: Arc<Mutex<Scene>>) -> crate::common::feeder::Values {
     Arc::new(move |i, t| {
         let mut s = scene.lock().unwrap();
         let v = temp(i, t, &s);

@@ -10,14 +10,12 @@
 //! q = 1.5 × 600 / 0.25 = 3600 W/m², R = 600 / 3600 = 0.1667 m²K/W. Learned
 //! on that wall and compared with the same wall, the change is 0 %.
 
-mod common;
-
 use std::sync::Arc;
 use std::time::Duration;
 
-use common::feeder::Feeder;
-use common::mqtt::{free_port, publish, subscribe, wait_for, Broker, Msg};
-use common::*;
+use crate::common::feeder::Feeder;
+use crate::common::mqtt::{free_port, publish, subscribe, wait_for, Broker, Msg};
+use crate::common::*;
 use wallflux::sim::pty::Pty;
 
 const DEPTHS_MM: [f64; 4] = [20.0, 100.0, 180.0, 250.0];

@@ -1,8 +1,7 @@
 //! The command line through the real binary: exit codes and messages of
 //! `check` and `tc`, and `analyze` against closed-form walls.
 
-mod common;
-use common::*;
+use crate::common::*;
 
 fn stderr(o: &std::process::Output) -> String {
     String::from_utf8_lossy(&o.stderr).into_owned()

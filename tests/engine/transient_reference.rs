@@ -7,8 +7,7 @@
 //! al., *Fundamentals of Heat and Mass Transfer*, eqs. 5.57–5.58;
 //! docs/references.md: 416.564 °C and 13 032 W/m²).
 
-mod common;
-use common::*;
+use crate::common::*;
 
 use wallflux::time::Timestamp;
 

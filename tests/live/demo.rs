@@ -3,14 +3,12 @@
 //! `demo --config` simulates the configured kiln, each zone at its own
 //! set-point, with no silent source at a high speed.
 
-mod common;
-
 use std::io::{BufRead, BufReader};
 use std::process::Stdio;
 use std::time::{Duration, Instant};
 
-use common::mqtt::{free_port, subscribe, wait_for};
-use common::*;
+use crate::common::mqtt::{free_port, subscribe, wait_for};
+use crate::common::*;
 
 #[test]
 fn demo_publishes_zone_states_and_stops_cleanly() {

@@ -4,15 +4,13 @@
 //! restarted, SIGTERM. `WALLFLUX_TEST_BROKER=mosquitto` runs it against
 //! mosquitto (as CI does); otherwise the embedded broker is used.
 
-mod common;
-
 use std::io::Write;
 use std::sync::atomic::{AtomicBool, AtomicU8, Ordering};
 use std::sync::Arc;
 use std::time::Duration;
 
-use common::mqtt::{free_port, subscribe, wait_for, Broker};
-use common::*;
+use crate::common::mqtt::{free_port, subscribe, wait_for, Broker};
+use crate::common::*;
 use wallflux::acquire::line::{encode_frame, Unit, Value, MAX_LINE_BYTES};
 use wallflux::sim::pty::Pty;
 
@@ -269,7 +267,7 @@ fn scenario_hot_face_c(t: f64) -> f64 {
 
 /// What the daemon published on `topic` (`zone/wall/state`, `kiln/state`,
 /// `events`), in order.
-fn published<'a>(msgs: &'a [common::mqtt::Msg], topic: &str) -> Vec<&'a serde_json::Value> {
+fn published<'a>(msgs: &'a [crate::common::mqtt::Msg], topic: &str) -> Vec<&'a serde_json::Value> {
     let topic = format!("wf/test-plant/k1/{topic}");
     msgs.iter()
         .filter(|m| m.topic == topic && !m.retained)

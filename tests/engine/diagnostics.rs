@@ -8,8 +8,6 @@
 //! T0 = 1000 °C, L = 0.25 m; optionally the whole profile rising at a
 //! uniform rate (a uniform rise leaves the gradient, hence q, unchanged).
 
-mod common;
-
 use std::sync::Arc;
 
 use wallflux::acquire::line::{Unit, Value};
@@ -30,7 +28,7 @@ fn temp(depth_mm: f64) -> f64 {
 }
 
 fn monitor() -> Monitor {
-    let text = common::one_zone_config("/dev/null", 1883, K, 250.0, &DEPTHS_MM, 10.0);
+    let text = crate::common::one_zone_config("/dev/null", 1883, K, 250.0, &DEPTHS_MM, 10.0);
     let s = config::parse(&text, "t.toml", None).unwrap();
     Monitor::new(Arc::new(s), Timestamp::from_epoch_s(0.0))
 }

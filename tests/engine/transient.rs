@@ -3,8 +3,7 @@
 //! (`sim::wall`, 40 cells per layer), probes only inside the wall (the hot
 //! face is never measured), readings rounded to 0.1 °C with noise.
 
-mod common;
-use common::*;
+use crate::common::*;
 
 use std::sync::Arc;
 

@@ -5,14 +5,12 @@
 //! alarm and suppresses the process alarm, return to normal, and alarm
 //! state that survives a restart.
 
-mod common;
-
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
-use common::feeder::Feeder;
-use common::mqtt::{free_port, publish, subscribe, wait_all, wait_for, Broker, Msg};
-use common::*;
+use crate::common::feeder::Feeder;
+use crate::common::mqtt::{free_port, publish, subscribe, wait_all, wait_for, Broker, Msg};
+use crate::common::*;
 use wallflux::sim::pty::Pty;
 
 const DEPTHS_MM: [f64; 4] = [20.0, 100.0, 180.0, 250.0];
@@ -50,7 +48,7 @@ fn head_for(scene: &Mutex<Scene>, t0: std::time::Instant, target_c: f64) {
     };
 }
 
-fn values(scene: Arc<Mutex<Scene>>) -> common::feeder::Values {
+fn values(scene: Arc<Mutex<Scene>>) -> crate::common::feeder::Values {
     Arc::new(move |i, t| {
         let s = *scene.lock().unwrap();
         if i == 3 && s.shell_probe_open {

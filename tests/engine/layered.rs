@@ -1,7 +1,6 @@
 //! `model = "layered"` through `wallflux analyze` against closed forms.
 
-mod common;
-use common::*;
+use crate::common::*;
 
 fn config(layers: &str, materials: &str, probes: &[(usize, f64)]) -> String {
     let mut s = format!(

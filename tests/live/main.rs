@@ -1,0 +1,15 @@
+//! The real binary with real brokers, pseudo-terminals and files: these tests
+//! mostly wait on the daemon, so they share one binary and run side by side.
+
+#[path = "../common/mod.rs"]
+mod common;
+
+mod alarms;
+mod baseline_commands;
+mod check_warnings;
+mod cli;
+mod cold_junction_live;
+mod daemon;
+mod demo;
+mod diagnostics_live;
+mod no_panic;
