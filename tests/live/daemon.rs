@@ -154,7 +154,15 @@ fn daemon_end_to_end() {
     // The broker goes away and comes back: the daemon keeps running,
     // reconnects, says online again and resumes publishing.
     broker.stop();
-    std::thread::sleep(Duration::from_millis(1500));
+    let lost = std::time::Instant::now();
+    while !log_text().contains("MQTT broker lost") {
+        assert!(
+            lost.elapsed() < Duration::from_secs(20),
+            "no broker-lost line in the log:\n{}",
+            log_text()
+        );
+        std::thread::sleep(Duration::from_millis(50));
+    }
     assert!(
         daemon.try_wait().unwrap().is_none(),
         "daemon exited without a broker:\n{}",

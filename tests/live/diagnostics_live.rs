@@ -2,7 +2,9 @@
 //! pseudo-terminal, publishes to a real broker. Each fault is injected into
 //! a live zone: it is flagged on the channel topic, left out of the fit
 //! (the zone degrades, its numbers stay within their uncertainty), and the
-//! flag clears when the fault goes.
+//! flag clears when the fault goes. The faults a zone judges from its
+//! history (spike, outlier, stuck) are walked through in simulated time in
+//! `tests/engine/diagnostics.rs`; here, those a single frame shows.
 //!
 //! Wall: steady slab without source, constant k (Fourier's law, Incropera
 //! ch. 3): T(x) = 900 − (q/k) x with q = 3000 W/m², k = 1.5 W/mK.
@@ -24,40 +26,24 @@ enum Fault {
     None,
     Open(usize),
     OutOfRange(usize),
-    SpikeOnce(usize, f64),
-    Offset(usize, f64),
-    Frozen(usize, f64),
     Silent(usize),
 }
 
 struct Scene {
     fault: Fault,
-    /// Uniform rise of the whole wall, °C/s, since `since_s` (keeps the
-    /// gradient, hence q, unchanged).
-    rise_c_per_s: f64,
-    since_s: f64,
-    base_s: f64,
 }
 
-fn temp(i: usize, t: f64, s: &Scene) -> f64 {
+fn temp(i: usize, t: f64) -> f64 {
     let noise = 0.02 * (t * 1.7 + i as f64 * 2.3).sin();
-    let rise = s.base_s * s.rise_c_per_s + s.rise_c_per_s * (t - s.since_s).max(0.0);
-    900.0 - Q / 1.5 * DEPTHS_MM[i] / 1000.0 + noise + rise
+    900.0 - Q / 1.5 * DEPTHS_MM[i] / 1000.0 + noise
 }
 
 fn values(scene: Arc<Mutex<Scene>>) -> crate::common::feeder::Values {
     Arc::new(move |i, t| {
-        let mut s = scene.lock().unwrap();
-        let v = temp(i, t, &s);
-        match s.fault {
+        let v = temp(i, t);
+        match scene.lock().unwrap().fault {
             Fault::Open(j) if j == i => None,
             Fault::OutOfRange(j) if j == i => Some(1500.0),
-            Fault::SpikeOnce(j, dv) if j == i => {
-                s.fault = Fault::None;
-                Some(v + dv)
-            }
-            Fault::Offset(j, dv) if j == i => Some(v + dv),
-            Fault::Frozen(j, c) if j == i => Some(c),
             Fault::Silent(j) if j == i => Some(f64::NAN),
             _ => Some(v),
         }
@@ -86,19 +72,9 @@ fn each_fault_is_flagged_excluded_and_cleared() {
     let _broker = Broker::start(port, &dir);
     let rx = subscribe(port, &format!("{ROOT}/#"));
     let pty = Pty::open().unwrap();
-    // A 30 s rate window: measured rates steady enough for the outlier test
-    // (it waits for the jump to leave the window).
-    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0)
-        .replace("rate_window_s = 10", "rate_window_s = 30");
-    assert!(text.contains("rate_window_s = 30"));
+    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0);
     let cfg = write(&dir, "w.toml", &text);
-    let scene = Arc::new(Mutex::new(Scene {
-        fault: Fault::None,
-        rise_c_per_s: 0.0,
-        since_s: 0.0,
-        base_s: 0.0,
-    }));
-    let t0 = std::time::Instant::now();
+    let scene = Arc::new(Mutex::new(Scene { fault: Fault::None }));
     let _feed = Feeder::start(pty, DEPTHS_MM.len(), values(scene.clone()));
     let daemon = start_daemon(&cfg, &dir.join("d.log"));
     let long = Duration::from_secs(60);
@@ -126,54 +102,6 @@ fn each_fault_is_flagged_excluded_and_cleared() {
     set(Fault::None);
     wait_for(&rx, long, "p2 ok", |m| channel(m, 2, "ok"));
     wait_for(&rx, long, "zone ok", |m| zone(m, "ok"));
-
-    // One reading 300 °C high: held back as a spike, then ok again.
-    set(Fault::SpikeOnce(2, 300.0));
-    wait_for(&rx, long, "p2 spike", |m| channel(m, 2, "spike"));
-    wait_for(&rx, long, "p2 ok after the spike", |m| channel(m, 2, "ok"));
-
-    // A junction reading 40 °C high: an outlier once its jump has left the
-    // 30 s rate window.
-    set(Fault::Offset(3, 40.0));
-    wait_for(&rx, long, "p3 outlier", |m| channel(m, 3, "outlier"));
-    let z = wait_for(&rx, long, "degraded by the outlier", |m| {
-        zone(m, "degraded") && m.json["probes"][3]["status"] == "outlier"
-    });
-    within_uncertainty(&z);
-    set(Fault::None);
-    wait_for(&rx, long, "p3 ok", |m| channel(m, 3, "ok"));
-
-    // The wall heats at 0.6 °C/s; input 1 freezes at its last value.
-    {
-        let t = t0.elapsed().as_secs_f64();
-        let mut s = scene.lock().unwrap();
-        s.rise_c_per_s = 0.6;
-        s.since_s = t;
-    }
-    std::thread::sleep(Duration::from_secs(2));
-    let frozen = {
-        let s = scene.lock().unwrap();
-        (temp(1, t0.elapsed().as_secs_f64(), &s) * 100.0).round() / 100.0
-    };
-    set(Fault::Frozen(1, frozen));
-    wait_for(&rx, long, "p1 stuck", |m| channel(m, 1, "stuck"));
-    // A wall heating at 2160 °C/h is not at steady state: the zone says
-    // `not_steady` (its steady model cannot vouch for its numbers) and
-    // still flags the frozen input.
-    let z = wait_for(&rx, long, "not_steady, with the stuck probe", |m| {
-        zone(m, "not_steady") && m.json["probes"][1]["status"] == "stuck"
-    });
-    assert!(z.json["heat_loss_w"].is_null(), "{}", z.json);
-    assert!(z.json["probes"][0]["measured_c"].is_f64(), "{}", z.json);
-    set(Fault::None);
-    wait_for(&rx, long, "p1 moving again", |m| channel(m, 1, "ok"));
-    {
-        let t = t0.elapsed().as_secs_f64();
-        let mut s = scene.lock().unwrap();
-        s.base_s += t - s.since_s;
-        s.rise_c_per_s = 0.6;
-        s.since_s = t;
-    }
 
     // Input 4 left out of the frames: stale after three intervals.
     set(Fault::Silent(4));
