@@ -25,7 +25,7 @@ use crate::monitor::energy::EnergyTotals;
 use crate::monitor::output::{LinkStatus, Output, StatusReport};
 use crate::monitor::zone::ZoneReport;
 use crate::monitor::Monitor;
-use crate::publish::log::log_output;
+use crate::publish::log::Logger;
 use crate::publish::mqtt::{self, LinkHealth};
 use crate::publish::queue::Queue;
 use crate::publish::route;
@@ -213,6 +213,7 @@ struct Engine {
     observer: Option<Observer>,
     monitor: Monitor,
     recorder: Option<Recorder>,
+    logger: Logger,
 }
 
 impl Engine {
@@ -253,6 +254,7 @@ impl Engine {
             observer,
             monitor,
             recorder: None,
+            logger: Logger::default(),
         }
     }
 
@@ -289,7 +291,7 @@ impl Engine {
     fn drain(&mut self, sources: &[Arc<SourceHealth>], link: &LinkHealth) {
         let mut alarms_changed = false;
         while let Some(mut out) = self.monitor.poll_output() {
-            log_output(&self.settings, &out);
+            self.logger.output(&self.settings, &out);
             match &mut out {
                 Output::ZoneState(z) => {
                     if let Some(obs) = self.observer.as_mut() {

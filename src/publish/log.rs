@@ -1,8 +1,14 @@
 //! The log sink: the lines the daemon writes for the monitor's outputs.
 //! What to say is decided here from the output alone (the alarm-flood
-//! grouping is the monitor's, marked on each alarm event).
+//! grouping is the monitor's, marked on each alarm event). Refused
+//! commands, which a flood could repeat without bound, are folded: one line
+//! a minute at most, with the count of those not written.
+
+use std::time::Instant;
 
 use tracing::{debug, info, warn};
+
+use super::fold::Fold;
 
 use crate::config::Settings;
 use crate::monitor::alarm::{Cause, Priority};
@@ -10,8 +16,29 @@ use crate::monitor::channel::Health;
 use crate::monitor::output::{AlarmEvent, CommandReply, FloodNotice, Output};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
 
+/// The log sink: writes each output's line(s), folding the lines that a
+/// flood could repeat without bound (refused commands).
+#[derive(Debug, Default)]
+pub struct Logger {
+    refused: Fold,
+}
+
+impl Logger {
+    /// Writes the log line(s) of `out`, if it has any.
+    pub fn output(&mut self, settings: &Settings, out: &Output) {
+        match out {
+            Output::CommandReply(r) if r.result.is_err() => {
+                if let Some(folded) = self.refused.admit(Instant::now()) {
+                    command(r, folded);
+                }
+            }
+            _ => log_output(settings, out),
+        }
+    }
+}
+
 /// Writes the log line(s) of `out`, if it has any.
-pub fn log_output(settings: &Settings, out: &Output) {
+fn log_output(settings: &Settings, out: &Output) {
     match out {
         Output::ZoneState(z) => {
             let every = u64::from(settings.log.summary_every);
@@ -41,7 +68,7 @@ pub fn log_output(settings: &Settings, out: &Output) {
         Output::TrendAlert(t) if t.line_complete => {
             warn!(alarm = %t.alarm, "trend: {}", t.message);
         }
-        Output::CommandReply(r) => command(r),
+        Output::CommandReply(r) => command(r, 0),
         Output::AlarmFlood(f) => flood(f),
         _ => {}
     }
@@ -97,11 +124,12 @@ fn alarm_transition(e: &AlarmEvent) {
     }
 }
 
-/// The audit line of an operator command, with its user.
-fn command(r: &CommandReply) {
+/// The audit line of an operator command, with its user; a refused one
+/// says how many refusals before it were folded (not written).
+fn command(r: &CommandReply, folded: u64) {
     let Some(cmd) = &r.command else {
         if let Err(e) = &r.result {
-            warn!(error = %e, bytes = r.payload_bytes, "malformed operator command refused");
+            warn!(error = %e, bytes = r.payload_bytes, folded, "malformed operator command refused");
         }
         return;
     };
@@ -111,13 +139,13 @@ fn command(r: &CommandReply) {
             info!(id = %cmd.id, action, zone = %cmd.alarm, by = %cmd.by, "operator command")
         }
         (Err(e), true) => {
-            warn!(id = %cmd.id, action, zone = %cmd.alarm, by = %cmd.by, error = %e, "operator command refused")
+            warn!(id = %cmd.id, action, zone = %cmd.alarm, by = %cmd.by, error = %e, folded, "operator command refused")
         }
         (Ok(()), false) => {
             info!(id = %cmd.id, action, alarm = %cmd.alarm, by = %cmd.by, minutes = cmd.minutes.map_or(String::new(), |m| format!("{m} min")), "operator command")
         }
         (Err(e), false) => {
-            warn!(id = %cmd.id, action, alarm = %cmd.alarm, by = %cmd.by, error = %e, "operator command refused")
+            warn!(id = %cmd.id, action, alarm = %cmd.alarm, by = %cmd.by, error = %e, folded, "operator command refused")
         }
     }
 }

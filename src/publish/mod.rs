@@ -1,6 +1,8 @@
 //! Publishing: the monitor's outputs to their sinks. `route` decides where
 //! each output goes on MQTT (one place); `queue` hands messages to the
-//! `mqtt` link without waiting on it; `log` writes the log lines.
+//! `mqtt` link without waiting on it; `log` writes the log lines, `fold`
+//! keeps repeated ones from flooding the journal.
+pub mod fold;
 pub mod log;
 pub mod mqtt;
 pub mod queue;

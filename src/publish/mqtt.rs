@@ -4,16 +4,37 @@
 //! messages queued during an outage survive the reconnect; last will
 //! `offline`; `online` republished on every connection; `offline` published
 //! before a clean disconnect (the will fires only on an abrupt drop).
+//!
+//! # The command path
+//! `{root}/cmd` is subscribed at QoS 0: a command is live, so the broker
+//! neither keeps one for the daemon while it is away nor sends one again
+//! (a command sent while the daemon is down is not applied later; its
+//! sender sees no reply and may send it again). A message the client cannot
+//! take (over [`MAX_PACKET_BYTES`]) resets the connection once and is gone;
+//! a broker configured with a packet limit (deploy/mosquitto) keeps it from
+//! arriving at all. A command larger than [`MAX_COMMAND_BYTES`] and a
+//! retained one (a command must not re-apply itself at every connection)
+//! are dropped and counted. The subscription and `online` are put at the
+//! head of the client's own queue at every connection, so no backlog can
+//! keep them out; messages move from the engine's queue into the client
+//! only while the broker is connected, so during an outage they wait (and
+//! are counted) in the engine's queue, and the client's request channel
+//! never fills.
 
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::Arc;
 use std::time::Duration;
 
-use rumqttc::{AsyncClient, Event, LastWill, MqttOptions, Outgoing, Packet, QoS};
+use rumqttc::mqttbytes::v4::{Publish, Subscribe};
+use rumqttc::{
+    AsyncClient, ConnectionError, Event, LastWill, MqttOptions, Outgoing, Packet, QoS, Request,
+    StateError,
+};
 use serde::Serialize;
 use tokio::sync::{mpsc, watch, Notify};
 use tracing::{info, warn};
 
+use super::fold::Fold;
 use super::queue::Queue;
 use crate::app::clock::Clock;
 use crate::config::MqttSettings;
@@ -25,6 +46,8 @@ use crate::time::Timestamp;
 pub const MAX_PACKET_BYTES: usize = 256 * 1024;
 /// Capacity of rumqttc's request channel.
 const REQUEST_CAPACITY: usize = 64;
+/// The QoS of the `cmd` subscription: at most once (see the module doc).
+const CMD_QOS: QoS = QoS::AtMostOnce;
 /// Longest wait between reconnection attempts.
 const MAX_BACKOFF: Duration = Duration::from_secs(30);
 /// While the broker stays away, a reminder this often.
@@ -37,8 +60,14 @@ pub struct LinkHealth {
     pub connections: AtomicU64,
     pub failed_attempts: AtomicU64,
     pub published: AtomicU64,
-    /// Commands not handed to the engine (its queue full, or absurdly large).
+    /// Commands not handed to the engine (its queue full, or larger than a
+    /// command can be).
     pub commands_dropped: AtomicU64,
+    /// Retained messages on `cmd`, ignored.
+    pub commands_retained: AtomicU64,
+    /// Messages over the client's packet limit (each reset the connection
+    /// once).
+    pub oversize_packets: AtomicU64,
     /// Signalled on every connection: a new session may have lost the
     /// retained alarm states.
     pub reconnected: Notify,
@@ -81,6 +110,17 @@ fn will_payload() -> Vec<u8> {
     .unwrap_or_default()
 }
 
+/// The size of the packet, when `e` is the client refusing one over its
+/// limit.
+fn oversize(e: &ConnectionError) -> Option<usize> {
+    match e {
+        ConnectionError::MqttState(StateError::Deserialization(
+            rumqttc::mqttbytes::Error::PayloadSizeLimitExceeded(n),
+        )) => Some(*n),
+        _ => None,
+    }
+}
+
 /// Runs the MQTT link until `shutdown` turns true, then flushes the queue,
 /// publishes `offline` and disconnects cleanly (bounded by a few seconds).
 pub async fn run(
@@ -107,13 +147,20 @@ pub async fn run(
         true,
     ));
     let (client, mut eventloop) = AsyncClient::new(opts, REQUEST_CAPACITY);
+    let (up_tx, up_rx) = watch::channel(false);
 
     let sender = {
         let client = client.clone();
         let queue = queue.clone();
         let health = health.clone();
+        let mut up = up_rx;
         tokio::spawn(async move {
             loop {
+                // Only while connected: during an outage the messages wait
+                // in the engine's queue, which counts and bounds them.
+                if up.wait_for(|&u| u).await.is_err() {
+                    break;
+                }
                 let m = queue.pop().await;
                 let retain = m.retain();
                 if client
@@ -131,6 +178,8 @@ pub async fn run(
     let mut backoff = Duration::from_millis(250);
     let mut last_reminder: Option<tokio::time::Instant> = None;
     let mut failures_since_up: u64 = 0;
+    let mut lost_lines = Fold::default();
+    let mut ignored_lines = Fold::default();
     let target = format!("{}:{}", cfg.host, cfg.port);
     loop {
         tokio::select! {
@@ -144,24 +193,46 @@ pub async fn run(
                     failures_since_up = 0;
                     last_reminder = None;
                     backoff = Duration::from_millis(250);
-                    let _ = client.try_publish(status_topic.clone(), QoS::AtLeastOnce, true,
+                    // Ahead of anything queued: `online`, and the
+                    // subscription (a new session may not know it).
+                    let mut online = Publish::new(status_topic.as_str(), QoS::AtLeastOnce,
                         status_payload("online", clock.now()));
-                    // A new session may not know our subscription: ask again.
-                    let _ = client.try_subscribe(cmd_topic.clone(), QoS::AtLeastOnce);
+                    online.retain = true;
+                    eventloop.pending.push_front(Request::Subscribe(Subscribe::new(cmd_topic.as_str(), CMD_QOS)));
+                    eventloop.pending.push_front(Request::Publish(online));
+                    let _ = up_tx.send(true);
                 }
                 Ok(Event::Incoming(Packet::Publish(p))) if p.topic == cmd_topic => {
-                    if p.payload.len() > MAX_COMMAND_BYTES * 4 || commands.try_send(p.payload.to_vec()).is_err() {
+                    if p.retain {
+                        health.commands_retained.fetch_add(1, Ordering::Relaxed);
+                        if let Some(folded) = ignored_lines.admit(std::time::Instant::now()) {
+                            warn!(topic = %cmd_topic, bytes = p.payload.len(), folded,
+                                "retained message on the command topic ignored: a command must not apply itself at every connection (clear it with an empty retained message)");
+                        }
+                    } else if p.payload.len() > MAX_COMMAND_BYTES * 4 || commands.try_send(p.payload.to_vec()).is_err() {
                         health.commands_dropped.fetch_add(1, Ordering::Relaxed);
+                        if let Some(folded) = ignored_lines.admit(std::time::Instant::now()) {
+                            warn!(topic = %cmd_topic, bytes = p.payload.len(), folded,
+                                "command dropped: larger than a command can be, or too many at once");
+                        }
                     }
                 }
                 Ok(_) => {}
                 Err(e) => {
                     let was_up = health.connected.swap(false, Ordering::Relaxed);
+                    let _ = up_tx.send(false);
                     health.failed_attempts.fetch_add(1, Ordering::Relaxed);
                     failures_since_up += 1;
                     let now = tokio::time::Instant::now();
-                    if was_up {
-                        warn!(broker = %target, error = %e, "MQTT broker lost; reconnecting with backoff (states are queued, latest kept)");
+                    if let Some(bytes) = oversize(&e) {
+                        health.oversize_packets.fetch_add(1, Ordering::Relaxed);
+                        warn!(broker = %target, bytes, limit = MAX_PACKET_BYTES,
+                            "a message from the broker is over the packet limit: dropped, reconnecting (the command topic is subscribed at most once, so it is not sent again)");
+                        last_reminder = Some(now);
+                    } else if was_up {
+                        if let Some(folded) = lost_lines.admit(now.into_std()) {
+                            warn!(broker = %target, error = %e, folded, "MQTT broker lost; reconnecting with backoff (states are queued, latest kept)");
+                        }
                         last_reminder = Some(now);
                     } else if last_reminder.is_none_or(|t| now.duration_since(t) >= REMIND_EVERY) {
                         warn!(broker = %target, error = %e, attempts = failures_since_up, "MQTT broker unreachable; retrying");
