@@ -233,12 +233,12 @@ mod tests {
     #[test]
     fn ids_number_the_entries_in_order() {
         let v: IdVec<ZoneId, &str> = ["a", "b"].into_iter().collect();
-        let (a, b) = (v.ids().next().unwrap(), v.ids().last().unwrap());
+        let (a, b) = (v.ids().next().unwrap(), v.ids().next_back().unwrap());
         assert_eq!((a.index(), b.index()), (0, 1));
         assert!(a < b);
         assert_eq!(v[b], "b");
         assert_eq!(v.ids().collect::<Vec<_>>(), vec![a, b]);
-        assert_eq!(v.iter_ids().map(|(i, s)| (i, *s)).last(), Some((b, "b")));
+        assert_eq!(v.iter_ids().map(|(i, s)| (i, *s)).next_back(), Some((b, "b")));
         assert_eq!(v.position(|s| *s == "b"), Some(b));
         assert_eq!(v.position(|s| *s == "c"), None);
     }
@@ -247,7 +247,7 @@ mod tests {
     fn an_id_beyond_the_vector_is_refused_by_get() {
         let big: IdVec<ChannelId, u8> = (0..5).collect();
         let small: IdVec<ChannelId, u8> = (0..2).collect();
-        let last = big.ids().last().unwrap();
+        let last = big.ids().next_back().unwrap();
         assert_eq!(big.get(last), Some(&4));
         assert_eq!(small.get(last), None);
     }

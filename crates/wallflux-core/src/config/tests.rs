@@ -44,7 +44,7 @@ fn an_id_from_larger_settings_is_refused_by_get() {
     let roof = big.zone_named("roof").unwrap();
     assert_eq!(big.zones.get(roof).map(|z| z.name.as_str()), Some("roof"));
     assert!(small.zones.get(roof).is_none());
-    let last_channel = big.channels.ids().last().unwrap();
+    let last_channel = big.channels.ids().next_back().unwrap();
     assert!(big.channels.len() > small.channels.len());
     assert!(small.channels.get(last_channel).is_none());
 }

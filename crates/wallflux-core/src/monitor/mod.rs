@@ -724,8 +724,8 @@ mod tests {
         let big = monitor(DEMO);
         let mut small = monitor(EXAMPLE);
         let roof = big.settings().zone_named("roof").unwrap();
-        let channel = big.settings().channels.ids().last().unwrap();
-        let alarm = big.settings().alarms.ids().last().unwrap();
+        let channel = big.settings().channels.ids().next_back().unwrap();
+        let alarm = big.settings().alarms.ids().next_back().unwrap();
         let now = Timestamp::from_epoch_s(1.0);
         assert_eq!(small.zone_cycles(roof), 0);
         assert!(small.channel_state(channel, now).is_none());
