@@ -238,7 +238,10 @@ mod tests {
         assert!(a < b);
         assert_eq!(v[b], "b");
         assert_eq!(v.ids().collect::<Vec<_>>(), vec![a, b]);
-        assert_eq!(v.iter_ids().map(|(i, s)| (i, *s)).next_back(), Some((b, "b")));
+        assert_eq!(
+            v.iter_ids().map(|(i, s)| (i, *s)).next_back(),
+            Some((b, "b"))
+        );
         assert_eq!(v.position(|s| *s == "b"), Some(b));
         assert_eq!(v.position(|s| *s == "c"), None);
     }
