@@ -76,16 +76,17 @@ fn zone_cycle(c: &mut Criterion) {
     }
     text += "]\n";
     let settings = Arc::new(config::parse(&text, "bench", None).unwrap());
+    let channels: Vec<_> = settings.channels.ids().collect();
     let mut m = Monitor::new(settings, Timestamp::from_epoch_s(0.0));
     let mut t = 0.0;
     c.bench_function("zone cycle, 8 probes (values in + fit + report)", |b| {
         b.iter(|| {
             t += 1.0;
             let now = Timestamp::from_epoch_s(t);
-            for (i, d) in depths.iter().enumerate() {
+            for (&ch, d) in channels.iter().zip(&depths) {
                 let v = 1150.0 - 3.0 * d + 0.001 * d * d + 0.01 * t;
                 m.handle_value(
-                    i,
+                    ch,
                     Value::Reading {
                         value: v,
                         unit: Unit::Celsius,

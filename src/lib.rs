@@ -7,7 +7,7 @@
 //!
 //! # Layout
 //! A workspace whose crate boundaries are the rules. The pure core lives in
-//! `crates/wallflux-core` (re-exported here as `config`, `monitor`,
+//! `crates/wallflux-core` (re-exported here as `config`, `ids`, `monitor`,
 //! `physics`, `protocol`, `time`): it has no IO, clock or async runtime among
 //! its dependencies. The simulator is `crates/wallflux-sim`, built only with
 //! the `demo` feature. This package holds the edges (`acquire::serial`,
@@ -26,6 +26,7 @@
 //!   given `now`.
 //! - [`publish`]: the bounded queue to the MQTT task and the MQTT edge.
 //! - [`config`]: the TOML file and its validated settings.
+//! - [`ids`]: typed ids of sources, channels, zones and alarms.
 //! - [`sim`]: a finite-difference wall model, the demo's firing schedule and
 //!   a pseudo-terminal pair, for the demo and the tests.
 //! - [`time`]: UTC timestamps and RFC 3339.
@@ -36,6 +37,6 @@ pub mod acquire;
 pub mod app;
 pub mod publish;
 
-pub use wallflux_core::{config, monitor, physics, protocol, time};
+pub use wallflux_core::{config, ids, monitor, physics, protocol, time};
 #[cfg(feature = "demo")]
 pub use wallflux_sim as sim;

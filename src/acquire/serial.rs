@@ -16,6 +16,7 @@ use tracing::{info, warn};
 use super::line::{self, FrameError, LineCounters, LineParser};
 use crate::app::clock::Clock;
 use crate::config::Source;
+use crate::ids::SourceId;
 use crate::protocol::scan::Scan;
 use crate::time::Timestamp;
 
@@ -32,7 +33,7 @@ pub enum Delivery {
 /// A delivery from source `source`, stamped when its line ended.
 #[derive(Debug, Clone)]
 pub struct FromSource {
-    pub source: usize,
+    pub source: SourceId,
     pub time: Timestamp,
     pub delivery: Delivery,
 }
@@ -54,9 +55,9 @@ const REMIND_EVERY: Duration = Duration::from_secs(300);
 /// A summary of line errors at most this often while they continue.
 const ERROR_SUMMARY_EVERY: Duration = Duration::from_secs(60);
 
-/// Runs one source until `shutdown` turns true.
+/// Runs source `id` until `shutdown` turns true.
 pub async fn run(
-    index: usize,
+    id: SourceId,
     source: Source,
     tx: mpsc::Sender<FromSource>,
     health: Arc<SourceHealth>,
@@ -143,7 +144,7 @@ pub async fn run(
                             }
                         };
                         let msg = FromSource {
-                            source: index,
+                            source: id,
                             time: clock.now(),
                             delivery,
                         };

@@ -25,6 +25,7 @@ use anyhow::anyhow;
 use super::Failure;
 use crate::acquire::line::{Unit, Value};
 use crate::config::Signal;
+use crate::ids::{ChannelId, IdVec, SourceId};
 use serde::Serialize;
 
 use super::cli::Outputs;
@@ -78,19 +79,17 @@ pub fn replay(
     label: &str,
     outputs: Outputs,
 ) -> Result<ReplayStats, Failure> {
-    let by_name: HashMap<&str, usize> = settings
+    let by_name: HashMap<&str, ChannelId> = settings
         .channels
-        .iter()
-        .enumerate()
+        .iter_ids()
         .map(|(i, c)| (c.name.as_str(), i))
         .collect();
-    let cj_names: HashMap<String, usize> = settings
+    let cj_names: HashMap<String, SourceId> = settings
         .sources
-        .iter()
-        .enumerate()
+        .iter_ids()
         .map(|(i, s)| (format!("{}.cj", s.name), i))
         .collect();
-    let mut cj: Vec<Option<f64>> = settings.sources.iter().map(|s| s.cj_c).collect();
+    let mut cj: IdVec<SourceId, Option<f64>> = settings.sources.map(|s| s.cj_c);
     let mut stats = ReplayStats::default();
     let mut monitor: Option<Monitor> = None;
     let mut last: Option<Timestamp> = None;

@@ -49,7 +49,7 @@ fn summary(s: &crate::config::Settings, file: &str, warnings: usize) -> String {
         s.topic_root()
     );
     let _ = writeln!(o, "  state dir {}", s.state_dir.display());
-    for (si, src) in s.sources.iter().enumerate() {
+    for (si, src) in s.sources.iter_ids() {
         let n = s.channels.iter().filter(|c| c.source == si).count();
         let _ = writeln!(
             o,

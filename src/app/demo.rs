@@ -22,6 +22,7 @@ use super::cli::DemoArgs;
 use super::clock::{Clock, ClockDriver};
 use super::Failure;
 use crate::config::{self, Settings};
+use crate::ids::{IdVec, ZoneId};
 use crate::monitor::zone::{ZoneReport, ZoneStatus};
 use crate::sim::pty::Pty;
 use crate::sim::scenario::{FrameLine, Kiln};
@@ -171,7 +172,7 @@ fn simulate(
         }
         kiln.scan();
         driver.set(kiln.time_s());
-        for (si, pty) in ptys.iter_mut().enumerate() {
+        for (si, pty) in settings.sources.ids().zip(ptys.iter_mut()) {
             if kiln.frame(settings, si, &mut line).is_ok() {
                 // One frame at a time, read before the next: the line's
                 // buffer never fills (a full one would drop the frame, as a
@@ -201,12 +202,12 @@ fn wait_until_read(ptys: &[Pty], stop: &AtomicBool) {
 /// Prints, every `PRINT_EVERY_S` of simulated time, one line per zone in
 /// the configuration's order, the names padded to the longest.
 fn terminal_view(start: Timestamp, kiln: Kiln, settings: &Settings) -> super::run::Observer {
-    let names: Vec<String> = settings.zones.iter().map(|z| z.name.to_string()).collect();
+    let names: IdVec<ZoneId, String> = settings.zones.map(|z| z.name.to_string());
     let width = names.iter().map(|n| n.chars().count()).max().unwrap_or(0);
-    let mut latest: Vec<Option<ZoneReport>> = vec![None; names.len()];
+    let mut latest: IdVec<ZoneId, Option<ZoneReport>> = names.map(|_| None);
     let mut next_print = start.plus_s(PRINT_EVERY_S);
     Box::new(move |r: &ZoneReport| {
-        if let Some(i) = names.iter().position(|n| n.as_str() == r.zone.as_str()) {
+        if let Some(i) = names.position(|n| n.as_str() == r.zone.as_str()) {
             latest[i] = Some(r.clone());
         }
         if r.time < next_print {
@@ -215,7 +216,7 @@ fn terminal_view(start: Timestamp, kiln: Kiln, settings: &Settings) -> super::ru
         next_print = next_print.plus_s(PRINT_EVERY_S);
         let t = r.time.since(start);
         show!("t={:>5.1} h", t / 3600.0);
-        for (zi, l) in latest.iter().enumerate() {
+        for (zi, l) in latest.iter_ids() {
             let Some(l) = l else { continue };
             let f =
                 |v: Option<f64>, d: usize| v.map_or("     -".to_string(), |x| format!("{x:>6.d$}"));

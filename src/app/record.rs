@@ -16,6 +16,7 @@ use std::path::{Path, PathBuf};
 use tracing::warn;
 
 use crate::config::Settings;
+use crate::ids::SourceId;
 use crate::protocol::scan::{Reading, Scan};
 use crate::time::Timestamp;
 
@@ -43,7 +44,7 @@ impl Recorder {
     }
 
     /// Source `source`'s scan, received at `time`.
-    pub fn scan(&mut self, settings: &Settings, source: usize, scan: &Scan, time: Timestamp) {
+    pub fn scan(&mut self, settings: &Settings, source: SourceId, scan: &Scan, time: Timestamp) {
         let t = time.epoch_s();
         let result = self.write_with(|out| {
             if let Some(cj) = scan.cj_c {

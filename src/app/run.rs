@@ -109,7 +109,7 @@ pub async fn run_recording(
     let (tx, mut rx) = mpsc::channel(256);
     let mut source_health = Vec::new();
     let mut source_tasks = Vec::new();
-    for (i, s) in settings.sources.iter().enumerate() {
+    for (i, s) in settings.sources.iter_ids() {
         let h = Arc::new(SourceHealth::default());
         source_health.push(h.clone());
         source_tasks.push(tokio::spawn(serial::run(

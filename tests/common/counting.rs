@@ -59,6 +59,7 @@ pub struct Counted {
 /// state must carry a shell flux.
 pub fn steady_zone(config_text: &str, depths_mm: &[f64], warm_s: u32, counted_s: u32) -> Counted {
     let settings = Arc::new(config::parse(config_text, "t", None).unwrap());
+    let source = settings.sources.ids().next().expect("a source");
     let mut m = Monitor::new(settings, Timestamp::from_epoch_s(0.0));
     let mut p = LineParser::new();
     let mut line = heapless::String::<{ MAX_LINE_BYTES + 2 }>::new();
@@ -84,7 +85,7 @@ pub fn steady_zone(config_text: &str, depths_mm: &[f64], warm_s: u32, counted_s:
         let mut probes = 0;
         for &b in line.as_bytes() {
             if let Some(Ok(frame)) = p.push(b) {
-                m.handle_scan(0, &to_scan(&frame), now);
+                m.handle_scan(source, &to_scan(&frame), now);
             }
         }
         m.handle_timeout(now);

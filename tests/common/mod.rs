@@ -91,6 +91,20 @@ specific_heat_j_kgk = 1000.0
     s
 }
 
+/// The channels of zone `zone`'s probes, in the zone's probe order.
+pub fn probe_channels(s: &wallflux::config::Settings, zone: &str) -> Vec<wallflux::ids::ChannelId> {
+    let z = s
+        .zone_named(zone)
+        .unwrap_or_else(|| panic!("no zone {zone}"));
+    s.zones[z].probes.iter().map(|p| p.channel).collect()
+}
+
+/// The channel named `name` (panics naming it when there is none).
+pub fn channel(s: &wallflux::config::Settings, name: &str) -> wallflux::ids::ChannelId {
+    s.channel_named(name)
+        .unwrap_or_else(|| panic!("no channel {name}"))
+}
+
 /// Runs `wallflux analyze` on a config file and samples text; returns the
 /// JSON lines it printed (exit 0 asserted, stderr shown on failure).
 pub fn analyze_csv(dir: &std::path::Path, config: &std::path::Path, csv: &str) -> String {

@@ -12,6 +12,7 @@ use std::sync::Arc;
 
 use wallflux::acquire::line::{Unit, Value};
 use wallflux::config;
+use wallflux::ids::{AlarmId, ChannelId};
 use wallflux::monitor::alarm::AlarmState;
 use wallflux::monitor::command::{Action, Command};
 use wallflux::monitor::Monitor;
@@ -86,21 +87,26 @@ fn temp(s: &Scene, d_mm: f64) -> f64 {
 struct Rig {
     m: Monitor,
     t: f64,
-    alarm: usize,
+    alarm: AlarmId,
+    /// The probes' channels, shallowest first, and the hot face's.
+    probes: Vec<ChannelId>,
+    hot_face: ChannelId,
 }
 
 impl Rig {
     fn new(alarm: &str) -> Rig {
         let s = Arc::new(config::parse(&config(), "t", None).unwrap());
         let i = s
-            .alarms
-            .iter()
-            .position(|a| a.name == alarm)
+            .alarm_named(alarm)
             .unwrap_or_else(|| panic!("no alarm {alarm}"));
+        let probes = crate::common::probe_channels(&s, "z");
+        let hot_face = crate::common::channel(&s, "hf");
         Rig {
             m: Monitor::new(s, Timestamp::from_epoch_s(1_800_000_000.0)),
             t: 1_800_000_000.0,
             alarm: i,
+            probes,
+            hot_face,
         }
     }
 
@@ -112,7 +118,7 @@ impl Rig {
             let now = Timestamp::from_epoch_s(self.t);
             let s = scene(self.t - start);
             if !s.silent {
-                for (i, d) in DEPTHS_MM.iter().enumerate() {
+                for (i, (&ch, d)) in self.probes.iter().zip(&DEPTHS_MM).enumerate() {
                     let v = if i == 0 && s.p0_open {
                         Value::Open
                     } else {
@@ -121,10 +127,10 @@ impl Rig {
                             unit: Unit::Celsius,
                         }
                     };
-                    self.m.handle_value(i, v, None, now);
+                    self.m.handle_value(ch, v, None, now);
                 }
                 self.m.handle_value(
-                    4,
+                    self.hot_face,
                     Value::Reading {
                         value: s.hot_c,
                         unit: Unit::Celsius,
@@ -311,8 +317,9 @@ fn a_flood_is_summarised_not_logged_line_by_line() {
         for t in from..to {
             let now = Timestamp::from_epoch_s(f64::from(t));
             m.handle_timeout(now);
-            for ch in 0..12 {
-                let depth = 30.0 + 50.0 * (ch % 6) as f64;
+            let channels: Vec<_> = m.settings().channels.ids().collect();
+            for (i, ch) in channels.into_iter().enumerate() {
+                let depth = 30.0 + 50.0 * (i % 6) as f64;
                 let v = if open {
                     Value::Open
                 } else {

@@ -115,6 +115,8 @@ fn celsius(m: &mut Monitor, at: f64) -> f64 {
 #[test]
 fn cold_junction_sources_in_order() {
     let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let box1 = s.source_named("box").unwrap();
+    let box2 = s.source_named("box2").unwrap();
     let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
     let mv = Value::Reading {
         value: 4.096,
@@ -127,7 +129,7 @@ fn cold_junction_sources_in_order() {
 
     // The cold-junction channel in the same frame, no cj=.
     m.handle_scan(
-        0,
+        box1,
         &frame(&[(1, mv), (2, terminals(25.0))], None),
         Timestamp::from_epoch_s(1.0),
     );
@@ -141,7 +143,7 @@ fn cold_junction_sources_in_order() {
     // A frame's cj= wins over the channel.
     // (40 s later: a 24 °C change in a second would rightly be a spike.)
     m.handle_scan(
-        0,
+        box1,
         &frame(&[(1, mv), (2, terminals(25.0))], Some(0.0)),
         Timestamp::from_epoch_s(40.0),
     );
@@ -154,7 +156,11 @@ fn cold_junction_sources_in_order() {
     // Without either for longer than the silence limit: no compensation
     // is possible, and the channel says why (a fixed value no longer
     // stands in for a configured terminal sensor).
-    m.handle_scan(0, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(80.0));
+    m.handle_scan(
+        box1,
+        &frame(&[(1, mv)], None),
+        Timestamp::from_epoch_s(80.0),
+    );
     let r = report(&mut m, 80.0, "tc");
     assert_eq!((r.status, r.celsius), (Health::Invalid, None));
     assert!(
@@ -165,7 +171,11 @@ fn cold_junction_sources_in_order() {
     );
 
     // A source with only a fixed cj_c uses it.
-    m.handle_scan(1, &frame(&[(1, mv)], None), Timestamp::from_epoch_s(81.0));
+    m.handle_scan(
+        box2,
+        &frame(&[(1, mv)], None),
+        Timestamp::from_epoch_s(81.0),
+    );
     let t = report(&mut m, 81.0, "tc2").celsius.unwrap();
     let want = wallflux::physics::thermocouple::compensated_c(
         wallflux::physics::thermocouple::TcType::K,
@@ -190,12 +200,13 @@ fn calibration_is_applied_and_its_expiry_reported() {
         "signal = \"celsius\"\ncalibration_offset_c = 1.5\ncalibration_gain = 1.001\ncalibration_date = \"2025-01-01\"\ncalibration_interval_days = 365",
     );
     let s = Arc::new(config::parse(&text, "t", None).unwrap());
+    let box1 = s.source_named("box").unwrap();
     let june_2025 = Timestamp::parse("2025-06-01T00:00:00Z").unwrap();
     let june_2026 = Timestamp::parse("2026-06-01T00:00:00Z").unwrap();
     for (now, overdue) in [(june_2025, false), (june_2026, true)] {
         let mut m = Monitor::new(s.clone(), now);
         m.handle_scan(
-            0,
+            box1,
             &frame(
                 &[(
                     1,
@@ -250,12 +261,13 @@ const MV: Value = Value::Reading {
 #[test]
 fn terminal_sensor_faults_invalidate_the_millivolt_channels() {
     let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let box1 = s.source_named("box").unwrap();
     let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
     let mut at = 0.0;
     let mut step = |m: &mut Monitor, terminal: Value| {
         at += 10.0;
         m.handle_scan(
-            0,
+            box1,
             &frame(&[(1, MV), (2, terminal)], None),
             Timestamp::from_epoch_s(at),
         );
@@ -297,7 +309,7 @@ fn terminal_sensor_faults_invalidate_the_millivolt_channels() {
     // A frame's own cj= is the box's measurement: it still compensates.
     at += 10.0;
     m.handle_scan(
-        0,
+        box1,
         &frame(&[(1, MV)], Some(0.0)),
         Timestamp::from_epoch_s(at),
     );
@@ -312,25 +324,25 @@ fn terminal_sensor_faults_invalidate_the_millivolt_channels() {
 #[test]
 fn a_failed_cold_junction_raises_the_thermocouple_fault_alarm() {
     let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let box1 = s.source_named("box").unwrap();
+    let box2 = s.source_named("box2").unwrap();
     let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
     let deep = Value::Reading {
         value: 60.0,
         unit: Unit::Celsius,
     };
-    let index = |m: &Monitor, name: &str| {
-        m.alarms()
-            .configs()
-            .iter()
-            .position(|c| c.name == name)
-            .unwrap()
-    };
+    let index = |m: &Monitor, name: &str| m.settings().alarm_named(name).unwrap();
     let tc_fault = index(&m, "tc-fault");
     let deep_fault = index(&m, "tc-deep-fault");
     let run = |m: &mut Monitor, from: u32, to: u32, terminal: Value| {
         for k in from..to {
             let now = Timestamp::from_epoch_s(f64::from(k));
-            m.handle_scan(0, &frame(&[(1, MV), (2, terminal), (3, deep)], None), now);
-            m.handle_scan(1, &frame(&[(1, MV)], None), now);
+            m.handle_scan(
+                box1,
+                &frame(&[(1, MV), (2, terminal), (3, deep)], None),
+                now,
+            );
+            m.handle_scan(box2, &frame(&[(1, MV)], None), now);
             m.handle_timeout(now);
             while m.poll_output().is_some() {}
         }
@@ -398,9 +410,10 @@ fn terminal_channels_in_the_configuration() {
     }
     let old = CONFIG.replace("type = \"terminal\"", "type = \"K\"");
     let s = Arc::new(config::parse(&old, "t", None).unwrap());
+    let box1 = s.source_named("box").unwrap();
     let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
     m.handle_scan(
-        0,
+        box1,
         &frame(&[(1, MV), (2, terminal_c(120.0))], None),
         Timestamp::from_epoch_s(1.0),
     );
@@ -417,6 +430,8 @@ fn terminal_channels_in_the_configuration() {
 #[test]
 fn source_health_is_counted_per_source() {
     let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let box1 = s.source_named("box").unwrap();
+    let box2 = s.source_named("box2").unwrap();
     let mut m = Monitor::new(s, Timestamp::from_epoch_s(0.0));
     let c = Value::Reading {
         value: 25.0,
@@ -424,25 +439,28 @@ fn source_health_is_counted_per_source() {
     };
     let mut gap = frame(&[(2, c)], None);
     gap.lost_before = 4;
-    m.handle_scan(0, &frame(&[(2, c)], None), Timestamp::from_epoch_s(1.0));
-    m.handle_scan(0, &gap, Timestamp::from_epoch_s(2.0));
-    m.handle_decode_error(0, Timestamp::from_epoch_s(3.0));
-    m.handle_decode_error(1, Timestamp::from_epoch_s(3.0));
-    m.handle_decode_error(1, Timestamp::from_epoch_s(4.0));
-    let (a, b) = (m.source_counters(0), m.source_counters(1));
+    m.handle_scan(box1, &frame(&[(2, c)], None), Timestamp::from_epoch_s(1.0));
+    m.handle_scan(box1, &gap, Timestamp::from_epoch_s(2.0));
+    m.handle_decode_error(box1, Timestamp::from_epoch_s(3.0));
+    m.handle_decode_error(box2, Timestamp::from_epoch_s(3.0));
+    m.handle_decode_error(box2, Timestamp::from_epoch_s(4.0));
+    let (a, b) = (m.source_counters(box1), m.source_counters(box2));
     assert_eq!((a.scans, a.lost_scans, a.decode_errors), (1 + 1, 4, 1));
     assert_eq!((b.scans, b.lost_scans, b.decode_errors), (0, 0, 2));
     // silence_s = 10 for "box": silent 10 s after its last reading at 2 s.
     m.handle_timeout(Timestamp::from_epoch_s(11.5));
-    assert!(!m.source_silent(0));
+    assert!(!m.source_silent(box1));
     m.handle_timeout(Timestamp::from_epoch_s(12.5));
-    assert!(m.source_silent(0));
-    m.handle_decode_error(0, Timestamp::from_epoch_s(13.0));
+    assert!(m.source_silent(box1));
+    m.handle_decode_error(box1, Timestamp::from_epoch_s(13.0));
     m.handle_timeout(Timestamp::from_epoch_s(13.0));
-    assert!(m.source_silent(0), "a rejected line does not end a silence");
-    m.handle_scan(0, &frame(&[(2, c)], None), Timestamp::from_epoch_s(14.0));
+    assert!(
+        m.source_silent(box1),
+        "a rejected line does not end a silence"
+    );
+    m.handle_scan(box1, &frame(&[(2, c)], None), Timestamp::from_epoch_s(14.0));
     m.handle_timeout(Timestamp::from_epoch_s(14.0));
-    assert!(!m.source_silent(0));
+    assert!(!m.source_silent(box1));
 }
 
 /// The monitor says when it next needs the time: channel states at once
@@ -454,6 +472,8 @@ fn source_health_is_counted_per_source() {
 fn poll_timeout_names_the_next_due_work() {
     let t = Timestamp::from_epoch_s;
     let s = Arc::new(config::parse(CONFIG, "t", None).unwrap());
+    let box1 = s.source_named("box").unwrap();
+    let box2 = s.source_named("box2").unwrap();
     let mut m = Monitor::new(s, t(0.0));
     assert_eq!(m.poll_timeout(), Some(t(0.0)), "first channel states");
     assert_eq!(channel_states(&mut m, t(0.0)).len(), 4);
@@ -462,7 +482,7 @@ fn poll_timeout_names_the_next_due_work() {
         value: 25.0,
         unit: Unit::Celsius,
     };
-    m.handle_scan(0, &frame(&[(2, terminals)], None), t(5.0));
+    m.handle_scan(box1, &frame(&[(2, terminals)], None), t(5.0));
     assert_eq!(m.poll_timeout(), Some(t(5.0)), "a health change");
     let kinds = |m: &mut Monitor, now: f64| {
         m.handle_timeout(t(now));
@@ -480,18 +500,18 @@ fn poll_timeout_names_the_next_due_work() {
         (next.epoch_s() - 10.0).abs() < 0.01 && next > t(10.0),
         "{next:?}"
     );
-    assert!(!m.source_silent(1));
+    assert!(!m.source_silent(box2));
     m.handle_timeout(next);
-    assert!(m.source_silent(1));
+    assert!(m.source_silent(box2));
     // box spoke at 5 s: silent from 15 s, unless an alarm delay comes first.
     let next = m.poll_timeout().unwrap();
     assert!(next > t(10.0) && next <= t(15.01), "{next:?}");
     let box_silent = t(15.01);
     while m.poll_timeout().is_some_and(|n| n <= box_silent) {
-        assert!(!m.source_silent(0));
+        assert!(!m.source_silent(box1));
         let n = m.poll_timeout().unwrap();
         m.handle_timeout(n);
     }
-    assert!(m.source_silent(0));
+    assert!(m.source_silent(box1));
     assert_eq!(m.poll_timeout(), Some(t(20.0)), "the next cycle");
 }

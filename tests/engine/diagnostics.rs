@@ -51,7 +51,8 @@ fn run(
             };
             out.push(r);
         }
-        for i in 0..DEPTHS_MM.len() {
+        let probes = crate::common::probe_channels(m.settings(), "wall");
+        for (i, ch) in probes.into_iter().enumerate() {
             let v = match f(i, f64::from(s)) {
                 Some(c) => Value::Reading {
                     value: c,
@@ -59,7 +60,7 @@ fn run(
                 },
                 None => Value::Open,
             };
-            m.handle_value(i, v, None, now);
+            m.handle_value(ch, v, None, now);
         }
     }
     out
@@ -87,12 +88,7 @@ fn assert_within_uncertainty(r: &ZoneReport) {
 }
 
 fn channel_health(m: &mut Monitor, at_s: f64, channel: &str) -> Health {
-    let ch = m
-        .settings()
-        .channels
-        .iter()
-        .position(|c| c.name.as_str() == channel)
-        .expect("a configured channel");
+    let ch = crate::common::channel(m.settings(), channel);
     m.channel_state(ch, Timestamp::from_epoch_s(at_s))
         .expect("a channel state")
         .status

@@ -100,7 +100,7 @@ fn run_engine(s: config::Settings) {
     let mut m = Monitor::new(s.clone(), t0);
     for step in 0..4 {
         let now = t0.plus_s(f64::from(step) * 30.0);
-        for (i, c) in s.channels.iter().enumerate() {
+        for (i, (ch, c)) in s.channels.iter_ids().enumerate() {
             let unit = match c.signal {
                 config::Signal::Celsius => Unit::Celsius,
                 config::Signal::Millivolts => Unit::Millivolts,
@@ -111,7 +111,7 @@ fn run_engine(s: config::Settings) {
             } else {
                 value
             };
-            m.handle_value(i, Value::Reading { value: v, unit }, Some(25.0), now);
+            m.handle_value(ch, Value::Reading { value: v, unit }, Some(25.0), now);
         }
         m.handle_timeout(now);
         while m.poll_output().is_some() {}

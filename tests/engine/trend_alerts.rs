@@ -15,6 +15,7 @@ use std::sync::Arc;
 use wallflux::acquire::line::{Unit, Value};
 use wallflux::app::demo::DEMO_CONFIG;
 use wallflux::config::{self, AlarmTarget, Settings, ZoneQuantity};
+use wallflux::ids::AlarmId;
 use wallflux::monitor::output::{Output, TrendEvent};
 use wallflux::monitor::zone::ZoneStatus;
 use wallflux::monitor::Monitor;
@@ -81,9 +82,9 @@ fn fire(config_text: &str) -> Firing {
         for (w, firing) in walls.iter_mut().zip(&firings) {
             w.step(SCAN_S, firing.setpoint_c(t));
         }
-        for (zi, z) in settings.zones.iter().enumerate() {
+        for (z, wall) in settings.zones.iter().zip(&walls) {
             for p in &z.probes {
-                let v = walls[zi].temperature_at(p.depth_m) + noise();
+                let v = wall.temperature_at(p.depth_m) + noise();
                 m.handle_value(
                     p.channel,
                     Value::Reading {
@@ -126,9 +127,9 @@ fn a_whole_firing_gives_the_trend_lines_the_docs_promise_and_no_more() {
         .iter()
         .all(|z| z.firing_setpoint_c.is_some()));
     let repeat_s = f.settings.trend.repeat_min * 60.0;
-    let mut per_alarm: BTreeMap<usize, Vec<&TrendEvent>> = BTreeMap::new();
+    let mut per_alarm: BTreeMap<AlarmId, Vec<&TrendEvent>> = BTreeMap::new();
     for t in &f.trends {
-        let i = f.settings.alarms.iter().position(|a| a.name == t.alarm);
+        let i = f.settings.alarm_named(&t.alarm);
         per_alarm
             .entry(i.expect("a configured alarm"))
             .or_default()
@@ -216,19 +217,20 @@ fn a_spike_does_not_make_a_flat_heat_loss_rise() {
     }
     text += "]\n[[alarm]]\nname = \"wall-loss-high\"\nzone = \"wall\"\nquantity = \"heat_loss_w\"\nkind = \"high\"\nsetpoint = 12600.0\n";
     let settings = Arc::new(config::parse(&text, "t", None).unwrap());
+    let probes = crate::common::probe_channels(&settings, "wall");
     let mut m = Monitor::new(settings.clone(), Timestamp::from_epoch_s(T0));
     let mut trends = Vec::new();
     let mut losses = Vec::new();
     for scan in 1..=180 {
         let now = Timestamp::from_epoch_s(T0 + 10.0 * f64::from(scan));
-        for (i, d) in depths.iter().enumerate() {
+        for (i, (&ch, d)) in probes.iter().zip(&depths).enumerate() {
             let spike = if i == 1 && (90..92).contains(&scan) {
                 300.0
             } else {
                 0.0
             };
             m.handle_value(
-                i,
+                ch,
                 Value::Reading {
                     value: temp(d / 1000.0) + spike,
                     unit: Unit::Celsius,

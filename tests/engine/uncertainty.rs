@@ -95,9 +95,14 @@ fn config(model: &str, layers: &str, probes: &[(f64, Option<f64>)]) -> String {
     s + "]\n"
 }
 
+/// The configured zone, `z`.
+fn the_zone(settings: &Settings) -> &config::Zone {
+    &settings.zones[settings.zone_named("z").expect("zone z")]
+}
+
 /// The configured wall's layers as the physics sees them.
 fn layer_specs(settings: &Settings) -> Vec<LayerSpec<'_>> {
-    settings.zones[0]
+    the_zone(settings)
         .layers
         .iter()
         .map(|l| LayerSpec {
@@ -111,7 +116,7 @@ fn layer_specs(settings: &Settings) -> Vec<LayerSpec<'_>> {
 /// The steady readings of the configured wall with a 1150 °C hot face,
 /// rounded to 0.01 °C.
 fn steady_readings(settings: &Settings) -> Vec<f64> {
-    let z = &settings.zones[0];
+    let z = the_zone(settings);
     let specs = layer_specs(settings);
     let wall = LayeredWall::new(&specs).unwrap();
     let sol = wall.solve_with_surface(1150.0, &z.surface).unwrap();
@@ -130,7 +135,7 @@ fn steady_readings(settings: &Settings) -> Vec<f64> {
 fn zone_state(settings: &Arc<Settings>, readings: &[f64]) -> ZoneReport {
     let mut m = Monitor::new(settings.clone(), Timestamp::from_epoch_s(T0));
     let now = Timestamp::from_epoch_s(T0 + 60.0);
-    for (ch, &v) in readings.iter().enumerate() {
+    for (ch, &v) in settings.channels.ids().zip(readings) {
         m.handle_value(
             ch,
             Value::Reading {
@@ -155,7 +160,7 @@ type Solve = dyn Fn(&[ProbeSample], &[f64]) -> Option<[f64; 4]>;
 
 /// The Monte Carlo: σ of hot face, shell, q(0), q(L), heat loss.
 fn monte_carlo(settings: &Settings, readings: &[f64], solve: &Solve, seed: u64) -> [f64; 5] {
-    let z = &settings.zones[0];
+    let z = the_zone(settings);
     let sig: Vec<f64> = z
         .probes
         .iter()
@@ -247,10 +252,10 @@ fn layered_solver(settings: &Settings) -> Box<Solve> {
 }
 
 fn polynomial_solver(settings: &Settings) -> Box<Solve> {
-    let m = settings.materials[settings.zones[0].layers[0].material]
+    let m = settings.materials[the_zone(settings).layers[0].material]
         .material
         .clone();
-    let l = settings.zones[0].thickness_m();
+    let l = the_zone(settings).thickness_m();
     Box::new(move |samples: &[ProbeSample], scale: &[f64]| {
         let mat = scaled(&m, scale[0]);
         let s = QuadraticWall {
@@ -283,8 +288,8 @@ fn quadratic_sigma_matches_monte_carlo() {
         ],
     );
     let settings = Arc::new(config::parse(&text, "t", None).unwrap());
-    assert_eq!(settings.zones[0].probes[3].depth_sigma_m, 0.0);
-    assert_eq!(settings.zones[0].probes[0].depth_sigma_m, 0.002);
+    assert_eq!(the_zone(&settings).probes[3].depth_sigma_m, 0.0);
+    assert_eq!(the_zone(&settings).probes[0].depth_sigma_m, 0.002);
     let readings = steady_readings(&settings);
     let r = zone_state(&settings, &readings);
     assert_eq!(r.fit_degree, Some(2));
@@ -385,7 +390,7 @@ fn transient_budget_on_a_steady_wall() {
     let mut last = None;
     for minute in 1..=180 {
         let now = Timestamp::from_epoch_s(T0 + 60.0 * minute as f64);
-        for (ch, &v) in readings.iter().enumerate() {
+        for (ch, &v) in settings.channels.ids().zip(&readings) {
             m.handle_value(
                 ch,
                 Value::Reading {
@@ -452,7 +457,7 @@ fn lining_remaining_sigma_matches_monte_carlo() {
         "model = \"layered\"\nhot_face_channel = \"hf\"",
     );
     let settings = Arc::new(config::parse(&text, "t", None).unwrap());
-    let z = &settings.zones[0];
+    let z = the_zone(&settings);
     let worn_m = 0.05;
     let specs = layer_specs(&settings);
     let mut worn = specs.clone();
@@ -475,7 +480,10 @@ fn lining_remaining_sigma_matches_monte_carlo() {
     assert!((got - 180.0).abs() < 1.0, "{got} mm");
     let published = r.uncertainty.as_ref().unwrap().lining_remaining_mm.unwrap();
 
-    let hf_sigma = channel::sigma_c(&settings.channels[4], 1150.0);
+    let hf_sigma = channel::sigma_c(
+        &settings.channels[crate::common::channel(&settings, "hf")],
+        1150.0,
+    );
     let sig: Vec<f64> = z
         .probes
         .iter()

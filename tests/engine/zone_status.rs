@@ -15,6 +15,7 @@ use std::sync::Arc;
 
 use wallflux::acquire::line::{Unit, Value};
 use wallflux::config::{self, Settings};
+use wallflux::ids::ChannelId;
 use wallflux::monitor::output::Output;
 use wallflux::monitor::zone::{ZoneReport, ZoneStatus};
 use wallflux::monitor::Monitor;
@@ -58,6 +59,8 @@ pub struct Rig {
     pub sim: WallSim,
     pub settings: Arc<Settings>,
     pub depths_m: Vec<f64>,
+    /// The configured zone's probes' channels, in the order of `depths_m`.
+    pub probes: Vec<ChannelId>,
     pub t_s: f64,
 }
 
@@ -71,7 +74,7 @@ impl Rig {
     pub fn with_wall(text: &str, wall_text: &str, start_c: f64) -> Rig {
         let settings = Arc::new(config::parse(text, "t", None).expect("valid config"));
         let wall_settings = config::parse(wall_text, "t", None).expect("valid config");
-        let z = &wall_settings.zones[0];
+        let z = &wall_settings.zones[wall_settings.zone_named("z").expect("zone z")];
         let materials = &wall_settings.materials;
         let layers = z
             .layers
@@ -84,11 +87,13 @@ impl Rig {
         let mut sim = WallSim::new(layers, 24, start_c, z.surface).expect("a wall");
         sim.settle(start_c);
         let depths_m = z.probes.iter().map(|p| p.depth_m).collect();
+        let probes = crate::common::probe_channels(&settings, "z");
         Rig {
             m: Monitor::new(settings.clone(), Timestamp::from_epoch_s(T0)),
             sim,
             settings,
             depths_m,
+            probes,
             t_s: 0.0,
         }
     }
@@ -98,7 +103,7 @@ impl Rig {
         self.sim.step(60.0, hot_c);
         self.t_s += 60.0;
         let now = Timestamp::from_epoch_s(T0 + self.t_s);
-        for (ch, &d) in self.depths_m.iter().enumerate() {
+        for (&ch, &d) in self.probes.iter().zip(&self.depths_m) {
             let v = (self.sim.temperature_at(d) * 100.0).round() / 100.0;
             self.m.handle_value(
                 ch,
@@ -396,18 +401,8 @@ fn a_withheld_number_neither_clears_nor_raises_an_alarm() {
         + "[[alarm]]\nname = \"z-loss-high\"\nzone = \"z\"\nquantity = \"heat_loss_w\"\nkind = \"high\"\nsetpoint = 2000.0\n\
            [[alarm]]\nname = \"z-flux-high\"\nzone = \"z\"\nquantity = \"flux_hot_face_w_m2\"\nkind = \"high\"\nsetpoint = 5000.0\n";
     let mut rig = Rig::new(&text, 1000.0);
-    let loss = rig
-        .settings
-        .alarms
-        .iter()
-        .position(|a| a.name == "z-loss-high")
-        .unwrap();
-    let flux = rig
-        .settings
-        .alarms
-        .iter()
-        .position(|a| a.name == "z-flux-high")
-        .unwrap();
+    let loss = rig.settings.alarm_named("z-loss-high").unwrap();
+    let flux = rig.settings.alarm_named("z-flux-high").unwrap();
     let now = |rig: &Rig| Timestamp::from_epoch_s(T0 + rig.t_s);
     for _ in 0..20 {
         rig.minute(1000.0);
@@ -558,12 +553,13 @@ fn a_model_without_numbers_says_why_in_its_note() {
         ),
     ] {
         let settings = Arc::new(config::parse(&config(model, layers, &depths), "t", None).unwrap());
+        let first = crate::common::probe_channels(&settings, "z")[0];
         let mut m = Monitor::new(settings, Timestamp::from_epoch_s(T0));
         let mut notes = Vec::new();
         for minute in 1..=5 {
             let now = Timestamp::from_epoch_s(T0 + 60.0 * f64::from(minute));
             m.handle_value(
-                0,
+                first,
                 Value::Reading {
                     value: 400.0,
                     unit: Unit::Celsius,

@@ -14,11 +14,14 @@
 //!   lining accounting. Driven by `handle_*`, read by `poll_*`.
 //! - [`bounded`]: fixed capacities, the checked push and its `Full` error.
 //! - [`config`]: the TOML text and its validated settings.
+//! - [`ids`]: typed ids of sources, channels, zones and alarms, and the
+//!   vector indexed only by its own id type.
 //! - [`time`]: UTC timestamps and RFC 3339.
 #![forbid(unsafe_code)]
 
 pub mod bounded;
 pub mod config;
+pub mod ids;
 pub mod monitor;
 pub mod physics;
 pub mod protocol;

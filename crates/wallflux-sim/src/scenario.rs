@@ -25,6 +25,7 @@
 //! firing); writing the frames to a line is the caller's.
 
 use wallflux_core::config::{Settings, Signal};
+use wallflux_core::ids::{ChannelId, IdVec, SourceId, ZoneId};
 use wallflux_core::physics::thermocouple;
 use wallflux_core::protocol::line::{
     encode_frame, EncodeError, Unit, Value, MAX_FRAME_VALUES, MAX_LINE_BYTES,
@@ -75,17 +76,17 @@ struct SimZone {
 /// Where a channel's probe sits: the zone and the depth, m.
 #[derive(Debug, Clone, Copy)]
 struct Place {
-    zone: usize,
+    zone: ZoneId,
     depth_m: f64,
 }
 
 /// The simulated kiln and its thermocouple boxes.
 #[derive(Debug, Clone)]
 pub struct Kiln {
-    zones: Vec<SimZone>,
+    zones: IdVec<ZoneId, SimZone>,
     /// Per channel of the configuration, where its probe sits (`None` for a
     /// channel no zone uses).
-    places: Vec<Option<Place>>,
+    places: IdVec<ChannelId, Option<Place>>,
     scan_s: f64,
     time_s: f64,
     seq: u32,
@@ -123,51 +124,58 @@ fn round(v: f64, decimals: i32) -> f64 {
 impl Kiln {
     /// The kiln of `settings`, every wall settled at its firing's start.
     pub fn new(settings: &Settings) -> Result<Self, ScenarioError> {
-        let mut zones = Vec::with_capacity(settings.zones.len());
-        for z in &settings.zones {
-            let layers = z
-                .layers
-                .iter()
-                .map(|l| Layer {
-                    material: settings.materials[l.material].material.clone(),
-                    thickness_m: l.thickness_m,
-                })
-                .collect();
-            let setpoint_c = zone_setpoint_c(z);
-            let firing = FiringSchedule::demo_to(setpoint_c);
-            let start_c = firing.setpoint_c(0.0);
-            let mut wall =
-                WallSim::new(layers, CELLS_PER_LAYER, start_c, z.surface).map_err(|error| {
-                    ScenarioError::Wall {
-                        zone: z.name.to_string(),
-                        error,
-                    }
-                })?;
-            wall.settle(start_c);
-            zones.push(SimZone {
-                wall,
-                firing,
-                setpoint_c,
-            });
-        }
-        let places = (0..settings.channels.len())
-            .map(|c| {
-                settings.zones.iter().enumerate().find_map(|(zi, z)| {
-                    z.probes.iter().find(|p| p.channel == c).map(|p| Place {
-                        zone: zi,
-                        depth_m: p.depth_m,
-                    })
+        let zones = settings
+            .zones
+            .iter()
+            .map(|z| Self::zone(settings, z))
+            .collect::<Result<_, _>>()?;
+        let places = settings.channels.ids().map(|c| {
+            settings.zones.iter_ids().find_map(|(zi, z)| {
+                z.probes.iter().find(|p| p.channel == c).map(|p| Place {
+                    zone: zi,
+                    depth_m: p.depth_m,
                 })
             })
-            .collect();
+        });
         Ok(Kiln {
             zones,
-            places,
+            places: places.collect(),
             scan_s: scan_period_s(settings),
             time_s: 0.0,
             seq: 0,
             cj_c: terminal_c(0.0),
             rng: SplitMix64::new(NOISE_SEED),
+        })
+    }
+
+    /// The simulated wall of zone `z`, settled at its firing's start.
+    fn zone(
+        settings: &Settings,
+        z: &wallflux_core::config::Zone,
+    ) -> Result<SimZone, ScenarioError> {
+        let layers = z
+            .layers
+            .iter()
+            .map(|l| Layer {
+                material: settings.materials[l.material].material.clone(),
+                thickness_m: l.thickness_m,
+            })
+            .collect();
+        let setpoint_c = zone_setpoint_c(z);
+        let firing = FiringSchedule::demo_to(setpoint_c);
+        let start_c = firing.setpoint_c(0.0);
+        let mut wall =
+            WallSim::new(layers, CELLS_PER_LAYER, start_c, z.surface).map_err(|error| {
+                ScenarioError::Wall {
+                    zone: z.name.to_string(),
+                    error,
+                }
+            })?;
+        wall.settle(start_c);
+        Ok(SimZone {
+            wall,
+            firing,
+            setpoint_c,
         })
     }
 
@@ -191,13 +199,13 @@ impl Kiln {
 
     /// Zone `zone`'s set-point (the top of its firing), °C; NaN for a zone
     /// the kiln does not have.
-    pub fn setpoint_c(&self, zone: usize) -> f64 {
+    pub fn setpoint_c(&self, zone: ZoneId) -> f64 {
         self.zones.get(zone).map_or(f64::NAN, |z| z.setpoint_c)
     }
 
     /// Zone `zone`'s firing set-point `t_s` after the start, °C; NaN for a
     /// zone the kiln does not have.
-    pub fn firing_c(&self, zone: usize, t_s: f64) -> f64 {
+    pub fn firing_c(&self, zone: ZoneId, t_s: f64) -> f64 {
         self.zones
             .get(zone)
             .map_or(f64::NAN, |z| z.firing.setpoint_c(t_s))
@@ -205,7 +213,7 @@ impl Kiln {
 
     /// Zone `zone`'s simulated temperature at `depth_m`, °C (NaN for a zone
     /// the kiln does not have).
-    pub fn temperature_c(&self, zone: usize, depth_m: f64) -> f64 {
+    pub fn temperature_c(&self, zone: ZoneId, depth_m: f64) -> f64 {
         self.zones
             .get(zone)
             .map_or(f64::NAN, |z| z.wall.temperature_at(depth_m))
@@ -237,7 +245,7 @@ impl Kiln {
     pub fn frame(
         &mut self,
         settings: &Settings,
-        source: usize,
+        source: SourceId,
         out: &mut FrameLine,
     ) -> Result<(), EncodeError> {
         let mut values: heapless::Vec<(u8, Value), MAX_FRAME_VALUES> = heapless::Vec::new();
@@ -349,11 +357,12 @@ probes = [
     fn zones_take_their_own_setpoint_or_the_default() {
         let s = settings();
         let kiln = Kiln::new(&s).expect("kiln");
-        assert_eq!(kiln.setpoint_c(0), 900.0);
-        assert_eq!(kiln.setpoint_c(1), DEFAULT_SETPOINT_C);
+        let (a, b) = (s.zone_named("a").unwrap(), s.zone_named("b").unwrap());
+        assert_eq!(kiln.setpoint_c(a), 900.0);
+        assert_eq!(kiln.setpoint_c(b), DEFAULT_SETPOINT_C);
         // In the top hold (18 h) each face is at its own set-point.
-        assert!((kiln.firing_c(0, 18.0 * 3600.0) - 900.0).abs() < 1e-9);
-        assert!((kiln.firing_c(1, 18.0 * 3600.0) - 1240.0).abs() < 1e-9);
+        assert!((kiln.firing_c(a, 18.0 * 3600.0) - 900.0).abs() < 1e-9);
+        assert!((kiln.firing_c(b, 18.0 * 3600.0) - 1240.0).abs() < 1e-9);
         assert!((kiln.duration_s() - 28.0 * 3600.0).abs() < 1e-6);
     }
 
@@ -362,7 +371,8 @@ probes = [
         // silence_s 12 → a scan every 3 s; a long silence keeps 10 s.
         let mut s = settings();
         assert!((scan_period_s(&s) - 3.0).abs() < 1e-12);
-        s.sources[0].silence_s = 600.0;
+        let source = s.sources.ids().next().expect("a source");
+        s.sources[source].silence_s = 600.0;
         assert!((scan_period_s(&s) - MAX_SCAN_S).abs() < 1e-12);
     }
 
@@ -375,7 +385,8 @@ probes = [
             kiln.scan(); // 1 h at 3 s
         }
         let mut line = FrameLine::new();
-        kiln.frame(&s, 0, &mut line).expect("frame");
+        let source = s.sources.ids().next().expect("a source");
+        kiln.frame(&s, source, &mut line).expect("frame");
         let mut parser = LineParser::new();
         let frame = line
             .bytes()
@@ -386,7 +397,7 @@ probes = [
         assert_eq!(frame.values.len(), 4);
         // After 1 h the face of zone a is at 20 + 60 × (880/1220) °C; the
         // probe at 50 mm has warmed above the start but stays below it.
-        let face = kiln.firing_c(0, 3600.0);
+        let face = kiln.firing_c(s.zone_named("a").unwrap(), 3600.0);
         assert!((face - (20.0 + 60.0 * 880.0 / 1220.0)).abs() < 1e-9);
         let Value::Reading { value, .. } = frame.values[0].1 else {
             panic!("a reading: {line}");

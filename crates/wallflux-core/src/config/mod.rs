@@ -10,6 +10,7 @@ mod validate;
 use heapless::Vec as HVec;
 use std::path::PathBuf;
 
+use crate::ids::{AlarmId, ChannelId, IdVec, SourceId, ZoneId};
 use crate::physics::material::Material;
 use crate::physics::surface::{Orientation, SurfaceParams};
 use crate::physics::thermocouple::TcType;
@@ -34,9 +35,10 @@ pub const MAX_CHANNELS: usize = 256;
 /// MQTT topic level and a file name).
 pub type Name = heapless::String<MAX_NAME>;
 
-/// The whole validated configuration. Cross-references are indices into the
-/// vectors here (a channel's `source`, a probe's `channel`, a layer's
-/// `material`); validation guarantees they resolve.
+/// The whole validated configuration. Cross-references are ids of the
+/// collections here (a channel's `source`, a probe's `channel`, an alarm's
+/// target; a layer's `material` is an index into `materials`); validation
+/// mints them, so each resolves in these settings.
 #[derive(Debug, Clone)]
 pub struct Settings {
     pub site: Site,
@@ -45,13 +47,13 @@ pub struct Settings {
     pub state_dir: PathBuf,
     pub mqtt: MqttSettings,
     pub log: LogSettings,
-    pub sources: Vec<Source>,
-    pub channels: Vec<Channel>,
+    pub sources: IdVec<SourceId, Source>,
+    pub channels: IdVec<ChannelId, Channel>,
     pub materials: Vec<NamedMaterial>,
-    pub zones: Vec<Zone>,
+    pub zones: IdVec<ZoneId, Zone>,
     /// Every alarm: built-in ones (tuned or disabled by an `[[alarm]]` of the
     /// same name) and configured ones.
-    pub alarms: Vec<AlarmConfig>,
+    pub alarms: IdVec<AlarmId, AlarmConfig>,
     pub trend: TrendSettings,
     /// Implausible settings that still give numbers (key path, line and
     /// message in the file's words): printed by `check` (errors with
@@ -63,11 +65,14 @@ pub struct Settings {
 #[derive(Debug, Clone, Copy, PartialEq, Eq)]
 pub enum AlarmTarget {
     /// A numeric field of zone `zone`'s state.
-    Zone { zone: usize, quantity: ZoneQuantity },
+    Zone {
+        zone: ZoneId,
+        quantity: ZoneQuantity,
+    },
     /// Channel `channel`: its temperature, or its health (diagnostic).
-    Channel { channel: usize, health: bool },
+    Channel { channel: ChannelId, health: bool },
     /// Source `source` silent (diagnostic).
-    Source { source: usize },
+    Source { source: SourceId },
 }
 
 /// The zone-state fields an alarm can watch.
@@ -251,7 +256,7 @@ pub struct Source {
     pub cj_c: Option<f64>,
     /// A channel of this source measuring its terminals (an RTD or
     /// thermistor sent as °C), used when a frame carries no `cj=`.
-    pub cj_channel: Option<usize>,
+    pub cj_channel: Option<ChannelId>,
     /// No valid frame for this long: the source is reported silent.
     pub silence_s: f64,
 }
@@ -270,8 +275,8 @@ crate::word_enum! {
 #[derive(Debug, Clone)]
 pub struct Channel {
     pub name: Name,
-    /// Index into `Settings::sources`.
-    pub source: usize,
+    /// The source the channel is read from.
+    pub source: SourceId,
     /// Input number on the source, 1..=64.
     pub input: u8,
     pub tc_type: TcType,
@@ -385,8 +390,8 @@ pub struct ZoneLayer {
 
 #[derive(Debug, Clone, Copy)]
 pub struct Probe {
-    /// Index into `Settings::channels`.
-    pub channel: usize,
+    /// The channel the probe is read through.
+    pub channel: ChannelId,
     /// Depth from the hot face, m.
     pub depth_m: f64,
     /// Standard uncertainty of the depth, m (`depth_sigma_mm`; default
@@ -426,7 +431,7 @@ pub struct Zone {
     pub baseline_days: f64,
     /// A channel reading the hot face itself (or the kiln atmosphere at
     /// it): with it the layered model sizes the remaining hot layer.
-    pub hot_face_channel: Option<usize>,
+    pub hot_face_channel: Option<ChannelId>,
     /// Built-in alarm when `lining_remaining_mm` falls below this, mm.
     pub lining_min_mm: Option<f64>,
     /// Window of the measured-rate regression, s.
@@ -458,11 +463,30 @@ impl Settings {
         )
     }
 
-    /// The channel index fed by `input` of `source`, if any.
-    pub fn channel_for(&self, source: usize, input: u8) -> Option<usize> {
+    /// The channel fed by `input` of `source`, if any.
+    pub fn channel_for(&self, source: SourceId, input: u8) -> Option<ChannelId> {
         self.channels
-            .iter()
             .position(|c| c.source == source && c.input == input)
+    }
+
+    /// The source named `name`, if any.
+    pub fn source_named(&self, name: &str) -> Option<SourceId> {
+        self.sources.position(|s| s.name.as_str() == name)
+    }
+
+    /// The channel named `name`, if any.
+    pub fn channel_named(&self, name: &str) -> Option<ChannelId> {
+        self.channels.position(|c| c.name.as_str() == name)
+    }
+
+    /// The zone named `name`, if any (never another zone in its place).
+    pub fn zone_named(&self, name: &str) -> Option<ZoneId> {
+        self.zones.position(|z| z.name.as_str() == name)
+    }
+
+    /// The alarm named `name`, if any.
+    pub fn alarm_named(&self, name: &str) -> Option<AlarmId> {
+        self.alarms.position(|a| a.name == name)
     }
 }
 

@@ -14,23 +14,63 @@ fn problems(text: &str) -> Vec<Problem> {
     }
 }
 
+/// A name lookup finds its own entry or nothing: an unknown zone is
+/// `None`, never zone 0 in its place.
+#[test]
+fn names_resolve_to_their_own_ids_or_none() {
+    let d = parse(DEMO, "demo.toml", None).unwrap();
+    let roof = d.zone_named("roof").unwrap();
+    assert_eq!((roof.index(), d.zones[roof].name.as_str()), (2, "roof"));
+    assert_eq!(d.zone_named("no-such-zone"), None);
+    assert_eq!(d.zone_named(""), None);
+    assert_eq!(d.channel_named("no-such-channel"), None);
+    assert_eq!(d.source_named("no-such-source"), None);
+    assert_eq!(d.alarm_named("no-such-alarm"), None);
+    let silent = d.alarm_named("tcbox-1-silent").unwrap();
+    assert_eq!(
+        d.alarms[silent].target,
+        AlarmTarget::Source {
+            source: d.source_named("tcbox-1").unwrap()
+        }
+    );
+}
+
+/// An id of a larger configuration is refused by the checked lookup of a
+/// smaller one.
+#[test]
+fn an_id_from_larger_settings_is_refused_by_get() {
+    let big = parse(DEMO, "demo.toml", None).unwrap();
+    let small = parse(EXAMPLE, "example.toml", None).unwrap();
+    let roof = big.zone_named("roof").unwrap();
+    assert_eq!(big.zones.get(roof).map(|z| z.name.as_str()), Some("roof"));
+    assert!(small.zones.get(roof).is_none());
+    let last_channel = big.channels.ids().next_back().unwrap();
+    assert!(big.channels.len() > small.channels.len());
+    assert!(small.channels.get(last_channel).is_none());
+}
+
 #[test]
 fn shipped_configs_load() {
     let s = parse(EXAMPLE, "example.toml", None).unwrap();
     assert_eq!(s.zones.len(), 1);
-    assert_eq!(s.zones[0].probes.len(), 4);
-    assert!((s.zones[0].thickness_m() - 0.25).abs() < 1e-12);
-    assert!((s.zones[0].probes[1].depth_m - 0.12).abs() < 1e-12);
+    let north = &s.zones[s.zone_named("north-wall").unwrap()];
+    assert_eq!(north.probes.len(), 4);
+    assert!((north.thickness_m() - 0.25).abs() < 1e-12);
+    assert!((north.probes[1].depth_m - 0.12).abs() < 1e-12);
     assert_eq!(s.topic_root(), "wallflux/example-plant/kiln-3");
     assert_eq!(s.state_dir, std::path::PathBuf::from("/var/lib/wallflux"));
     let d = parse(DEMO, "demo.toml", Some("/run/x:/run/y")).unwrap();
     assert_eq!(d.zones.len(), 3);
     assert_eq!(d.state_dir, std::path::PathBuf::from("/run/x"));
     assert_eq!(
-        d.channel_for(0, 9).map(|c| d.channels[c].name.as_str()),
+        d.source_named("tcbox-1")
+            .and_then(|s| d.channel_for(s, 9))
+            .map(|c| d.channels[c].name.as_str()),
         Some("door-30")
     );
-    assert_eq!(d.channels[5].signal, Signal::Millivolts);
+    let door_30 = d.channel_named("door-30").unwrap();
+    assert_eq!(door_30.index(), 5);
+    assert_eq!(d.channels[door_30].signal, Signal::Millivolts);
 }
 
 #[test]
@@ -302,7 +342,7 @@ fn uncertainty_keys_default_and_refuse_the_absurd() {
         m.heat_capacity_uncertainty_pct,
         DEFAULT_HEAT_CAPACITY_UNCERTAINTY_PCT
     );
-    let z = &s.zones[0];
+    let z = &s.zones[s.zone_named("north-wall").unwrap()];
     assert!((z.probes[0].depth_sigma_m - DEFAULT_DEPTH_SIGMA_MM / 1000.0).abs() < 1e-12);
     // The last probe sits at the shell (250 mm of a 250 mm wall).
     assert_eq!(z.probes[3].depth_sigma_m, 0.0);
@@ -721,7 +761,8 @@ fn with_probes(n: usize) -> String {
 #[test]
 fn the_probe_generator_makes_a_valid_zone() {
     let s = parse(&with_probes(MAX_PROBES), "t.toml", None).unwrap();
-    assert_eq!(s.zones[0].probes.len(), MAX_PROBES);
+    let z = s.zone_named("north-wall").unwrap();
+    assert_eq!(s.zones[z].probes.len(), MAX_PROBES);
 }
 
 #[test]
@@ -832,5 +873,8 @@ fn a_name_longer_than_a_name_holds_is_refused_with_the_limit() {
         .replace("name = \"north-wall\"", &format!("name = \"{just}\""))
         .replace("zone = \"north-wall\"", &format!("zone = \"{just}\""));
     let s = parse(&text, "t.toml", None).unwrap();
-    assert_eq!(s.zones[0].name.as_str(), just);
+    assert_eq!(
+        s.zone_named(&just).map(|z| s.zones[z].name.as_str()),
+        Some(&*just)
+    );
 }

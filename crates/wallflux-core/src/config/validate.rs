@@ -8,6 +8,7 @@ use std::path::PathBuf;
 use toml::Spanned;
 
 use crate::bounded::PushWithin;
+use crate::ids::{unresolved, IdVec};
 use crate::words::Word;
 use heapless::Vec as HVec;
 
@@ -454,7 +455,7 @@ impl Validator<'_> {
             },
         };
 
-        let mut sources: Vec<Source> = raw
+        let mut sources: IdVec<SourceId, Source> = raw
             .source
             .iter()
             .enumerate()
@@ -481,7 +482,7 @@ impl Validator<'_> {
                 format!("at most {MAX_CHANNELS} channels are supported"),
             );
         }
-        let mut channels: Vec<Channel> = raw
+        let mut channels: IdVec<ChannelId, Channel> = raw
             .channel
             .iter()
             .enumerate()
@@ -494,10 +495,9 @@ impl Validator<'_> {
             .collect();
         self.unique(&names, "channel");
         for (i, c) in channels.iter().enumerate() {
-            if let Some(first) = channels[..i]
-                .iter()
-                .position(|d| d.source == c.source && d.input == c.input && c.source != usize::MAX)
-            {
+            if let Some(first) = channels.as_slice()[..i].iter().position(|d| {
+                d.source == c.source && d.input == c.input && sources.get(c.source).is_some()
+            }) {
                 let r = raw.channel[i].get_ref();
                 self.problem(
                     r.input.span(),
@@ -506,20 +506,21 @@ impl Validator<'_> {
                         "input {} of source {:?} is already read by channel[{first}] ({:?})",
                         c.input,
                         r.source.get_ref(),
-                        channels[first].name
+                        channels.as_slice()[first].name
                     ),
                 );
             }
         }
 
         // Cold-junction channels resolve once the channels are known.
-        for (i, rs) in raw.source.iter().enumerate() {
+        for (si, rs) in sources.ids().zip(&raw.source) {
+            let i = si.index();
             let Some(c) = &rs.get_ref().cj_channel else {
                 continue;
             };
-            match channels.iter().position(|x| x.name.as_str() == c.get_ref()) {
-                Some(ci) if channels[ci].source == i && channels[ci].signal == Signal::Celsius => {
-                    sources[i].cj_channel = Some(ci);
+            match channels.position(|x| x.name.as_str() == c.get_ref()) {
+                Some(ci) if channels[ci].source == si && channels[ci].signal == Signal::Celsius => {
+                    sources[si].cj_channel = Some(ci);
                     // Whatever its `type` says, it measures terminals: it is
                     // diagnosed as a terminal sensor (older files gave it a
                     // thermocouple letter, which meant nothing for it).
@@ -578,7 +579,7 @@ impl Validator<'_> {
             .collect();
         self.unique(&names, "material");
 
-        let zones: Vec<Zone> = raw
+        let zones: IdVec<ZoneId, Zone> = raw
             .zone
             .iter()
             .enumerate()
@@ -600,7 +601,7 @@ impl Validator<'_> {
 
         // A terminal sensor measures a box, not a wall.
         for (zi, (z, rz)) in zones.iter().zip(&raw.zone).enumerate() {
-            let terminal = |c: usize| {
+            let terminal = |c: ChannelId| {
                 channels
                     .get(c)
                     .is_some_and(|c| c.kind == ChannelKind::Terminal)
@@ -650,6 +651,7 @@ impl Validator<'_> {
         };
         let mut alarms = self.builtin_alarms(defaults, &sources, &channels, &materials, &zones);
         self.configured_alarms(&raw.alarm, &mut alarms, &sources, &channels, &zones);
+        let alarms = alarms.into_iter().collect();
 
         Some(Settings {
             site,
@@ -670,10 +672,10 @@ impl Validator<'_> {
     fn builtin_alarms(
         &mut self,
         defaults: Option<&RawAlarmDefaults>,
-        sources: &[Source],
-        channels: &[Channel],
+        sources: &IdVec<SourceId, Source>,
+        channels: &IdVec<ChannelId, Channel>,
         materials: &[NamedMaterial],
-        zones: &[Zone],
+        zones: &IdVec<ZoneId, Zone>,
     ) -> Vec<AlarmConfig> {
         let spec = |kind, setpoint, deadband, on_delay_s, priority| AlarmSpec {
             kind,
@@ -698,7 +700,7 @@ impl Validator<'_> {
         let touch_on = defaults
             .and_then(|d| d.shell_touch_enabled.as_ref())
             .is_none_or(|e| *e.get_ref());
-        for (zi, z) in zones.iter().enumerate() {
+        for (zi, z) in zones.iter_ids() {
             let zone = |quantity| AlarmTarget::Zone { zone: zi, quantity };
             if touch_on {
                 out.push(builtin(
@@ -792,7 +794,7 @@ impl Validator<'_> {
                 });
             }
         }
-        for (ci, c) in channels.iter().enumerate() {
+        for (ci, c) in channels.iter_ids() {
             if !zones
                 .iter()
                 .any(|z| z.probes.iter().any(|p| p.channel == ci))
@@ -814,7 +816,7 @@ impl Validator<'_> {
                 "Check the thermocouple, its wiring and its input",
             ));
         }
-        for (si, s) in sources.iter().enumerate() {
+        for (si, s) in sources.iter_ids() {
             out.push(builtin(
                 format!("{}-silent", s.name),
                 AlarmTarget::Source { source: si },
@@ -831,9 +833,9 @@ impl Validator<'_> {
         &mut self,
         raw: &[Spanned<RawAlarm>],
         alarms: &mut Vec<AlarmConfig>,
-        sources: &[Source],
-        channels: &[Channel],
-        zones: &[Zone],
+        sources: &IdVec<SourceId, Source>,
+        channels: &IdVec<ChannelId, Channel>,
+        zones: &IdVec<ZoneId, Zone>,
     ) {
         let mut seen: Vec<String> = Vec::new();
         for (i, ra) in raw.iter().enumerate() {
@@ -1003,9 +1005,9 @@ impl Validator<'_> {
         &mut self,
         i: usize,
         a: &RawAlarm,
-        sources: &[Source],
-        channels: &[Channel],
-        zones: &[Zone],
+        sources: &IdVec<SourceId, Source>,
+        channels: &IdVec<ChannelId, Channel>,
+        zones: &IdVec<ZoneId, Zone>,
     ) -> Option<AlarmTarget> {
         let p = |k: &str| format!("alarm[{i}].{k}");
         let given = [a.zone.is_some(), a.channel.is_some(), a.source.is_some()]
@@ -1021,7 +1023,7 @@ impl Validator<'_> {
             return None;
         }
         if let Some(z) = &a.zone {
-            let Some(zone) = zones.iter().position(|x| x.name.as_str() == z.get_ref()) else {
+            let Some(zone) = zones.position(|x| x.name.as_str() == z.get_ref()) else {
                 self.problem(
                     z.span(),
                     p("zone"),
@@ -1070,7 +1072,7 @@ impl Validator<'_> {
             return Some(AlarmTarget::Zone { zone, quantity });
         }
         if let Some(c) = &a.channel {
-            let Some(channel) = channels.iter().position(|x| x.name.as_str() == c.get_ref()) else {
+            let Some(channel) = channels.position(|x| x.name.as_str() == c.get_ref()) else {
                 self.problem(
                     c.span(),
                     p("channel"),
@@ -1096,7 +1098,7 @@ impl Validator<'_> {
             return Some(AlarmTarget::Channel { channel, health });
         }
         let s = a.source.as_ref()?;
-        let Some(source) = sources.iter().position(|x| x.name.as_str() == s.get_ref()) else {
+        let Some(source) = sources.position(|x| x.name.as_str() == s.get_ref()) else {
             self.problem(
                 s.span(),
                 p("source"),
@@ -1247,13 +1249,10 @@ impl Validator<'_> {
         }
     }
 
-    fn channel(&mut self, i: usize, c: &RawChannel, sources: &[Source]) -> Channel {
+    fn channel(&mut self, i: usize, c: &RawChannel, sources: &IdVec<SourceId, Source>) -> Channel {
         let p = |k: &str| format!("channel[{i}].{k}");
         let name = self.name(&c.name, &p("name"));
-        let source = match sources
-            .iter()
-            .position(|s| s.name.as_str() == c.source.get_ref())
-        {
+        let source = match sources.position(|s| s.name.as_str() == c.source.get_ref()) {
             Some(s) => s,
             None => {
                 self.problem(
@@ -1261,7 +1260,7 @@ impl Validator<'_> {
                     p("source"),
                     format!("no [[source]] is named {:?}", c.source.get_ref()),
                 );
-                usize::MAX
+                unresolved()
             }
         };
         // Inputs are distinct per source (checked with the channels), so a
@@ -1514,7 +1513,7 @@ impl Validator<'_> {
         &mut self,
         i: usize,
         sz: &Spanned<RawZone>,
-        channels: &[Channel],
+        channels: &IdVec<ChannelId, Channel>,
         materials: &[NamedMaterial],
     ) -> Zone {
         let z = sz.get_ref();
@@ -1628,7 +1627,7 @@ impl Validator<'_> {
             self.positive_up_to(d, &p("baseline_days"), 3650.0, "days")
         });
         let hot_face_channel = z.hot_face_channel.as_ref().and_then(|c| {
-            let i = channels.iter().position(|x| x.name.as_str() == c.get_ref());
+            let i = channels.position(|x| x.name.as_str() == c.get_ref());
             if i.is_none() {
                 self.problem(
                     c.span(),
@@ -1775,10 +1774,7 @@ impl Validator<'_> {
         for (j, pr) in z.probes.get_ref().iter().enumerate() {
             let pr = pr.get_ref();
             let pp = format!("zone[{i}].probes[{j}]");
-            let channel = match channels
-                .iter()
-                .position(|c| c.name.as_str() == pr.channel.get_ref())
-            {
+            let channel = match channels.position(|c| c.name.as_str() == pr.channel.get_ref()) {
                 Some(c) => c,
                 None => {
                     self.problem(
@@ -1786,12 +1782,12 @@ impl Validator<'_> {
                         format!("{pp}.channel"),
                         format!("no [[channel]] is named {:?}", pr.channel.get_ref()),
                     );
-                    usize::MAX
+                    unresolved()
                 }
             };
             if let Some(first) = probes
                 .iter()
-                .position(|q: &Probe| q.channel == channel && channel != usize::MAX)
+                .position(|q: &Probe| q.channel == channel && channels.get(channel).is_some())
             {
                 self.problem(
                     pr.channel.span(),

@@ -30,6 +30,7 @@ use super::command::{Action, Command, CommandError};
 use super::trend::{time_to_limit_h, windowed_rate_per_h, FloodMeter, TrendWatch};
 use super::zone::ZoneReport;
 use crate::config::{AlarmConfig, AlarmTarget, Settings, ZoneQuantity, MAX_PROBES};
+use crate::ids::{AlarmId, ChannelId, IdVec, SourceId, ZoneId};
 use crate::time::Timestamp;
 
 /// Points kept per alarm for its rate (rate alarms, trend alerts).
@@ -49,7 +50,7 @@ pub enum AlarmOutput {
     /// An alarm changed; `announced` is false while it is shelved,
     /// suppressed or out of service.
     Transition {
-        alarm: usize,
+        alarm: AlarmId,
         transition: Transition,
         announced: bool,
     },
@@ -59,7 +60,7 @@ pub enum AlarmOutput {
 
 #[derive(Debug, Clone, PartialEq)]
 pub struct TrendAlert {
-    pub alarm: usize,
+    pub alarm: AlarmId,
     pub time: Timestamp,
     pub value: f64,
     pub rate_per_h: f64,
@@ -85,10 +86,10 @@ struct Slot {
 }
 
 pub struct AlarmEngine {
-    configs: Vec<AlarmConfig>,
-    slots: Vec<Slot>,
+    configs: IdVec<AlarmId, AlarmConfig>,
+    slots: IdVec<AlarmId, Slot>,
     /// Channels each alarm depends on (for suppression).
-    deps: Vec<HVec<usize, MAX_PROBES>>,
+    deps: IdVec<AlarmId, HVec<ChannelId, MAX_PROBES>>,
     origin: Timestamp,
     flood: FloodMeter,
     pending: VecDeque<AlarmOutput>,
@@ -105,9 +106,7 @@ impl AlarmEngine {
         start: Timestamp,
     ) -> Self {
         let configs = settings.alarms.clone();
-        let mut slots = Vec::with_capacity(configs.len());
-        let mut deps = Vec::with_capacity(configs.len());
-        for c in &configs {
+        let slots = configs.map(|c| {
             let alarm = match saved.get(&c.name) {
                 Some(f) => Alarm::with_flags(c.spec, f.clone()),
                 None => Alarm::new(c.spec),
@@ -116,7 +115,7 @@ impl AlarmEngine {
                 AlarmTarget::Zone { zone, .. } => settings.zones[zone].rate_window_s,
                 _ => DEFAULT_RATE_WINDOW_S,
             };
-            slots.push(Slot {
+            Slot {
                 alarm,
                 history: HistoryBuf::new(),
                 window_s,
@@ -125,9 +124,9 @@ impl AlarmEngine {
                 rate_per_h: None,
                 watch: TrendWatch::new(settings.trend.horizon_h, settings.trend.repeat_min * 60.0),
                 no_trend: beyond_setpoint(settings, c),
-            });
-            deps.push(dependencies(settings, c));
-        }
+            }
+        });
+        let deps = configs.map(|c| dependencies(settings, c));
         AlarmEngine {
             configs,
             slots,
@@ -140,7 +139,8 @@ impl AlarmEngine {
         }
     }
 
-    pub fn configs(&self) -> &[AlarmConfig] {
+    /// Every alarm's configuration, by id.
+    pub fn configs(&self) -> &IdVec<AlarmId, AlarmConfig> {
         &self.configs
     }
 
@@ -171,7 +171,7 @@ impl AlarmEngine {
         self.pending.push_back(o);
     }
 
-    fn record(&mut self, i: usize, t: Option<Transition>, now: Timestamp) {
+    fn record(&mut self, i: AlarmId, t: Option<Transition>, now: Timestamp) {
         let Some(t) = t else { return };
         self.dirty = true;
         if t.active && t.cause == super::alarm::Cause::Activated {
@@ -190,11 +190,11 @@ impl AlarmEngine {
     pub fn update_suppression(
         &mut self,
         settings: &Settings,
-        health: impl Fn(usize) -> Health,
-        silent: impl Fn(usize) -> bool,
+        health: impl Fn(ChannelId) -> Health,
+        silent: impl Fn(SourceId) -> bool,
         now: Timestamp,
     ) {
-        for i in 0..self.slots.len() {
+        for i in self.slots.ids() {
             let suppress = match (self.configs[i].spec.kind, self.configs[i].target) {
                 (AlarmKind::Diagnostic, AlarmTarget::Channel { channel, .. }) => {
                     silent(settings.channels[channel].source)
@@ -210,9 +210,9 @@ impl AlarmEngine {
     }
 
     /// Evaluates the alarms of zone `zone` on its new report.
-    pub fn on_zone(&mut self, zone: usize, report: &ZoneReport) {
+    pub fn on_zone(&mut self, zone: ZoneId, report: &ZoneReport) {
         let now = report.time;
-        for i in 0..self.slots.len() {
+        for i in self.slots.ids() {
             let AlarmTarget::Zone { zone: z, quantity } = self.configs[i].target else {
                 continue;
             };
@@ -233,12 +233,12 @@ impl AlarmEngine {
     /// valid, and its health).
     pub fn on_channel(
         &mut self,
-        channel: usize,
+        channel: ChannelId,
         health: Health,
         celsius: Option<f64>,
         now: Timestamp,
     ) {
-        for i in 0..self.slots.len() {
+        for i in self.slots.ids() {
             let AlarmTarget::Channel {
                 channel: c,
                 health: is_health,
@@ -259,22 +259,22 @@ impl AlarmEngine {
     }
 
     /// Evaluates the silence alarm of source `source`.
-    pub fn on_source(&mut self, source: usize, silent: bool, now: Timestamp) {
-        for i in 0..self.slots.len() {
+    pub fn on_source(&mut self, source: SourceId, silent: bool, now: Timestamp) {
+        for i in self.slots.ids() {
             if self.configs[i].target == (AlarmTarget::Source { source }) {
                 self.evaluate(i, Some(if silent { 1.0 } else { 0.0 }), now);
             }
         }
     }
 
-    fn evaluate(&mut self, i: usize, raw: Option<f64>, now: Timestamp) {
+    fn evaluate(&mut self, i: AlarmId, raw: Option<f64>, now: Timestamp) {
         self.evaluate_with(i, raw, true, now);
     }
 
     /// Evaluates alarm `i` on `raw`; `for_rate`: the value also enters the
     /// history its rate is computed from. A `None` (no valid value, or a
     /// number the zone withholds) is bad quality: the alarm keeps its state.
-    fn evaluate_with(&mut self, i: usize, raw: Option<f64>, for_rate: bool, now: Timestamp) {
+    fn evaluate_with(&mut self, i: AlarmId, raw: Option<f64>, for_rate: bool, now: Timestamp) {
         let t = now.since(self.origin);
         let cfg = &self.configs[i];
         let slot = &mut self.slots[i];
@@ -300,7 +300,7 @@ impl AlarmEngine {
     /// horizon at the current rate (and the alarm is not already active):
     /// at most one per `trend_repeat_min` for the alarm, unless the
     /// estimate halves (see `TrendWatch`).
-    fn trend(&mut self, i: usize, now: Timestamp) {
+    fn trend(&mut self, i: AlarmId, now: Timestamp) {
         let cfg = &self.configs[i];
         if !matches!(cfg.spec.kind, AlarmKind::High | AlarmKind::Low) {
             return;
@@ -338,17 +338,16 @@ impl AlarmEngine {
 
     /// Timers: shelves running out, delays completing.
     pub fn tick(&mut self, now: Timestamp) {
-        for i in 0..self.slots.len() {
+        for i in self.slots.ids() {
             let t = self.slots[i].alarm.tick(now);
             self.record(i, t, now);
         }
     }
 
     /// An operator command (already parsed). The caller replies and logs.
-    pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+    pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<AlarmId, CommandError> {
         let i = self
             .configs
-            .iter()
             .position(|c| c.name == cmd.alarm)
             .ok_or_else(|| CommandError::UnknownAlarm(cmd.alarm.clone()))?;
         let a = &mut self.slots[i].alarm;
@@ -386,7 +385,8 @@ impl AlarmEngine {
             .collect()
     }
 
-    pub fn state(&self, i: usize, now: Timestamp) -> AlarmState {
+    /// The ISA-18.2 state of alarm `i` at `now`.
+    pub fn state(&self, i: AlarmId, now: Timestamp) -> AlarmState {
         self.slots[i].alarm.state(now)
     }
 
@@ -399,7 +399,7 @@ impl AlarmEngine {
     }
 
     /// The `{root}/alarm/{name}` payload of alarm `i`.
-    pub fn report(&self, settings: &Settings, i: usize, now: Timestamp) -> AlarmReport {
+    pub fn report(&self, settings: &Settings, i: AlarmId, now: Timestamp) -> AlarmReport {
         let c = &self.configs[i];
         let s = &self.slots[i];
         let f = s.alarm.flags();
@@ -547,7 +547,7 @@ fn zone_quantity(r: &ZoneReport, q: ZoneQuantity) -> Option<f64> {
 
 /// The channels an alarm's value comes from (a zone alarm: its probes'),
 /// for suppression by design: at most a zone's probes.
-fn dependencies(settings: &Settings, c: &AlarmConfig) -> HVec<usize, MAX_PROBES> {
+fn dependencies(settings: &Settings, c: &AlarmConfig) -> HVec<ChannelId, MAX_PROBES> {
     let mut d = HVec::new();
     match c.target {
         AlarmTarget::Zone { zone, quantity } => {

@@ -13,6 +13,7 @@ use super::output::{
 };
 use super::trend::trend_line;
 use super::{Monitor, FLOOD_SUMMARY_EVERY_S};
+use crate::ids::AlarmId;
 use crate::time::Timestamp;
 
 impl Monitor {
@@ -73,7 +74,7 @@ impl Monitor {
     /// Asks for every alarm's [`Output::AlarmState`] at `now` (at start, and
     /// when a sink may have lost the retained ones).
     pub fn handle_alarm_states_request(&mut self, now: Timestamp) {
-        for i in 0..self.alarms.len() {
+        for i in self.alarms.configs().ids() {
             let state = self.alarm_state(i, now);
             self.push(Output::AlarmState(state));
         }
@@ -104,7 +105,7 @@ impl Monitor {
         self.flood_policy(now);
     }
 
-    fn alarm_state(&self, i: usize, now: Timestamp) -> AlarmStateReport {
+    fn alarm_state(&self, i: AlarmId, now: Timestamp) -> AlarmStateReport {
         AlarmStateReport {
             report: self.alarm_report(i, now),
             reason: self.alarm_reason(i, now),
@@ -113,7 +114,7 @@ impl Monitor {
 
     fn alarm_event(
         &mut self,
-        i: usize,
+        i: AlarmId,
         t: &Transition,
         announced: bool,
         now: Timestamp,
@@ -222,8 +223,8 @@ impl Monitor {
     }
 
     /// The alarms active at `now` (unacknowledged or acknowledged).
-    fn active_alarms(&self, now: Timestamp) -> impl Iterator<Item = usize> + '_ {
-        (0..self.alarms.len()).filter(move |&i| {
+    fn active_alarms(&self, now: Timestamp) -> impl Iterator<Item = AlarmId> + '_ {
+        self.alarms.configs().ids().filter(move |&i| {
             matches!(
                 self.alarms.state(i, now),
                 AlarmState::Unacknowledged | AlarmState::Acknowledged

@@ -19,6 +19,7 @@ use std::sync::Arc;
 use serde::{Deserialize, Serialize};
 
 use crate::config::Operation;
+use crate::ids::{IdVec, ZoneId};
 use crate::time::Timestamp;
 
 /// 1 kWh in joules.
@@ -154,7 +155,7 @@ pub struct EnergyMeter {
     firing_start_c: f64,
     operation: Operation,
     /// Latest (heat loss W, hot face °C) of each zone.
-    latest: Vec<Option<(f64, f64)>>,
+    latest: IdVec<ZoneId, Option<(f64, f64)>>,
 }
 
 /// Splits a zone's heat loss into (loss, gain), both ≥ 0, W: a negative
@@ -182,7 +183,7 @@ impl EnergyMeter {
             totals,
             firing_start_c,
             operation,
-            latest: vec![None; zones],
+            latest: IdVec::from_fn(zones, |_| None),
         }
     }
 
@@ -192,7 +193,7 @@ impl EnergyMeter {
     /// without numbers adds nothing (and its gap is not guessed).
     pub fn record(
         &mut self,
-        zone: usize,
+        zone: ZoneId,
         heat_loss_w: Option<f64>,
         hot_face_c: Option<f64>,
         interval_s: f64,
@@ -414,6 +415,11 @@ mod tests {
     use super::*;
     use proptest::prelude::*;
 
+    /// The id of the meter's zone `i`.
+    fn zone(i: usize) -> ZoneId {
+        crate::ids::mint(i)
+    }
+
     const PERIODIC: Operation = Operation::Periodic;
 
     /// Three zones losing a constant 1000, 2000 and 500 W for one UTC day
@@ -425,7 +431,7 @@ mod tests {
         for k in 1..=1440 {
             let now = Timestamp::from_epoch_s(day0 + f64::from(k) * 60.0 - 0.5);
             for (z, w) in [1000.0, 2000.0, 500.0].into_iter().enumerate() {
-                m.record(z, Some(w), Some(900.0), 60.0, now);
+                m.record(zone(z), Some(w), Some(900.0), 60.0, now);
             }
         }
         assert!(
@@ -439,7 +445,7 @@ mod tests {
         assert_eq!(m.kiln_heat_w(), (3500.0, 0.0, 3));
         // The next day starts at zero and keeps yesterday.
         m.record(
-            0,
+            zone(0),
             Some(1000.0),
             Some(900.0),
             60.0,
@@ -460,26 +466,26 @@ mod tests {
     fn a_firing_is_counted_from_rise_to_fall() {
         let mut m = EnergyMeter::new(1, 100.0, PERIODIC, EnergyTotals::default());
         let at = |s: f64| Timestamp::from_epoch_s(1_800_000_000.0 + s);
-        m.record(0, Some(100.0), Some(40.0), 3600.0, at(3600.0));
+        m.record(zone(0), Some(100.0), Some(40.0), 3600.0, at(3600.0));
         assert_eq!(m.totals.firing_started, None);
         // 10 h at 5 kW while hot: 50 kWh (the first hot state opens the
         // firing, so its own interval is counted from the next one).
         for h in 2..=11 {
             m.record(
-                0,
+                zone(0),
                 Some(5000.0),
                 Some(800.0),
                 3600.0,
                 at(f64::from(h) * 3600.0),
             );
         }
-        m.record(0, Some(200.0), Some(60.0), 3600.0, at(12.0 * 3600.0));
+        m.record(zone(0), Some(200.0), Some(60.0), 3600.0, at(12.0 * 3600.0));
         assert!((m.totals.last_firing_kwh.unwrap() - 9.0 * 5.0 - 0.2).abs() < 1e-9);
         assert!((m.totals.last_firing_hours.unwrap() - 10.0).abs() < 1e-9);
         assert_eq!(m.totals.firing_started, None);
         // A zone with no numbers adds nothing.
         let before = m.totals.total_kwh;
-        m.record(0, None, None, 3600.0, at(13.0 * 3600.0));
+        m.record(zone(0), None, None, 3600.0, at(13.0 * 3600.0));
         assert_eq!(m.totals.total_kwh, before);
     }
 
@@ -493,11 +499,11 @@ mod tests {
         let mut m = EnergyMeter::new(1, 150.0, PERIODIC, EnergyTotals::default());
         let at = |h: f64| Timestamp::from_epoch_s(1_800_000_000.0 + h * 3600.0);
         for h in 1..=10 {
-            m.record(0, Some(-2000.0), Some(30.0), 3600.0, at(f64::from(h)));
+            m.record(zone(0), Some(-2000.0), Some(30.0), 3600.0, at(f64::from(h)));
         }
         assert_eq!(m.kiln_heat_w(), (0.0, 2000.0, 1));
         for h in 11..=12 {
-            m.record(0, Some(5000.0), Some(700.0), 3600.0, at(f64::from(h)));
+            m.record(zone(0), Some(5000.0), Some(700.0), 3600.0, at(f64::from(h)));
         }
         let t = &m.totals;
         assert!(
@@ -523,7 +529,7 @@ mod tests {
         let mut m = EnergyMeter::new(1, 150.0, Operation::Continuous, EnergyTotals::default());
         for k in 1..=(36 * 60) {
             let now = Timestamp::from_epoch_s(day0 + f64::from(k) * 60.0);
-            m.record(0, Some(3000.0), Some(1150.0), 60.0, now);
+            m.record(zone(0), Some(3000.0), Some(1150.0), 60.0, now);
             assert_eq!(m.totals.firing_started, None);
         }
         let now = Timestamp::from_epoch_s(day0 + 36.0 * 3600.0);
@@ -592,9 +598,9 @@ mod tests {
             let mut m = EnergyMeter::new(3, 150.0, PERIODIC, EnergyTotals::default());
             let mut now = 1_800_000_000.0 + start;
             let mut net_kwh = 0.0;
-            for (zone, w, hot, dt, restart) in steps {
+            for (z, w, hot, dt, restart) in steps {
                 now += dt;
-                m.record(zone, w, Some(hot), dt, Timestamp::from_epoch_s(now));
+                m.record(zone(z), w, Some(hot), dt, Timestamp::from_epoch_s(now));
                 net_kwh += w.unwrap_or(0.0) * dt / J_PER_KWH;
                 if restart {
                     let json = serde_json::to_string(&m.totals).unwrap();

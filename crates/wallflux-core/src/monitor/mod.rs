@@ -41,6 +41,7 @@ use std::collections::VecDeque;
 use std::sync::Arc;
 
 use crate::config::{BaselineStart, Model, Settings, Zone};
+use crate::ids::{AlarmId, ChannelId, IdVec, SourceId, ZoneId};
 use crate::protocol::scan::{self, Scan};
 use crate::time::Timestamp;
 use alarm::AlarmFlags;
@@ -61,18 +62,18 @@ pub const FLOOD_SUMMARY_EVERY_S: f64 = 60.0;
 
 pub struct Monitor {
     settings: Arc<Settings>,
-    channels: Vec<ChannelState>,
+    channels: IdVec<ChannelId, ChannelState>,
     /// Staleness limit per channel: three intervals of the fastest zone
     /// using it, else the source's silence limit.
-    stale_after_s: Vec<f64>,
+    stale_after_s: IdVec<ChannelId, f64>,
     /// Next time each channel's state is due for publication.
-    channel_due: Vec<Timestamp>,
+    channel_due: IdVec<ChannelId, Timestamp>,
     channel_period_s: f64,
-    zones: Vec<ZoneEngine>,
+    zones: IdVec<ZoneId, ZoneEngine>,
     outputs: VecDeque<Output>,
-    unknown_inputs_seen: Vec<[bool; 65]>,
+    unknown_inputs_seen: IdVec<SourceId, [bool; 65]>,
     /// Each source's health: last reading, silence, counters.
-    sources: Vec<SourceState>,
+    sources: IdVec<SourceId, SourceState>,
     start: Timestamp,
     alarms: AlarmEngine,
     meter: EnergyMeter,
@@ -95,12 +96,9 @@ impl Monitor {
         start: Timestamp,
         saved: &std::collections::BTreeMap<String, AlarmFlags>,
     ) -> Self {
-        let n = settings.channels.len();
-        let mut stale_after_s: Vec<f64> = settings
+        let mut stale_after_s = settings
             .channels
-            .iter()
-            .map(|c| settings.sources[c.source].silence_s)
-            .collect();
+            .map(|c| settings.sources[c.source].silence_s);
         for z in &settings.zones {
             for p in &z.probes {
                 let limit = STALE_INTERVALS * z.interval_s;
@@ -117,8 +115,7 @@ impl Monitor {
             .min(60.0);
         let zones = settings
             .zones
-            .iter()
-            .enumerate()
+            .iter_ids()
             .map(|(i, z)| {
                 let mut e = ZoneEngine::new(i, z, &settings.materials, start);
                 if has_baseline(z) && z.baseline_start == BaselineStart::FirstRun {
@@ -128,14 +125,14 @@ impl Monitor {
             })
             .collect();
         Monitor {
-            channels: vec![ChannelState::default(); n],
+            channels: settings.channels.map(|_| ChannelState::default()),
             stale_after_s,
-            channel_due: vec![start; n],
+            channel_due: settings.channels.map(|_| start),
             channel_period_s,
             zones,
             outputs: VecDeque::with_capacity(OUTPUT_QUEUE),
-            unknown_inputs_seen: vec![[false; 65]; settings.sources.len()],
-            sources: vec![SourceState::default(); settings.sources.len()],
+            unknown_inputs_seen: settings.sources.map(|_| [false; 65]),
+            sources: settings.sources.map(|_| SourceState::default()),
             start,
             alarms: AlarmEngine::new(&settings, saved, start),
             meter: new_meter(&settings, EnergyTotals::default()),
@@ -181,14 +178,14 @@ impl Monitor {
         self.outputs.pop_front()
     }
 
-    /// A scan from source `source`, received at `now` (a source index the
-    /// configuration does not have is ignored). The cold junction: the
+    /// A scan from source `source`, received at `now` (the id of a source
+    /// these settings do not have is ignored). The cold junction: the
     /// scan's own, else the source's cold-junction (terminal) sensor (its
     /// reading in this scan, or its latest reading while it is `ok`), else
     /// the source's fixed `cj_c`. A terminal sensor that is not `ok` makes
     /// the scan's millivolt readings invalid, with the sensor's fault as
     /// their reason.
-    pub fn handle_scan(&mut self, source: usize, scan: &Scan, now: Timestamp) {
+    pub fn handle_scan(&mut self, source: SourceId, scan: &Scan, now: Timestamp) {
         let Some(state) = self.sources.get_mut(source) else {
             return;
         };
@@ -227,14 +224,14 @@ impl Monitor {
     /// A frame from source `source` that its decoder rejected, at `now`
     /// (counted in the source's health; it is no reading, so it does not
     /// end a silence).
-    pub fn handle_decode_error(&mut self, source: usize, _now: Timestamp) {
+    pub fn handle_decode_error(&mut self, source: SourceId, _now: Timestamp) {
         if let Some(s) = self.sources.get_mut(source) {
             s.counters.decode_errors += 1;
         }
     }
 
-    /// Source `s`'s counters (zero for an unknown index).
-    pub fn source_counters(&self, s: usize) -> SourceCounters {
+    /// Source `s`'s counters (zero for a source these settings do not have).
+    pub fn source_counters(&self, s: SourceId) -> SourceCounters {
         self.sources
             .get(s)
             .map_or_else(SourceCounters::default, |s| s.counters)
@@ -243,7 +240,7 @@ impl Monitor {
     /// The temperature of cold-junction (terminal) sensor `cc` at `now`,
     /// or, when it is not `ok`, why not (in words, for the millivolt
     /// channels it compensates).
-    fn cold_junction_c(&self, cc: usize, now: Timestamp) -> Result<f64, &'static str> {
+    fn cold_junction_c(&self, cc: ChannelId, now: Timestamp) -> Result<f64, &'static str> {
         let (health, _) = self.channels[cc].health_at(now, self.stale_after_s[cc]);
         match self.channels[cc].latest {
             Some(r) if health == Health::Ok => Ok(r.celsius),
@@ -257,7 +254,7 @@ impl Monitor {
     /// whatever `cj_c` says.
     pub fn handle_value(
         &mut self,
-        ch: usize,
+        ch: ChannelId,
         value: impl Into<scan::Reading>,
         cj_c: Option<f64>,
         now: Timestamp,
@@ -284,7 +281,7 @@ impl Monitor {
     /// none), or the reason its cold-junction sensor gives none.
     fn apply_value(
         &mut self,
-        ch: usize,
+        ch: ChannelId,
         value: scan::Reading,
         cj: Result<Option<f64>, &'static str>,
         now: Timestamp,
@@ -323,7 +320,7 @@ impl Monitor {
     }
 
     /// A reading from source `s` at `now` ends its silence at once.
-    fn end_silence(&mut self, s: usize, now: Timestamp) {
+    fn end_silence(&mut self, s: SourceId, now: Timestamp) {
         if !self.sources.get(s).is_some_and(|s| s.silent) {
             return;
         }
@@ -333,7 +330,7 @@ impl Monitor {
         self.collect_alarms(now);
     }
 
-    fn check_health(&mut self, ch: usize, now: Timestamp) {
+    fn check_health(&mut self, ch: ChannelId, now: Timestamp) {
         let (health, reason) = self.channels[ch].health_at(now, self.stale_after_s[ch]);
         let from = self.channels[ch].announced;
         if health != from {
@@ -411,7 +408,7 @@ impl Monitor {
     fn step(&mut self, at: Timestamp, now: Timestamp) {
         self.tick(at);
         let mut cycled = false;
-        for i in 0..self.zones.len() {
+        for i in self.zones.ids() {
             if self.zones[i].next_due == at {
                 self.cycle_zone(i, at, now);
                 cycled = true;
@@ -434,7 +431,7 @@ impl Monitor {
     /// readings after the last interval boundary are published too. Then
     /// call [`Self::handle_timeout`] with `now`.
     pub fn close_partial_intervals(&mut self, now: Timestamp) {
-        for (i, z) in self.zones.iter_mut().enumerate() {
+        for (i, z) in self.zones.iter_ids_mut() {
             let interval = self.settings.zones[i].interval_s;
             let last_cycle = z.next_due.plus_s(-interval);
             if z.next_due > now && now > last_cycle {
@@ -445,8 +442,8 @@ impl Monitor {
 
     /// Zone `i`'s cycle due at `due` (handled at `now`): its state, its
     /// energy, its channels' zone faults, its alarms.
-    fn cycle_zone(&mut self, i: usize, due: Timestamp, now: Timestamp) {
-        for ch in 0..self.channels.len() {
+    fn cycle_zone(&mut self, i: ZoneId, due: Timestamp, now: Timestamp) {
+        for ch in self.channels.ids() {
             self.check_health(ch, due);
         }
         let interval = self.settings.zones[i].interval_s;
@@ -519,22 +516,16 @@ impl Monitor {
 
     /// The lining baseline of zone `zone` (by name), when it has one.
     pub fn baseline(&self, zone: &str) -> Option<&lining::Baseline> {
-        let i = self
-            .settings
-            .zones
-            .iter()
-            .position(|z| z.name.as_str() == zone)?;
+        let i = self.settings.zone_named(zone)?;
         has_baseline(&self.settings.zones[i]).then(|| &self.zones[i].baseline)
     }
 
     /// A baseline command (`baseline_start`, `baseline_stop`,
-    /// `baseline_reset`) for the zone named in `cmd.alarm`; `Ok(zone index)`.
-    fn baseline_command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+    /// `baseline_reset`) for the zone named in `cmd.alarm`; `Ok(zone)`.
+    fn baseline_command(&mut self, cmd: &Command, now: Timestamp) -> Result<ZoneId, CommandError> {
         let i = self
             .settings
-            .zones
-            .iter()
-            .position(|z| z.name.as_str() == cmd.alarm)
+            .zone_named(&cmd.alarm)
             .ok_or_else(|| CommandError::UnknownZone(cmd.alarm.clone()))?;
         let zone = &self.settings.zones[i];
         if !has_baseline(zone) {
@@ -550,8 +541,9 @@ impl Monitor {
         Ok(i)
     }
 
-    /// Number of cycles zone `i` has run.
-    pub fn zone_cycles(&self, i: usize) -> u64 {
+    /// Number of cycles zone `i` has run (0 for a zone these settings do
+    /// not have).
+    pub fn zone_cycles(&self, i: ZoneId) -> u64 {
         self.zones.get(i).map_or(0, |z| z.cycles)
     }
 
@@ -559,15 +551,16 @@ impl Monitor {
     /// health change); the one after it a period later, and not before the
     /// driver's `now` (a replay crossing a gap publishes it once).
     fn poll_channel(&mut self, at: Timestamp, now: Timestamp) -> Option<ChannelReport> {
-        let ch = (0..self.channels.len()).find(|&c| self.channel_due[c] <= at)?;
+        let ch = self.channel_due.position(|&due| due <= at)?;
         self.check_health(ch, at);
         let next = at.plus_s(self.channel_period_s);
         self.channel_due[ch] = if next < now { now } else { next };
         self.channel_state(ch, at)
     }
 
-    /// Channel `ch`'s state at `now`, as its next publication would say.
-    pub fn channel_state(&self, ch: usize, now: Timestamp) -> Option<ChannelReport> {
+    /// Channel `ch`'s state at `now`, as its next publication would say
+    /// (`None` for a channel these settings do not have).
+    pub fn channel_state(&self, ch: ChannelId, now: Timestamp) -> Option<ChannelReport> {
         let cfg = self.settings.channels.get(ch)?;
         let state = &self.channels[ch];
         let (health, reason) = state.health_at(now, self.stale_after_s[ch]);
@@ -603,7 +596,7 @@ impl Monitor {
     /// Time-driven work that no reading triggers: sources falling silent,
     /// alarm timers (shelves running out, delays completing).
     fn tick(&mut self, now: Timestamp) {
-        for s in 0..self.sources.len() {
+        for s in self.sources.ids() {
             let limit = self.settings.sources[s].silence_s;
             let silent = self.sources[s].silent_at(now, self.start, limit);
             if silent != self.sources[s].silent {
@@ -618,7 +611,7 @@ impl Monitor {
     /// For a channel-fault alarm (`{channel}-fault`) whose channel is not
     /// `ok` at `now`: the channel's reason, in words (e.g. its cold
     /// junction's failure).
-    pub fn alarm_reason(&self, alarm: usize, now: Timestamp) -> Option<&'static str> {
+    pub fn alarm_reason(&self, alarm: AlarmId, now: Timestamp) -> Option<&'static str> {
         let c = self.alarms.configs().get(alarm)?;
         let crate::config::AlarmTarget::Channel { channel, health } = c.target else {
             return None;
@@ -634,19 +627,19 @@ impl Monitor {
     }
 
     /// Whether source `s` is silent (no value within its silence limit).
-    pub fn source_silent(&self, s: usize) -> bool {
+    pub fn source_silent(&self, s: SourceId) -> bool {
         self.sources.get(s).is_some_and(|s| s.silent)
     }
 
-    /// An operator command, already parsed; `Ok(alarm index)` when accepted
-    /// (for the baseline actions, `Ok(zone index)`). Its alarm outputs come
-    /// with the next `handle_*` call ([`Self::handle_command`] takes the
-    /// payload, replies and collects them at once).
-    pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<usize, CommandError> {
+    /// An operator command, already parsed: what it acted on when
+    /// accepted (an alarm, or for the baseline actions a zone). Its alarm
+    /// outputs come with the next `handle_*` call ([`Self::handle_command`]
+    /// takes the payload, replies and collects them at once).
+    pub fn command(&mut self, cmd: &Command, now: Timestamp) -> Result<Commanded, CommandError> {
         if cmd.action.is_baseline() {
-            return self.baseline_command(cmd, now);
+            return self.baseline_command(cmd, now).map(Commanded::Zone);
         }
-        self.alarms.command(cmd, now)
+        self.alarms.command(cmd, now).map(Commanded::Alarm)
     }
 
     pub fn alarms(&self) -> &AlarmEngine {
@@ -658,9 +651,18 @@ impl Monitor {
     }
 
     /// The `{root}/alarm/{name}` payload of alarm `i` at `now`.
-    pub fn alarm_report(&self, i: usize, now: Timestamp) -> AlarmReport {
+    pub fn alarm_report(&self, i: AlarmId, now: Timestamp) -> AlarmReport {
         self.alarms.report(&self.settings, i, now)
     }
+}
+
+/// What an accepted operator command acted on.
+#[derive(Debug, Clone, Copy, PartialEq, Eq)]
+pub enum Commanded {
+    /// An alarm command (ack, shelve, …).
+    Alarm(AlarmId),
+    /// A baseline command, for this zone.
+    Zone(ZoneId),
 }
 
 /// The kiln's energy meter for `settings`, resuming from `totals`.
@@ -677,4 +679,62 @@ fn new_meter(settings: &Settings, totals: EnergyTotals) -> EnergyMeter {
 /// reading at the hot face (`hot_face_channel`).
 pub fn has_baseline(zone: &Zone) -> bool {
     zone.model == Model::Layered && zone.hot_face_channel.is_some()
+}
+
+#[cfg(test)]
+mod tests {
+    use super::*;
+
+    const EXAMPLE: &str = include_str!("../../../../config/example.toml");
+    const DEMO: &str = include_str!("../../../../config/demo.toml");
+
+    fn monitor(text: &str) -> Monitor {
+        let settings = crate::config::parse(text, "t.toml", None).unwrap();
+        Monitor::new(Arc::new(settings), Timestamp::from_epoch_s(0.0))
+    }
+
+    /// A baseline command for a zone that does not exist is refused with
+    /// the zone named, and touches no other zone.
+    #[test]
+    fn a_baseline_command_for_an_unknown_zone_is_refused_naming_it() {
+        let mut m = monitor(EXAMPLE);
+        let cmd = command::parse_command(
+            br#"{"id":"b-1","action":"baseline_start","zone":"nowhere","by":"j.smith"}"#,
+        )
+        .unwrap();
+        let refused = m.command(&cmd, Timestamp::from_epoch_s(1.0));
+        assert_eq!(refused, Err(CommandError::UnknownZone("nowhere".into())));
+        assert_eq!(refused.unwrap_err().to_string(), "unknown zone \"nowhere\"");
+        assert!(m.baseline("nowhere").is_none());
+        // The one zone there is exists, but has no baseline: a different refusal.
+        let cmd = command::parse_command(
+            br#"{"id":"b-2","action":"baseline_start","zone":"north-wall","by":"j.smith"}"#,
+        )
+        .unwrap();
+        assert_eq!(
+            m.command(&cmd, Timestamp::from_epoch_s(1.0)),
+            Err(CommandError::NoBaseline("north-wall".into()))
+        );
+    }
+
+    /// Ids of a larger configuration are refused by a monitor of a smaller
+    /// one: no state, no counters, no panic.
+    #[test]
+    fn ids_of_other_settings_are_refused() {
+        let big = monitor(DEMO);
+        let mut small = monitor(EXAMPLE);
+        let roof = big.settings().zone_named("roof").unwrap();
+        let channel = big.settings().channels.ids().next_back().unwrap();
+        let alarm = big.settings().alarms.ids().next_back().unwrap();
+        let now = Timestamp::from_epoch_s(1.0);
+        assert_eq!(small.zone_cycles(roof), 0);
+        assert!(small.channel_state(channel, now).is_none());
+        assert!(small.alarm_reason(alarm, now).is_none());
+        let reading = scan::Reading::Measured {
+            value: 500.0,
+            unit: scan::Unit::Celsius,
+        };
+        small.handle_value(channel, reading, None, now);
+        assert!(small.poll_output().is_none());
+    }
 }

@@ -13,6 +13,7 @@ use super::trend::windowed_rate_per_h;
 use super::wall::Wall;
 use crate::config::{Model, NamedMaterial};
 use crate::config::{Name, Settings, Zone, MAX_FORECASTS, MAX_PROBES};
+use crate::ids::{ChannelId, IdVec, ZoneId};
 use crate::physics::layered::MAX_LAYERS;
 use crate::physics::profile::ProbeSample;
 use crate::physics::surface::{surface_loss, SurfaceLoss};
@@ -257,7 +258,7 @@ struct ProbeTrack {
 /// One zone's engine state.
 #[derive(Debug)]
 pub struct ZoneEngine {
-    index: usize,
+    id: ZoneId,
     pub next_due: Timestamp,
     tracks: HVec<ProbeTrack, MAX_PROBES>,
     /// Time origin of the rate histories (keeps the regression well scaled).
@@ -294,7 +295,7 @@ struct Valid {
 }
 
 impl ZoneEngine {
-    pub fn new(index: usize, zone: &Zone, materials: &[NamedMaterial], start: Timestamp) -> Self {
+    pub fn new(id: ZoneId, zone: &Zone, materials: &[NamedMaterial], start: Timestamp) -> Self {
         // Every per-probe vector of the cycle is collected from the zone's
         // probes, whose capacity it shares: nothing can be dropped.
         let tracks = zone
@@ -305,7 +306,7 @@ impl ZoneEngine {
             })
             .collect();
         ZoneEngine {
-            index,
+            id,
             next_due: start.plus_s(zone.interval_s),
             tracks,
             origin: start,
@@ -328,10 +329,10 @@ impl ZoneEngine {
     pub fn cycle(
         &mut self,
         settings: &Settings,
-        channels: &[ChannelState],
+        channels: &IdVec<ChannelId, ChannelState>,
         now: Timestamp,
     ) -> ZoneReport {
-        let zone = &settings.zones[self.index];
+        let zone = &settings.zones[self.id];
         self.cycles += 1;
         let max_age_s = STALE_INTERVALS * zone.interval_s;
         let readings = self.freshen(zone, channels, now, max_age_s);
@@ -339,7 +340,7 @@ impl ZoneEngine {
         let measured = self.measured(settings, zone, channels, &readings, &valid, now, max_age_s);
         let input = ModelInput {
             settings,
-            zone_index: self.index,
+            zone_id: self.id,
             zone,
             channels,
             samples: &valid.samples,
@@ -360,7 +361,7 @@ impl ZoneEngine {
     fn freshen(
         &mut self,
         zone: &Zone,
-        channels: &[ChannelState],
+        channels: &IdVec<ChannelId, ChannelState>,
         now: Timestamp,
         max_age_s: f64,
     ) -> Freshened {
@@ -470,7 +471,7 @@ impl ZoneEngine {
         &self,
         settings: &Settings,
         zone: &Zone,
-        channels: &[ChannelState],
+        channels: &IdVec<ChannelId, ChannelState>,
         readings: &Freshened,
         valid: &Valid,
         now: Timestamp,
@@ -559,7 +560,7 @@ fn fit(
 /// heating or cooling (when the view itself is vouched for).
 fn reported(
     zone: &Zone,
-    channels: &[ChannelState],
+    channels: &IdVec<ChannelId, ChannelState>,
     mut report: ZoneReport,
     view: Option<ZoneReport>,
 ) -> ZoneReport {

@@ -20,6 +20,7 @@ use super::lining::Baseline;
 use super::wall::WallError;
 use super::zone::ZoneReport;
 use crate::config::{Model, NamedMaterial, Settings, Zone, MAX_PROBES};
+use crate::ids::{ChannelId, IdVec, ZoneId};
 use crate::physics::profile::ProbeSample;
 use crate::physics::transient::TransientError;
 use crate::time::Timestamp;
@@ -76,10 +77,10 @@ const NOTE_TOO_LONG: &str = "the model gave no numbers this cycle";
 /// What a model gets every cycle.
 pub struct ModelInput<'a> {
     pub settings: &'a Settings,
-    /// Index of the zone in `settings.zones`.
-    pub zone_index: usize,
+    /// The zone's id in `settings.zones`.
+    pub zone_id: ZoneId,
     pub zone: &'a Zone,
-    pub channels: &'a [ChannelState],
+    pub channels: &'a IdVec<ChannelId, ChannelState>,
     /// The valid samples of this cycle (fresh and not faulted by the
     /// diagnostics), in configured probe order.
     pub samples: &'a HVec<ProbeSample, MAX_PROBES>,

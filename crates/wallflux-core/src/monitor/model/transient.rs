@@ -238,7 +238,7 @@ impl ZoneModel for Transient {
                     && a.spec.kind == crate::monitor::alarm::AlarmKind::High
                     && a.target
                         == (crate::config::AlarmTarget::Zone {
-                            zone: input.zone_index,
+                            zone: input.zone_id,
                             quantity: crate::config::ZoneQuantity::ShellC,
                         })
             })
