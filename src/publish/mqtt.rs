@@ -193,13 +193,14 @@ pub async fn run(
                     failures_since_up = 0;
                     last_reminder = None;
                     backoff = Duration::from_millis(250);
-                    // Ahead of anything queued: `online`, and the
-                    // subscription (a new session may not know it).
+                    // Ahead of anything queued: the subscription (a new
+                    // session may not know it), then `online`, so that a
+                    // client that waits for `online` finds commands heard.
                     let mut online = Publish::new(status_topic.as_str(), QoS::AtLeastOnce,
                         status_payload("online", clock.now()));
                     online.retain = true;
-                    eventloop.pending.push_front(Request::Subscribe(Subscribe::new(cmd_topic.as_str(), CMD_QOS)));
                     eventloop.pending.push_front(Request::Publish(online));
+                    eventloop.pending.push_front(Request::Subscribe(Subscribe::new(cmd_topic.as_str(), CMD_QOS)));
                     let _ = up_tx.send(true);
                 }
                 Ok(Event::Incoming(Packet::Publish(p))) if p.topic == cmd_topic => {

@@ -149,6 +149,7 @@ impl Rig {
         self.m
             .alarms()
             .state(self.alarm, Timestamp::from_epoch_s(self.t))
+            .expect("an alarm of these settings")
     }
 
     fn ack(&mut self) {

@@ -350,10 +350,13 @@ fn a_failed_cold_junction_raises_the_thermocouple_fault_alarm() {
     run(&mut m, 1, 60, terminal_c(24.0));
     let at = |k: f64| Timestamp::from_epoch_s(k);
     assert!(!m.alarms().configs().is_empty());
-    assert_eq!(m.alarms().state(tc_fault, at(60.0)).name(), "normal");
+    assert_eq!(
+        m.alarms().state(tc_fault, at(60.0)).unwrap().name(),
+        "normal"
+    );
     run(&mut m, 60, 120, Value::Open);
     assert_eq!(
-        m.alarms().state(tc_fault, at(120.0)).name(),
+        m.alarms().state(tc_fault, at(120.0)).unwrap().name(),
         "unacknowledged"
     );
     let reason = m.alarm_reason(tc_fault, at(120.0)).unwrap();
@@ -361,11 +364,14 @@ fn a_failed_cold_junction_raises_the_thermocouple_fault_alarm() {
         reason.contains("cold-junction (terminal) sensor open"),
         "{reason}"
     );
-    assert_eq!(m.alarms().state(deep_fault, at(120.0)).name(), "normal");
+    assert_eq!(
+        m.alarms().state(deep_fault, at(120.0)).unwrap().name(),
+        "normal"
+    );
     assert_eq!(m.alarm_reason(deep_fault, at(120.0)), None);
     run(&mut m, 120, 180, terminal_c(24.0));
     assert_eq!(
-        m.alarms().state(tc_fault, at(180.0)).name(),
+        m.alarms().state(tc_fault, at(180.0)).unwrap().name(),
         "rtn_unacknowledged"
     );
 }

@@ -386,8 +386,9 @@ impl AlarmEngine {
     }
 
     /// The ISA-18.2 state of alarm `i` at `now`.
-    pub fn state(&self, i: AlarmId, now: Timestamp) -> AlarmState {
-        self.slots[i].alarm.state(now)
+    /// Alarm `i`'s state at `now` (None for an id of other settings).
+    pub fn state(&self, i: AlarmId, now: Timestamp) -> Option<AlarmState> {
+        self.slots.get(i).map(|s| s.alarm.state(now))
     }
 
     pub fn flood_rate(&self, now: Timestamp) -> u32 {
@@ -398,13 +399,14 @@ impl AlarmEngine {
         self.flood.flooding(now)
     }
 
-    /// The `{root}/alarm/{name}` payload of alarm `i`.
-    pub fn report(&self, settings: &Settings, i: AlarmId, now: Timestamp) -> AlarmReport {
-        let c = &self.configs[i];
-        let s = &self.slots[i];
+    /// The `{root}/alarm/{name}` payload of alarm `i` (None for an id of
+    /// other settings).
+    pub fn report(&self, settings: &Settings, i: AlarmId, now: Timestamp) -> Option<AlarmReport> {
+        let c = self.configs.get(i)?;
+        let s = self.slots.get(i)?;
         let f = s.alarm.flags();
         let (zone, channel, source, quantity) = target_names(settings, c.target);
-        AlarmReport {
+        Some(AlarmReport {
             schema: "wallflux.alarm/1",
             time: now,
             name: c.name.clone(),
@@ -439,7 +441,7 @@ impl AlarmEngine {
             message: c.message.clone(),
             consequence: c.consequence.clone(),
             action: c.action.clone(),
-        }
+        })
     }
 }
 

@@ -75,8 +75,9 @@ impl Monitor {
     /// when a sink may have lost the retained ones).
     pub fn handle_alarm_states_request(&mut self, now: Timestamp) {
         for i in self.alarms.configs().ids() {
-            let state = self.alarm_state(i, now);
-            self.push(Output::AlarmState(state));
+            if let Some(state) = self.alarm_state(i, now) {
+                self.push(Output::AlarmState(state));
+            }
         }
     }
 
@@ -91,8 +92,9 @@ impl Monitor {
                     transition,
                     announced,
                 } => {
-                    let state = self.alarm_state(alarm, now);
-                    self.push(Output::AlarmState(state));
+                    if let Some(state) = self.alarm_state(alarm, now) {
+                        self.push(Output::AlarmState(state));
+                    }
                     let event = self.alarm_event(alarm, &transition, announced, now);
                     self.push(Output::AlarmEvent(event));
                 }
@@ -105,11 +107,12 @@ impl Monitor {
         self.flood_policy(now);
     }
 
-    fn alarm_state(&self, i: AlarmId, now: Timestamp) -> AlarmStateReport {
-        AlarmStateReport {
-            report: self.alarm_report(i, now),
+    /// Alarm `i`'s state output (the engine's own ids: always Some).
+    fn alarm_state(&self, i: AlarmId, now: Timestamp) -> Option<AlarmStateReport> {
+        Some(AlarmStateReport {
+            report: self.alarm_report(i, now)?,
             reason: self.alarm_reason(i, now),
-        }
+        })
     }
 
     fn alarm_event(
@@ -227,7 +230,7 @@ impl Monitor {
         self.alarms.configs().ids().filter(move |&i| {
             matches!(
                 self.alarms.state(i, now),
-                AlarmState::Unacknowledged | AlarmState::Acknowledged
+                Some(AlarmState::Unacknowledged | AlarmState::Acknowledged)
             )
         })
     }

@@ -650,8 +650,9 @@ impl Monitor {
         &mut self.alarms
     }
 
-    /// The `{root}/alarm/{name}` payload of alarm `i` at `now`.
-    pub fn alarm_report(&self, i: AlarmId, now: Timestamp) -> AlarmReport {
+    /// The `{root}/alarm/{name}` payload of alarm `i` at `now` (None for
+    /// an id of other settings).
+    pub fn alarm_report(&self, i: AlarmId, now: Timestamp) -> Option<AlarmReport> {
         self.alarms.report(&self.settings, i, now)
     }
 }
@@ -730,6 +731,9 @@ mod tests {
         assert_eq!(small.zone_cycles(roof), 0);
         assert!(small.channel_state(channel, now).is_none());
         assert!(small.alarm_reason(alarm, now).is_none());
+        assert!(small.alarm_report(alarm, now).is_none());
+        assert!(small.alarms().state(alarm, now).is_none());
+        assert!(big.alarm_report(alarm, now).is_some());
         let reading = scan::Reading::Measured {
             value: 500.0,
             unit: scan::Unit::Celsius,
