@@ -9,11 +9,14 @@
 //! `{root}/cmd` is subscribed at QoS 0: a command is live, so the broker
 //! neither keeps one for the daemon while it is away nor sends one again
 //! (a command sent while the daemon is down is not applied later; its
-//! sender sees no reply and may send it again). A message the client cannot
-//! take (over [`MAX_PACKET_BYTES`]) resets the connection once and is gone;
-//! a broker configured with a packet limit (deploy/mosquitto) keeps it from
-//! arriving at all. A command larger than [`MAX_COMMAND_BYTES`] and a
-//! retained one (a command must not re-apply itself at every connection)
+//! sender sees no reply and sends it again). A message up to
+//! [`MAX_INCOMING_BYTES`] that is larger than a command can be is read and
+//! dropped; a larger one makes the client drop the connection, and the
+//! next connection starts a fresh session, so that the broker forgets
+//! whatever it still held for the old one instead of sending it again (a
+//! broker configured with a packet limit, as in deploy/mosquitto, keeps
+//! such a message from arriving at all). A command larger than
+//! [`MAX_COMMAND_BYTES`] and a retained one (a command must not re-apply itself at every connection)
 //! are dropped and counted. The subscription and `online` are put at the
 //! head of the client's own queue at every connection, so no backlog can
 //! keep them out; messages move from the engine's queue into the client
@@ -41,9 +44,13 @@ use crate::config::MqttSettings;
 use crate::monitor::command::MAX_COMMAND_BYTES;
 use crate::time::Timestamp;
 
-/// Largest packet either way; a zone state with 16 probes is about 4 KiB,
-/// so this leaves a wide margin (an oversized publish would kill the link).
+/// Largest packet sent; a zone state with 16 probes is about 4 KiB, so this
+/// leaves a wide margin (an oversized publish would kill the link).
 pub const MAX_PACKET_BYTES: usize = 256 * 1024;
+/// Largest packet taken from the broker. Far over any command: whatever
+/// arrives up to this size is read and dropped without touching the
+/// connection; only a larger one resets it (see the module doc).
+pub const MAX_INCOMING_BYTES: usize = 16 * 1024 * 1024;
 /// Capacity of rumqttc's request channel.
 const REQUEST_CAPACITY: usize = 64;
 /// The QoS of the `cmd` subscription: at most once (see the module doc).
@@ -139,7 +146,7 @@ pub async fn run(
     // (rumqttc panics otherwise).
     opts.set_keep_alive(Duration::from_secs(cfg.keep_alive_s.max(1)));
     opts.set_clean_session(false);
-    opts.set_max_packet_size(MAX_PACKET_BYTES, MAX_PACKET_BYTES);
+    opts.set_max_packet_size(MAX_INCOMING_BYTES, MAX_PACKET_BYTES);
     opts.set_last_will(LastWill::new(
         status_topic.clone(),
         will_payload(),
@@ -193,6 +200,8 @@ pub async fn run(
                     failures_since_up = 0;
                     last_reminder = None;
                     backoff = Duration::from_millis(250);
+                    // Persistent again after a fresh session.
+                    eventloop.mqtt_options.set_clean_session(false);
                     // Ahead of anything queued: the subscription (a new
                     // session may not know it), then `online`, so that a
                     // client that waits for `online` finds commands heard.
@@ -227,8 +236,9 @@ pub async fn run(
                     let now = tokio::time::Instant::now();
                     if let Some(bytes) = oversize(&e) {
                         health.oversize_packets.fetch_add(1, Ordering::Relaxed);
-                        warn!(broker = %target, bytes, limit = MAX_PACKET_BYTES,
-                            "a message from the broker is over the packet limit: dropped, reconnecting (the command topic is subscribed at most once, so it is not sent again)");
+                        warn!(broker = %target, bytes, limit = MAX_INCOMING_BYTES,
+                            "a message from the broker is over the packet limit: dropped; reconnecting with a fresh session, so the broker does not send it again (messages still in flight to the broker may be lost)");
+                        eventloop.mqtt_options.set_clean_session(true);
                         last_reminder = Some(now);
                     } else if was_up {
                         if let Some(folded) = lost_lines.admit(now.into_std()) {

@@ -126,17 +126,45 @@ pub fn analyze_csv(dir: &std::path::Path, config: &std::path::Path, csv: &str) -
 }
 
 /// `wallflux run --config config`, its log (stderr) written to `log`.
-pub fn start_daemon(config: &std::path::Path, log: &std::path::Path) -> Child {
-    bin()
-        .args(["run", "--config", config.to_str().unwrap()])
-        .stdout(Stdio::null())
-        .stderr(std::fs::File::create(log).unwrap())
-        .spawn()
-        .unwrap()
+pub fn start_daemon(config: &std::path::Path, log: &std::path::Path) -> Daemon {
+    Daemon(
+        bin()
+            .args(["run", "--config", config.to_str().unwrap()])
+            .stdout(Stdio::null())
+            .stderr(std::fs::File::create(log).unwrap())
+            .spawn()
+            .unwrap(),
+    )
+}
+
+/// A daemon started by a test; killed when dropped, so a failing test
+/// leaves none behind.
+pub struct Daemon(pub Child);
+
+impl std::ops::Deref for Daemon {
+    type Target = Child;
+    fn deref(&self) -> &Child {
+        &self.0
+    }
+}
+
+impl std::ops::DerefMut for Daemon {
+    fn deref_mut(&mut self) -> &mut Child {
+        &mut self.0
+    }
+}
+
+impl Drop for Daemon {
+    fn drop(&mut self) {
+        if matches!(self.0.try_wait(), Ok(None)) {
+            let _ = self.0.kill();
+            let _ = self.0.wait();
+        }
+    }
 }
 
 /// SIGTERM to a daemon started by `start_daemon`: it must exit 0.
-pub fn stop_daemon(mut daemon: Child) {
+pub fn stop_daemon(mut daemon: Daemon) {
     // SAFETY: kill(2) on our own child's pid.
     unsafe {
         libc::kill(daemon.id() as libc::pid_t, libc::SIGTERM);

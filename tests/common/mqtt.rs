@@ -106,7 +106,8 @@ pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
         port,
     );
     opts.set_keep_alive(Duration::from_secs(5));
-    opts.set_max_packet_size(1 << 20, 1 << 20);
+    // Large enough for the oversize messages the link tests send.
+    opts.set_max_packet_size(32 << 20, 32 << 20);
     let (client, mut conn) = Client::new(opts, 16);
     let filter = filter.to_string();
     std::thread::spawn(move || {
@@ -158,24 +159,41 @@ pub fn wait_for(
 
 /// Publishes one message (QoS 1) and waits until the broker has it.
 pub fn publish(port: u16, topic: &str, payload: &[u8]) {
+    if let Err(e) = try_publish(port, topic, payload, false) {
+        panic!("publish to {topic}: {e}");
+    }
+}
+
+/// Publishes one message (QoS 1, retained or not) and waits until the
+/// broker has it; the broker's refusal (a packet over its limit: it drops
+/// the connection) is the error.
+pub fn try_publish(port: u16, topic: &str, payload: &[u8], retain: bool) -> Result<(), String> {
     let mut opts = MqttOptions::new(
         format!("test-pub-{port}-{}", std::process::id()),
         "127.0.0.1",
         port,
     );
-    opts.set_max_packet_size(1 << 20, 1 << 20);
+    opts.set_max_packet_size(32 << 20, 32 << 20);
     let (client, mut conn) = Client::new(opts, 16);
     client
-        .publish(topic, QoS::AtLeastOnce, false, payload.to_vec())
-        .unwrap();
+        .publish(topic, QoS::AtLeastOnce, retain, payload.to_vec())
+        .map_err(|e| e.to_string())?;
+    let mut result = Err("the connection ended".to_string());
     for ev in conn.iter() {
         match ev {
-            Ok(Event::Incoming(Packet::PubAck(_))) => break,
+            Ok(Event::Incoming(Packet::PubAck(_))) => {
+                result = Ok(());
+                break;
+            }
             Ok(_) => {}
-            Err(e) => panic!("publish to {topic}: {e}"),
+            Err(e) => {
+                result = Err(e.to_string());
+                break;
+            }
         }
     }
     let _ = client.disconnect();
+    result
 }
 
 /// Waits (bounded) until every predicate has matched some message, in any

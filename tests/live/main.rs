@@ -12,4 +12,5 @@ mod cold_junction_live;
 mod daemon;
 mod demo;
 mod diagnostics_live;
+mod link;
 mod no_panic;

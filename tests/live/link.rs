@@ -1,0 +1,177 @@
+//! The command path against a real broker, tried the way a plant network
+//! tries it: messages far over any command's size, a retained command, an
+//! outage long enough to queue more messages than the MQTT client's own
+//! request channel holds. After each, a command must still be answered.
+
+use std::time::{Duration, Instant};
+
+use crate::common::feeder::Feeder;
+use crate::common::mqtt::{free_port, publish, subscribe, try_publish, wait_for, Broker, Msg};
+use crate::common::*;
+use wallflux::sim::pty::Pty;
+
+const DEPTHS_MM: [f64; 4] = [20.0, 100.0, 180.0, 250.0];
+const ROOT: &str = "wf/test-plant/k1";
+
+/// A wall at steady state: 900 °C hot face, linear to 80 °C at the shell.
+fn feeder(pty: Pty) -> Feeder {
+    Feeder::start(
+        pty,
+        DEPTHS_MM.len(),
+        std::sync::Arc::new(|i, _| Some(900.0 - 820.0 * DEPTHS_MM[i] / 250.0)),
+    )
+}
+
+/// Sends a command that names no configured alarm until its reply comes
+/// (`ok: false`, `unknown_alarm`), every 2 s as a SCADA client would (a
+/// command is delivered at most once): proof that the command path works.
+fn answered(port: u16, rx: &std::sync::mpsc::Receiver<Msg>, id: &str, within: Duration) {
+    let cmd = format!(r#"{{"id":"{id}","action":"ack","alarm":"no-such-alarm","by":"op-test"}}"#);
+    let deadline = Instant::now() + within;
+    while Instant::now() < deadline {
+        // A broker that just dropped a client for an oversize packet may
+        // refuse its next connection for a moment: that is a retry too.
+        let _ = try_publish(port, &format!("{ROOT}/cmd"), cmd.as_bytes(), false);
+        let resend = Instant::now() + Duration::from_secs(2);
+        while let Ok(m) = rx.recv_timeout(resend.saturating_duration_since(Instant::now())) {
+            if m.topic == format!("{ROOT}/cmd/reply") && m.json["id"] == id {
+                assert_eq!(m.json["code"], "unknown_alarm", "{}", m.json);
+                return;
+            }
+        }
+    }
+    panic!("no reply to {id} within {within:?}");
+}
+
+fn count(text: &str, needle: &str) -> usize {
+    text.matches(needle).count()
+}
+
+/// 1 MiB and 10 MiB on `cmd`: dropped (by the broker, or read and dropped
+/// by the daemon without a reconnect); 20 MiB, over what the daemon reads:
+/// one reconnect with a fresh session, never a reconnect loop. After each,
+/// commands are answered.
+#[test]
+fn huge_messages_on_the_command_topic_do_not_silence_it() {
+    let dir = temp_dir("link-huge");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, &format!("{ROOT}/#"));
+    let pty = Pty::open().unwrap();
+    let cfg = write(
+        &dir,
+        "w.toml",
+        &one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0),
+    );
+    let _feed = feeder(pty);
+    let log = dir.join("d.log");
+    let daemon = start_daemon(&cfg, &log);
+    wait_for(&rx, Duration::from_secs(20), "online", |m| {
+        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
+    });
+    answered(port, &rx, "before", Duration::from_secs(10));
+    // The embedded broker refuses packets over 256 KiB itself; mosquitto
+    // as the tests run it takes them and passes them on.
+    let cmd = format!("{ROOT}/cmd");
+    let mut passed_on = Vec::new();
+    for n in [1usize << 20, 10 << 20] {
+        passed_on.push(try_publish(port, &cmd, &vec![b'{'; n], false).is_ok());
+    }
+    answered(port, &rx, "after-10", Duration::from_secs(20));
+    let text = std::fs::read_to_string(&log).unwrap();
+    assert_eq!(count(&text, "MQTT broker connected"), 1, "{text}");
+    let huge = try_publish(port, &cmd, &vec![b'{'; 20 << 20], false).is_ok();
+    answered(port, &rx, "after-20", Duration::from_secs(30));
+    // Given time to loop, it does not.
+    std::thread::sleep(Duration::from_secs(3));
+    answered(port, &rx, "later", Duration::from_secs(10));
+    let text = std::fs::read_to_string(&log).unwrap();
+    assert_eq!(
+        count(&text, "MQTT broker connected"),
+        1 + usize::from(huge),
+        "{passed_on:?} {huge}:\n{text}"
+    );
+    assert_eq!(
+        count(&text, "over the packet limit"),
+        usize::from(huge),
+        "{text}"
+    );
+    stop_daemon(daemon);
+}
+
+/// A command left retained on `cmd` is not applied when the daemon
+/// subscribes: it is logged as ignored, and gets no reply.
+#[test]
+fn a_retained_command_is_ignored() {
+    let dir = temp_dir("link-retained");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, &format!("{ROOT}/#"));
+    let retained = br#"{"id":"stale-1","action":"ack","alarm":"no-such-alarm","by":"op-old"}"#;
+    try_publish(port, &format!("{ROOT}/cmd"), retained, true).unwrap();
+    let pty = Pty::open().unwrap();
+    let cfg = write(
+        &dir,
+        "w.toml",
+        &one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0),
+    );
+    let _feed = feeder(pty);
+    let log = dir.join("d.log");
+    let daemon = start_daemon(&cfg, &log);
+    // The retained message arrives right after the subscription, so before
+    // the reply to a command sent once the daemon is online.
+    wait_for(&rx, Duration::from_secs(20), "online", |m| {
+        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
+    });
+    let cmd = br#"{"id":"fresh-1","action":"ack","alarm":"no-such-alarm","by":"op-test"}"#;
+    publish(port, &format!("{ROOT}/cmd"), cmd);
+    let first_reply = wait_for(&rx, Duration::from_secs(10), "a reply", |m| {
+        m.topic == format!("{ROOT}/cmd/reply")
+    });
+    assert_eq!(
+        first_reply.json["id"], "fresh-1",
+        "the retained command was answered"
+    );
+    let text = std::fs::read_to_string(&log).unwrap();
+    assert_eq!(
+        count(&text, "retained message on the command topic ignored"),
+        1,
+        "{text}"
+    );
+    stop_daemon(daemon);
+}
+
+/// An outage during which more messages queue than the MQTT client's
+/// request channel holds (64: a zone state and four channel states a
+/// second for 20 s): after it, `online` again and commands answered.
+#[test]
+fn commands_are_answered_after_a_long_outage() {
+    let dir = temp_dir("link-outage");
+    let port = free_port();
+    let mut broker = Broker::start(port, &dir);
+    let rx = subscribe(port, &format!("{ROOT}/#"));
+    let pty = Pty::open().unwrap();
+    let cfg = write(
+        &dir,
+        "w.toml",
+        &one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0),
+    );
+    let _feed = feeder(pty);
+    let log = dir.join("d.log");
+    let daemon = start_daemon(&cfg, &log);
+    wait_for(&rx, Duration::from_secs(20), "online", |m| {
+        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
+    });
+    answered(port, &rx, "before", Duration::from_secs(10));
+    broker.stop();
+    // The outage itself: its length is the condition under test.
+    let down = Instant::now();
+    std::thread::sleep(Duration::from_secs(20));
+    broker.restart();
+    wait_for(&rx, Duration::from_secs(60), "online again", |m| {
+        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
+    });
+    assert!(down.elapsed() >= Duration::from_secs(20));
+    answered(port, &rx, "after", Duration::from_secs(20));
+    stop_daemon(daemon);
+}
