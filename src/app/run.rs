@@ -21,6 +21,7 @@ use super::state;
 use crate::acquire::serial::{self, Delivery, FromSource, SourceHealth};
 use crate::config::Settings;
 use crate::monitor::alarm::AlarmFlags;
+use crate::monitor::command::CommandError;
 use crate::monitor::energy::EnergyTotals;
 use crate::monitor::output::{LinkStatus, Output, StatusReport};
 use crate::monitor::zone::ZoneReport;
@@ -189,7 +190,7 @@ pub async fn run_recording(
     engine.monitor.handle_timeout(now);
     engine.drain(&source_health, &link);
     engine.save_energy();
-    engine.save_alarms();
+    let _ = engine.save_alarms(); // a failure is logged
     if let Some(r) = engine.recorder.as_mut() {
         r.flush();
     }
@@ -299,26 +300,33 @@ impl Engine {
                     }
                 }
                 Output::AlarmEvent(_) => alarms_changed = true,
-                Output::CommandReply(r) => {
+                Output::CommandReply(r) if r.result.is_ok() => {
+                    // `ok` only once the change is on disk: a shelve or a
+                    // commissioning step must survive a power cut.
                     let baseline = r.command.as_ref().is_some_and(|c| c.action.is_baseline());
-                    if baseline && r.result.is_ok() {
-                        // A commissioning step must survive a power cut.
-                        self.save_baselines();
+                    let saved = if baseline {
+                        self.save_baselines()
+                    } else {
+                        self.save_alarms()
+                    };
+                    if let Err(e) = saved {
+                        r.result = Err(CommandError::NotPersisted(e.to_string()));
                     }
                 }
                 Output::Status(s) => self.edge_status(s, sources, link),
                 _ => {}
             }
-            match route::message(&self.root, &out) {
-                Some(Ok(m)) => self.queue.push(m),
-                Some(Err(e)) => {
-                    warn!(kind = out.kind().name(), error = %e, "message could not be encoded")
+            for m in route::messages(&self.root, &out) {
+                match m {
+                    Ok(m) => self.queue.push(m),
+                    Err(e) => {
+                        warn!(kind = out.kind().name(), error = %e, "message could not be encoded")
+                    }
                 }
-                None => {}
             }
         }
         if alarms_changed && self.monitor.alarms_mut().take_dirty() {
-            self.save_alarms();
+            let _ = self.save_alarms(); // a failure is logged
         }
     }
 
@@ -355,27 +363,31 @@ impl Engine {
         ) {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the energy totals");
         }
-        self.save_baselines();
+        let _ = self.save_baselines(); // a failure is logged
     }
 
-    fn save_baselines(&self) {
-        if let Err(e) = state::save(
+    fn save_baselines(&self) -> std::io::Result<()> {
+        let saved = state::save(
             &self.settings.state_dir,
             BASELINES_FILE,
             &self.monitor.baselines(),
-        ) {
+        );
+        if let Err(e) = &saved {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the lining baselines");
         }
+        saved
     }
 
-    fn save_alarms(&self) {
-        if let Err(e) = state::save(
+    fn save_alarms(&self) -> std::io::Result<()> {
+        let saved = state::save(
             &self.settings.state_dir,
             ALARMS_FILE,
             &self.monitor.alarms().flags(),
-        ) {
+        );
+        if let Err(e) = &saved {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the alarm states: they will not survive a restart");
         }
+        saved
     }
 }
 

@@ -8,6 +8,7 @@
 //! | alarm state | `{root}/alarm/{alarm}` | yes | latest wins, never dropped |
 //! | alarm event, trend alert | `{root}/events` | no | never coalesced |
 //! | command reply | `{root}/cmd/reply` | no | never coalesced |
+//! | command audit (every command reply) | `{root}/events` | no | never coalesced |
 //! | status | `{root}/status` | yes | never dropped |
 //!
 //! Every message goes with QoS 1 (at least once); retained is every kind
@@ -46,24 +47,60 @@ pub fn message(root: &str, out: &Output) -> Option<Result<Message, serde_json::E
     }))
 }
 
+/// Every message of `out`: [`message`], and for a command reply its audit
+/// event on `{root}/events` too.
+pub fn messages(
+    root: &str,
+    out: &Output,
+) -> impl Iterator<Item = Result<Message, serde_json::Error>> {
+    let audit = match out {
+        Output::CommandReply(r) => Some(serde_json::to_vec(&r.audit()).map(|payload| Message {
+            topic: format!("{root}/events"),
+            payload,
+            kind: Kind::Event,
+        })),
+        _ => None,
+    };
+    message(root, out).into_iter().chain(audit)
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+    use crate::monitor::command::parse_command;
     use crate::monitor::output::{CommandReply, UnknownInput};
+    use crate::time::Timestamp;
 
     #[test]
-    fn a_command_reply_is_an_event_on_its_topic() {
+    fn a_command_reply_is_an_event_on_its_topic_with_its_audit_event() {
+        let payload = br#"{"id":"c-1","action":"shelve","alarm":"a","by":"op-x","minutes":30,"time":"2026-03-14T08:15:00Z"}"#;
         let out = Output::CommandReply(CommandReply {
             id: Some("c-1".into()),
             result: Ok(()),
-            command: None,
-            payload_bytes: 10,
+            command: Some(parse_command(payload).unwrap()),
+            payload_bytes: payload.len(),
+            time: Timestamp::parse("2026-03-14T08:15:02Z").unwrap(),
         });
-        let m = message("wallflux/p/k", &out).unwrap().unwrap();
+        let all: Vec<_> = messages("wallflux/p/k", &out).map(Result::unwrap).collect();
+        assert_eq!(all.len(), 2);
+        let m = &all[0];
         assert_eq!(m.topic, "wallflux/p/k/cmd/reply");
         assert_eq!(m.kind, Kind::Event);
         assert!(!m.retain());
         assert_eq!(m.payload, br#"{"id":"c-1","ok":true}"#);
+        let a = &all[1];
+        assert_eq!(a.topic, "wallflux/p/k/events");
+        assert!(!a.retain());
+        let json: serde_json::Value = serde_json::from_slice(&a.payload).unwrap();
+        assert_eq!(json["schema"], "wallflux.command/1");
+        assert_eq!(json["type"], "command");
+        assert_eq!(json["action"], "shelve");
+        assert_eq!(json["by"], "op-x");
+        assert_eq!(json["minutes"], 30.0);
+        assert_eq!(json["ok"], true);
+        assert_eq!(json["sent"], "2026-03-14T08:15:00.000Z");
+        assert_eq!(json["time"], "2026-03-14T08:15:02.000Z");
+        assert_eq!(json["bytes"], payload.len());
     }
 
     #[test]

@@ -164,6 +164,27 @@ pub fn publish(port: u16, topic: &str, payload: &[u8]) {
     }
 }
 
+/// Publishes a command as a SCADA client sends it: a JSON object gets its
+/// `time` (now) unless it has one; anything else goes as it is.
+pub fn publish_command(port: u16, topic: &str, payload: &[u8]) {
+    publish(port, topic, &stamped(payload));
+}
+
+/// `payload` with `"time": now` added, when it is a JSON object without one.
+pub fn stamped(payload: &[u8]) -> Vec<u8> {
+    if payload.first() != Some(&b'{') || payload.windows(6).any(|w| w == b"\"time\"") {
+        return payload.to_vec();
+    }
+    let now = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .unwrap()
+        .as_secs_f64();
+    let time = wallflux::time::Timestamp::from_epoch_s(now).rfc3339();
+    let mut out = format!("{{\"time\":\"{time}\",").into_bytes();
+    out.extend_from_slice(&payload[1..]);
+    out
+}
+
 /// Publishes one message (QoS 1, retained or not) and waits until the
 /// broker has it; the broker's refusal (a packet over its limit: it drops
 /// the connection) is the error.

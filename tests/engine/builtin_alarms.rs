@@ -160,6 +160,7 @@ impl Rig {
             alarm: name,
             by: "tester".into(),
             minutes: None,
+            time: Timestamp::from_epoch_s(self.t),
         };
         self.m
             .command(&cmd, Timestamp::from_epoch_s(self.t))

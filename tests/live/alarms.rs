@@ -9,7 +9,7 @@ use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
 use crate::common::feeder::Feeder;
-use crate::common::mqtt::{free_port, publish, subscribe, wait_all, wait_for, Broker, Msg};
+use crate::common::mqtt::{free_port, publish_command, subscribe, wait_all, wait_for, Broker, Msg};
 use crate::common::*;
 use wallflux::sim::pty::Pty;
 
@@ -155,10 +155,10 @@ on_delay_s = 0.0
     let event_id = ev.json["event_id"].as_str().unwrap().to_string();
 
     // Malformed commands: refused with a reason, the daemon carries on.
-    publish(port, &format!("{ROOT}/cmd"), b"this is not json");
+    publish_command(port, &format!("{ROOT}/cmd"), b"this is not json");
     let r = reply(&rx, None);
     assert_eq!(r["ok"], false);
-    publish(
+    publish_command(
         port,
         &format!("{ROOT}/cmd"),
         br#"{"id":"c0","action":"ack","alarm":"no-such-alarm","by":"op-anna"}"#,
@@ -169,7 +169,7 @@ on_delay_s = 0.0
         r["error"].as_str().unwrap().contains("no-such-alarm"),
         "{r}"
     );
-    publish(
+    publish_command(
         port,
         &format!("{ROOT}/cmd"),
         br#"{"id":"c1","action":"explode","alarm":"wall-shell-touch","by":"op-anna"}"#,
@@ -179,11 +179,11 @@ on_delay_s = 0.0
         r#"{{"id":"c2","action":"ack","alarm":"wall-shell-touch","by":"{}"}}"#,
         "x".repeat(5000)
     );
-    publish(port, &format!("{ROOT}/cmd"), huge.as_bytes());
+    publish_command(port, &format!("{ROOT}/cmd"), huge.as_bytes());
     assert_eq!(reply(&rx, None)["ok"], false);
 
     // Acknowledge over MQTT.
-    publish(
+    publish_command(
         port,
         &format!("{ROOT}/cmd"),
         br#"{"id":"c3","action":"ack","alarm":"wall-shell-touch","by":"op-anna"}"#,
@@ -195,7 +195,7 @@ on_delay_s = 0.0
     });
     assert_eq!(st.json["last_user"], "op-anna");
     // A second ack has nothing to acknowledge.
-    publish(
+    publish_command(
         port,
         &format!("{ROOT}/cmd"),
         br#"{"id":"c4","action":"ack","alarm":"wall-shell-touch","by":"op-anna"}"#,

@@ -14,7 +14,7 @@ use std::sync::Arc;
 use std::time::Duration;
 
 use crate::common::feeder::Feeder;
-use crate::common::mqtt::{free_port, publish, subscribe, wait_for, Broker, Msg};
+use crate::common::mqtt::{free_port, publish_command, subscribe, wait_for, Broker, Msg};
 use crate::common::*;
 use wallflux::sim::pty::Pty;
 
@@ -29,7 +29,7 @@ fn command(
     zone: &str,
 ) -> serde_json::Value {
     let payload = format!(r#"{{"id":"{id}","action":"{action}","zone":"{zone}","by":"eng-rosa"}}"#);
-    publish(port, &format!("{ROOT}/cmd"), payload.as_bytes());
+    publish_command(port, &format!("{ROOT}/cmd"), payload.as_bytes());
     wait_for(rx, Duration::from_secs(10), "command reply", |m| {
         m.topic == format!("{ROOT}/cmd/reply") && m.json["id"] == id
     })

@@ -6,7 +6,9 @@
 use std::time::{Duration, Instant};
 
 use crate::common::feeder::Feeder;
-use crate::common::mqtt::{free_port, publish, subscribe, try_publish, wait_for, Broker, Msg};
+use crate::common::mqtt::{
+    free_port, publish, stamped, subscribe, try_publish, wait_for, Broker, Msg,
+};
 use crate::common::*;
 use wallflux::sim::pty::Pty;
 
@@ -31,7 +33,12 @@ fn answered(port: u16, rx: &std::sync::mpsc::Receiver<Msg>, id: &str, within: Du
     while Instant::now() < deadline {
         // A broker that just dropped a client for an oversize packet may
         // refuse its next connection for a moment: that is a retry too.
-        let _ = try_publish(port, &format!("{ROOT}/cmd"), cmd.as_bytes(), false);
+        let _ = try_publish(
+            port,
+            &format!("{ROOT}/cmd"),
+            &stamped(cmd.as_bytes()),
+            false,
+        );
         let resend = Instant::now() + Duration::from_secs(2);
         while let Ok(m) = rx.recv_timeout(resend.saturating_duration_since(Instant::now())) {
             if m.topic == format!("{ROOT}/cmd/reply") && m.json["id"] == id {
@@ -108,7 +115,7 @@ fn a_retained_command_is_ignored() {
     let _broker = Broker::start(port, &dir);
     let rx = subscribe(port, &format!("{ROOT}/#"));
     let retained = br#"{"id":"stale-1","action":"ack","alarm":"no-such-alarm","by":"op-old"}"#;
-    try_publish(port, &format!("{ROOT}/cmd"), retained, true).unwrap();
+    try_publish(port, &format!("{ROOT}/cmd"), &stamped(retained), true).unwrap();
     let pty = Pty::open().unwrap();
     let cfg = write(
         &dir,
@@ -124,7 +131,7 @@ fn a_retained_command_is_ignored() {
         m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
     });
     let cmd = br#"{"id":"fresh-1","action":"ack","alarm":"no-such-alarm","by":"op-test"}"#;
-    publish(port, &format!("{ROOT}/cmd"), cmd);
+    publish(port, &format!("{ROOT}/cmd"), &stamped(cmd));
     let first_reply = wait_for(&rx, Duration::from_secs(10), "a reply", |m| {
         m.topic == format!("{ROOT}/cmd/reply")
     });
@@ -173,5 +180,147 @@ fn commands_are_answered_after_a_long_outage() {
     });
     assert!(down.elapsed() >= Duration::from_secs(20));
     answered(port, &rx, "after", Duration::from_secs(20));
+    stop_daemon(daemon);
+}
+
+/// Sends `cmd` and returns its reply and its audit event (`{root}/events`,
+/// `wallflux.command/1`).
+fn send(
+    port: u16,
+    rx: &std::sync::mpsc::Receiver<Msg>,
+    id: &str,
+    cmd: &str,
+) -> (serde_json::Value, serde_json::Value) {
+    publish(port, &format!("{ROOT}/cmd"), &stamped(cmd.as_bytes()));
+    let mut reply = None;
+    let mut audit = None;
+    let deadline = Instant::now() + Duration::from_secs(10);
+    while reply.is_none() || audit.is_none() {
+        let m = rx
+            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
+            .unwrap_or_else(|_| panic!("no reply and audit event for {id}"));
+        if m.json["id"] != id {
+            continue;
+        }
+        if m.topic == format!("{ROOT}/cmd/reply") {
+            reply = Some(m.json);
+        } else if m.topic == format!("{ROOT}/events") && m.json["schema"] == "wallflux.command/1" {
+            audit = Some(m.json);
+        }
+    }
+    (reply.unwrap(), audit.unwrap())
+}
+
+/// `[commands]`: a sender not listed, a disabled action, a shelve too long
+/// and a command an hour old are refused, each with its code and an audit
+/// event naming the sender; an accepted shelve is on disk before its `ok`;
+/// with the state directory gone, the reply says the change is not saved.
+#[test]
+fn the_command_policy_and_an_ok_that_means_on_disk() {
+    let dir = temp_dir("link-policy");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, &format!("{ROOT}/#"));
+    let pty = Pty::open().unwrap();
+    let state = dir.join("state");
+    let policy = "[commands]\nenabled = [\"ack\", \"shelve\", \"unshelve\"]\nallowed_by = [\"op-anna\"]\nmax_shelve_min = 60\nmax_command_age_s = 120\n\n[log]";
+    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0)
+        .lines()
+        .map(|l| match l {
+            l if l.starts_with("state_dir = ") => format!("state_dir = \"{}\"", state.display()),
+            "[log]" => policy.to_string(),
+            l => l.to_string(),
+        })
+        .collect::<Vec<_>>()
+        .join("\n");
+    let cfg = write(&dir, "w.toml", &text);
+    let _feed = feeder(pty);
+    let daemon = start_daemon(&cfg, &dir.join("d.log"));
+    wait_for(&rx, Duration::from_secs(20), "online", |m| {
+        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
+    });
+    let alarm = "wall-shell-touch";
+    let refused = [
+        (
+            "c-mallory",
+            format!(
+                r#"{{"id":"c-mallory","action":"shelve","alarm":"{alarm}","by":"mallory","minutes":30}}"#
+            ),
+            "not_allowed",
+        ),
+        (
+            "c-oos",
+            format!(
+                r#"{{"id":"c-oos","action":"out_of_service","alarm":"{alarm}","by":"op-anna"}}"#
+            ),
+            "action_disabled",
+        ),
+        (
+            "c-long",
+            format!(
+                r#"{{"id":"c-long","action":"shelve","alarm":"{alarm}","by":"op-anna","minutes":90}}"#
+            ),
+            "shelve_too_long",
+        ),
+        (
+            "c-old",
+            format!(
+                r#"{{"id":"c-old","action":"shelve","alarm":"{alarm}","by":"op-anna","minutes":30,"time":"2000-01-01T00:00:00Z"}}"#
+            ),
+            "stale",
+        ),
+    ];
+    for (id, cmd, code) in &refused {
+        let (reply, audit) = send(port, &rx, id, cmd);
+        assert_eq!(
+            (reply["ok"].as_bool(), reply["code"].as_str()),
+            (Some(false), Some(*code)),
+            "{reply}"
+        );
+        assert_eq!(audit["ok"], false, "{audit}");
+        assert_eq!(audit["code"], *code, "{audit}");
+        assert_eq!(audit["type"], "command");
+    }
+    let (_, audit) = send(port, &rx, "c-mallory", &refused[0].1);
+    assert_eq!(audit["by"], "mallory");
+
+    // Accepted: on disk when the reply comes.
+    let (reply, audit) = send(
+        port,
+        &rx,
+        "c-shelve",
+        &format!(
+            r#"{{"id":"c-shelve","action":"shelve","alarm":"{alarm}","by":"op-anna","minutes":30}}"#
+        ),
+    );
+    assert_eq!(reply["ok"], true, "{reply}");
+    assert_eq!(
+        (audit["ok"].as_bool(), audit["minutes"].as_f64()),
+        (Some(true), Some(30.0))
+    );
+    let saved: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(state.join("alarms.json")).unwrap()).unwrap();
+    assert!(saved[alarm]["shelved_until"].is_number(), "{saved}");
+    assert_eq!(saved[alarm]["last_user"], "op-anna", "{saved}");
+
+    // The state directory replaced by a file: applied, not saved, and said.
+    std::fs::remove_dir_all(&state).unwrap();
+    std::fs::write(&state, b"not a directory").unwrap();
+    let (reply, audit) = send(
+        port,
+        &rx,
+        "c-unshelve",
+        &format!(r#"{{"id":"c-unshelve","action":"unshelve","alarm":"{alarm}","by":"op-anna"}}"#),
+    );
+    assert_eq!(reply["code"], "not_persisted", "{reply}");
+    assert!(
+        reply["error"]
+            .as_str()
+            .unwrap()
+            .contains("will not survive a restart"),
+        "{reply}"
+    );
+    assert_eq!(audit["code"], "not_persisted");
+    std::fs::remove_file(&state).unwrap();
     stop_daemon(daemon);
 }

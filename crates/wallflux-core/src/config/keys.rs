@@ -46,6 +46,13 @@ pub(super) const MQTT: &[(&str, Sub)] = &[
 
 pub(super) const LOG: &[(&str, Sub)] = &[("summary_every", Leaf)];
 
+pub(super) const COMMANDS: &[(&str, Sub)] = &[
+    ("enabled", Leaf),
+    ("allowed_by", Leaf),
+    ("max_shelve_min", Leaf),
+    ("max_command_age_s", Leaf),
+];
+
 pub(super) const SOURCE: &[(&str, Sub)] = &[
     ("name", Leaf),
     ("kind", Leaf),
@@ -154,6 +161,7 @@ pub(super) const ROOT: &[(&str, Sub)] = &[
     ("site", Table(SITE)),
     ("mqtt", Table(MQTT)),
     ("log", Table(LOG)),
+    ("commands", Table(COMMANDS)),
     ("source", Items(SOURCE)),
     ("channel", Items(CHANNEL)),
     ("material", Items(MATERIAL)),
@@ -328,6 +336,7 @@ mod tests {
         assert_eq!(names(SITE), fields_of::<RawSite>());
         assert_eq!(names(MQTT), fields_of::<RawMqtt>());
         assert_eq!(names(LOG), fields_of::<RawLog>());
+        assert_eq!(names(COMMANDS), fields_of::<RawCommands>());
         assert_eq!(names(SOURCE), fields_of::<RawSource>());
         assert_eq!(names(CHANNEL), fields_of::<RawChannel>());
         assert_eq!(names(MATERIAL), fields_of::<RawMaterial>());

@@ -47,6 +47,7 @@ pub struct Settings {
     pub state_dir: PathBuf,
     pub mqtt: MqttSettings,
     pub log: LogSettings,
+    pub commands: CommandSettings,
     pub sources: IdVec<SourceId, Source>,
     pub channels: IdVec<ChannelId, Channel>,
     pub materials: Vec<NamedMaterial>,
@@ -227,6 +228,38 @@ pub struct MqttSettings {
     pub keep_alive_s: u64,
     /// Bound of the queue between the engine and the MQTT task.
     pub queue_capacity: usize,
+}
+
+/// `[commands]`: which commands this daemon takes, and from whom.
+#[derive(Debug, Clone)]
+pub struct CommandSettings {
+    /// The actions this daemon takes (all, unless `[commands] enabled`
+    /// lists fewer).
+    pub enabled: Vec<crate::monitor::command::Action>,
+    /// Who may command (anyone when empty). Only a name the sender states:
+    /// the broker's access control decides who can publish at all.
+    pub allowed_by: Vec<String>,
+    /// The longest shelve accepted, minutes.
+    pub max_shelve_min: f64,
+    /// The oldest command applied (and the furthest ahead), s.
+    pub max_age_s: f64,
+}
+
+/// Default of `[commands] max_command_age_s`: 5 minutes, room for a SCADA
+/// client's clock a little off and a message a little late.
+pub const DEFAULT_COMMAND_AGE_S: f64 = 300.0;
+/// The largest `[commands] max_command_age_s`: a day.
+pub const MAX_COMMAND_AGE_S: f64 = 86_400.0;
+
+impl Default for CommandSettings {
+    fn default() -> Self {
+        CommandSettings {
+            enabled: crate::monitor::command::Action::ALL.to_vec(),
+            allowed_by: Vec::new(),
+            max_shelve_min: crate::monitor::alarm::MAX_SHELVE_MIN,
+            max_age_s: DEFAULT_COMMAND_AGE_S,
+        }
+    }
 }
 
 #[derive(Debug, Clone)]

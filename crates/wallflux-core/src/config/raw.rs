@@ -17,6 +17,8 @@ pub struct RawConfig {
     #[serde(default)]
     pub log: Option<RawLog>,
     #[serde(default)]
+    pub commands: Option<S<RawCommands>>,
+    #[serde(default)]
     pub source: Vec<S<RawSource>>,
     #[serde(default)]
     pub channel: Vec<S<RawChannel>>,
@@ -77,6 +79,14 @@ pub struct RawMqtt {
     pub topic_root: Option<S<String>>,
     pub keep_alive_s: Option<S<f64>>,
     pub queue_capacity: Option<S<i64>>,
+}
+
+#[derive(Debug, Deserialize)]
+pub struct RawCommands {
+    pub enabled: Option<S<Vec<S<String>>>>,
+    pub allowed_by: Option<S<Vec<S<String>>>>,
+    pub max_shelve_min: Option<S<f64>>,
+    pub max_command_age_s: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]

@@ -878,3 +878,63 @@ fn a_name_longer_than_a_name_holds_is_refused_with_the_limit() {
         Some(&*just)
     );
 }
+
+/// `[commands]`: read as written; each bad value refused with its key.
+#[test]
+fn the_command_policy_is_read_and_checked() {
+    use crate::monitor::command::Action;
+    let d = parse(EXAMPLE, "example.toml", None).unwrap();
+    assert_eq!(d.commands.enabled, Action::ALL.to_vec());
+    assert!(d.commands.allowed_by.is_empty());
+    assert_eq!(d.commands.max_age_s, DEFAULT_COMMAND_AGE_S);
+    let with = |section: &str| format!("{EXAMPLE}\n[commands]\n{section}\n");
+    let s = parse(
+        &with(
+            "enabled = [\"ack\", \"shelve\"]\nallowed_by = [\"op-anna\", \"scada-1\"]\nmax_shelve_min = 120\nmax_command_age_s = 60",
+        ),
+        "t.toml",
+        None,
+    )
+    .unwrap();
+    assert_eq!(s.commands.enabled, vec![Action::Ack, Action::Shelve]);
+    assert_eq!(s.commands.allowed_by, vec!["op-anna", "scada-1"]);
+    assert_eq!(
+        (s.commands.max_shelve_min, s.commands.max_age_s),
+        (120.0, 60.0)
+    );
+    refused_naming(
+        &with("enabled = [\"ack\", \"silence\"]"),
+        "commands.enabled",
+        "out_of_service",
+    );
+    refused_naming(
+        &with("enabled = [\"ack\", \"ack\"]"),
+        "commands.enabled",
+        "listed twice",
+    );
+    refused_naming(
+        &with("allowed_by = []"),
+        "commands.allowed_by",
+        "leave it out",
+    );
+    refused_naming(
+        &with("allowed_by = [\"op\\u0007\"]"),
+        "commands.allowed_by",
+        "control",
+    );
+    refused_naming(
+        &with("max_shelve_min = 2000"),
+        "commands.max_shelve_min",
+        "1440",
+    );
+    refused_naming(
+        &with("max_command_age_s = 0"),
+        "commands.max_command_age_s",
+        "positive",
+    );
+    refused_naming(
+        &with("max_age = 5"),
+        "commands.max_age",
+        "max_command_age_s",
+    );
+}

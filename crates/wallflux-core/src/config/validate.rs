@@ -14,7 +14,8 @@ use heapless::Vec as HVec;
 
 use super::raw::*;
 use super::*;
-use crate::monitor::alarm::{AlarmKind, AlarmSpec, Priority};
+use crate::monitor::alarm::{AlarmKind, AlarmSpec, Priority, MAX_SHELVE_MIN};
+use crate::monitor::command::Action;
 use crate::physics::material::{Material, Property, MAX_POLYNOMIAL_TERMS};
 use crate::protocol::line::MAX_INPUT;
 
@@ -238,6 +239,58 @@ impl Validator<'_> {
 
     /// The variant of `T` whose word `s` is; else a problem that lists
     /// every word, and `default` so that validation goes on.
+    /// `[commands]`: the enabled actions (each once), the senders allowed
+    /// (as a command's `by` must read), the shelve and age limits.
+    fn commands(&mut self, c: &RawCommands) -> CommandSettings {
+        let mut out = CommandSettings::default();
+        if let Some(list) = &c.enabled {
+            out.enabled.clear();
+            for w in list.get_ref() {
+                let a = self.word(w, "commands.enabled", "a command action", Action::Ack);
+                if out.enabled.contains(&a) {
+                    self.problem(
+                        w.span(),
+                        "commands.enabled",
+                        format!("{:?} is listed twice", w.get_ref()),
+                    );
+                }
+                out.enabled.push(a);
+            }
+        }
+        if let Some(list) = &c.allowed_by {
+            if list.get_ref().is_empty() {
+                self.problem(
+                    list.span(),
+                    "commands.allowed_by",
+                    "is empty: leave it out to take commands from anyone, or list who may command",
+                );
+            }
+            for b in list.get_ref() {
+                if let Err(e) = crate::monitor::command::check_text("by", b.get_ref()) {
+                    self.problem(
+                        b.span(),
+                        "commands.allowed_by",
+                        format!("{:?}: {e}", b.get_ref()),
+                    );
+                }
+                out.allowed_by.push(b.get_ref().clone());
+            }
+        }
+        if let Some(m) = &c.max_shelve_min {
+            out.max_shelve_min =
+                self.positive_up_to(m, "commands.max_shelve_min", MAX_SHELVE_MIN, "minutes");
+        }
+        if let Some(a) = &c.max_command_age_s {
+            out.max_age_s = self.positive_up_to(
+                a,
+                "commands.max_command_age_s",
+                MAX_COMMAND_AGE_S,
+                "seconds",
+            );
+        }
+        out
+    }
+
     fn word<T: Word>(&mut self, s: &Spanned<String>, path: &str, what: &str, default: T) -> T {
         T::from_word(s.get_ref()).unwrap_or_else(|| {
             let message = format!("{:?} is not {what}; use {}", s.get_ref(), T::word_choices());
@@ -455,6 +508,11 @@ impl Validator<'_> {
             },
         };
 
+        let commands = match &raw.commands {
+            Some(c) => self.commands(c.get_ref()),
+            None => CommandSettings::default(),
+        };
+
         let mut sources: IdVec<SourceId, Source> = raw
             .source
             .iter()
@@ -658,6 +716,7 @@ impl Validator<'_> {
             state_dir,
             mqtt,
             log,
+            commands,
             sources,
             channels,
             materials,

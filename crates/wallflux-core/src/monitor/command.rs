@@ -5,10 +5,14 @@
 //! A command is one JSON object:
 //!
 //! ```json
-//! {"id": "c-17", "action": "shelve", "alarm": "side-wall.shell_high", "by": "j.smith", "minutes": 30}
+//! {"id": "c-17", "action": "shelve", "alarm": "side-wall.shell_high", "by": "j.smith", "minutes": 30, "time": "2026-03-14T08:15:00Z"}
 //! ```
 //!
 //! - `id` (required): the sender's correlation id, echoed in the reply.
+//! - `time` (required): when it was sent, RFC 3339; a command older than
+//!   the configuration's `max_command_age_s` (or as far ahead of the
+//!   daemon's clock) is refused, so that a command held back somewhere is
+//!   never applied late.
 //! - `action` (required): `ack`, `shelve`, `unshelve`, `reset`,
 //!   `out_of_service` or `in_service`.
 //! - `alarm` (required): the alarm's configured name (the caller looks it up
@@ -22,7 +26,7 @@
 //! `alarm`:
 //!
 //! ```json
-//! {"id": "c-18", "action": "baseline_start", "zone": "side-wall", "by": "j.smith"}
+//! {"id": "c-18", "action": "baseline_start", "zone": "side-wall", "by": "j.smith", "time": "2026-03-14T08:16:00Z"}
 //! ```
 //!
 //! Text fields are 1 to [`MAX_TEXT_CHARS`] characters with no control
@@ -31,6 +35,10 @@
 //! ignored (a sender may add its own); a key given twice is an error, since
 //! two readers could take different ones.
 //!
+//! Then the configuration's `[commands]` policy ([`check_policy`]): the
+//! action must be enabled, `by` one of `allowed_by` (when it lists any),
+//! a shelve no longer than `max_shelve_min`.
+//!
 //! The reply is `{"id": ..., "ok": true}` or `{"id": ..., "ok": false,
 //! "error": "<text>", "code": "<snake_case>"}`; `id` is null when the
 //! command had no readable id.
@@ -38,7 +46,9 @@
 use serde::{Deserialize, Serialize};
 use serde_json::Value;
 
+use crate::config::CommandSettings;
 use crate::monitor::alarm::{check_shelve_minutes, MAX_SHELVE_MIN};
+use crate::time::Timestamp;
 
 /// The largest command payload accepted, bytes.
 pub const MAX_COMMAND_BYTES: usize = 4096;
@@ -87,6 +97,8 @@ pub struct Command {
     pub by: String,
     /// The shelve duration (always present for [`Action::Shelve`]).
     pub minutes: Option<f64>,
+    /// When the sender sent it.
+    pub time: Timestamp,
 }
 
 /// Why a command was refused (by the parser, or by the alarm it names).
@@ -146,6 +158,28 @@ pub enum CommandError {
     /// The alarm is already in service.
     #[error("the alarm is already in service")]
     AlreadyInService,
+    /// `time` is not an RFC 3339 date and time.
+    #[error("field \"time\" is not an RFC 3339 date and time (e.g. 2026-03-14T08:15:00Z)")]
+    BadTime,
+    /// The command is older than `max_command_age_s`.
+    #[error("the command is {age_s:.0} s old, more than max_command_age_s = {max_s} s: not applied late")]
+    Stale { age_s: f64, max_s: f64 },
+    /// The command's time is further ahead of the daemon's clock than
+    /// `max_command_age_s` (a clock that is wrong on one side).
+    #[error("the command's time is {ahead_s:.0} s ahead of the daemon's clock (more than max_command_age_s = {max_s} s): check both clocks")]
+    FromTheFuture { ahead_s: f64, max_s: f64 },
+    /// The action is not among `[commands] enabled`.
+    #[error("the action \"{}\" is not enabled on this daemon ([commands] enabled)", .0.name())]
+    ActionDisabled(Action),
+    /// `by` is not among `[commands] allowed_by`.
+    #[error("\"{0}\" is not among those allowed to command this daemon ([commands] allowed_by)")]
+    NotAllowed(String),
+    /// A shelve longer than `[commands] max_shelve_min`.
+    #[error("a shelve may last at most {0} minutes here ([commands] max_shelve_min)")]
+    ShelveTooLong(f64),
+    /// The change was applied but could not be saved.
+    #[error("applied, but it could not be saved and will not survive a restart: {0}")]
+    NotPersisted(String),
     /// No zone of that name is configured.
     #[error("unknown zone \"{0}\"")]
     UnknownZone(String),
@@ -181,6 +215,13 @@ impl CommandError {
             CommandError::NotShelved => "not_shelved",
             CommandError::AlreadyOutOfService => "already_out_of_service",
             CommandError::AlreadyInService => "already_in_service",
+            CommandError::BadTime => "bad_time",
+            CommandError::Stale { .. } => "stale",
+            CommandError::FromTheFuture { .. } => "from_the_future",
+            CommandError::ActionDisabled(_) => "action_disabled",
+            CommandError::NotAllowed(_) => "not_allowed",
+            CommandError::ShelveTooLong(_) => "shelve_too_long",
+            CommandError::NotPersisted(_) => "not_persisted",
             CommandError::UnknownZone(_) => "unknown_zone",
             CommandError::NoBaseline(_) => "no_baseline",
             CommandError::Baseline(e) => {
@@ -236,6 +277,7 @@ struct Raw {
     by: Option<Value>,
     minutes: Option<Value>,
     zone: Option<Value>,
+    time: Option<Value>,
 }
 
 fn text(value: Option<Value>, field: &'static str) -> Result<String, CommandError> {
@@ -288,13 +330,45 @@ pub fn parse_command(payload: &[u8]) -> Result<Command, CommandError> {
     if action == Action::Shelve && minutes.is_none() {
         return Err(CommandError::MissingField("minutes"));
     }
+    let time = Timestamp::parse(&text(raw.time, "time")?).map_err(|_| CommandError::BadTime)?;
     Ok(Command {
         id,
         action,
         alarm,
         by,
         minutes,
+        time,
     })
+}
+
+/// Checks `cmd`, handled at `now`, against the `[commands]` policy: its
+/// age, its action, its sender, its shelve duration.
+pub fn check_policy(
+    policy: &CommandSettings,
+    cmd: &Command,
+    now: Timestamp,
+) -> Result<(), CommandError> {
+    let age_s = now.since(cmd.time);
+    let max_s = policy.max_age_s;
+    if age_s > max_s {
+        return Err(CommandError::Stale { age_s, max_s });
+    }
+    if -age_s > max_s {
+        return Err(CommandError::FromTheFuture {
+            ahead_s: -age_s,
+            max_s,
+        });
+    }
+    if !policy.enabled.contains(&cmd.action) {
+        return Err(CommandError::ActionDisabled(cmd.action));
+    }
+    if !policy.allowed_by.is_empty() && !policy.allowed_by.iter().any(|b| b == &cmd.by) {
+        return Err(CommandError::NotAllowed(cmd.by.clone()));
+    }
+    if cmd.minutes.is_some_and(|m| m > policy.max_shelve_min) {
+        return Err(CommandError::ShelveTooLong(policy.max_shelve_min));
+    }
+    Ok(())
 }
 
 /// The `id` of a payload that may have failed [`parse_command`], for the
@@ -354,7 +428,7 @@ mod tests {
             ("in_service", Action::InService),
         ] {
             let c = parse(&format!(
-                r#"{{"id":"c-1","action":"{name}","alarm":"side.shell_high","by":"j.smith"}}"#
+                r#"{{"time":"2026-03-14T08:15:00Z","id":"c-1","action":"{name}","alarm":"side.shell_high","by":"j.smith"}}"#
             ))
             .unwrap();
             assert_eq!(c.action, action);
@@ -365,7 +439,7 @@ mod tests {
             );
         }
         let c = parse(
-            r#" {"id":"7","action":"shelve","alarm":"a","by":"b","minutes":30, "note":"ignored"} "#,
+            r#" {"time":"2026-03-14T08:15:00Z","id":"7","action":"shelve","alarm":"a","by":"b","minutes":30, "note":"ignored"} "#,
         )
         .unwrap();
         assert_eq!((c.action, c.minutes), (Action::Shelve, Some(30.0)));
@@ -381,7 +455,7 @@ mod tests {
             ("baseline_reset", Action::BaselineReset),
         ] {
             let c = parse(&format!(
-                r#"{{"id":"b-1","action":"{name}","zone":"side-wall","by":"j.smith"}}"#
+                r#"{{"time":"2026-03-14T08:15:00Z","id":"b-1","action":"{name}","zone":"side-wall","by":"j.smith"}}"#
             ))
             .unwrap();
             assert_eq!((c.action, c.alarm.as_str()), (action, "side-wall"));
@@ -524,7 +598,7 @@ mod tests {
         let id = "i".repeat(MAX_TEXT_CHARS);
         let by = "é".repeat(MAX_TEXT_CHARS); // 64 characters, 128 bytes
         let c = parse(&format!(
-            r#"{{"id":"{id}","action":"shelve","alarm":"a","by":"{by}","minutes":1440}}"#
+            r#"{{"time":"2026-03-14T08:15:00Z","id":"{id}","action":"shelve","alarm":"a","by":"{by}","minutes":1440}}"#
         ))
         .unwrap();
         assert_eq!(
@@ -535,7 +609,7 @@ mod tests {
 
     #[test]
     fn payload_size_limit() {
-        let head = r#"{"id":"1","action":"ack","alarm":"a","by":"b","pad":""#;
+        let head = r#"{"time":"2026-03-14T08:15:00Z","id":"1","action":"ack","alarm":"a","by":"b","pad":""#;
         let fill = |n: usize| format!("{head}{}\"}}", "p".repeat(n - head.len() - 2));
         let at_limit = fill(MAX_COMMAND_BYTES);
         assert_eq!(at_limit.len(), MAX_COMMAND_BYTES);
@@ -634,5 +708,84 @@ mod tests {
                 }
             }
         }
+    }
+
+    #[test]
+    fn a_command_carries_its_time() {
+        let base = r#""id":"t","action":"ack","alarm":"a","by":"b""#;
+        assert_eq!(
+            parse(&format!("{{{base}}}")),
+            Err(CommandError::MissingField("time"))
+        );
+        for bad in [r#""yesterday""#, r#""2026-13-01T00:00:00Z""#] {
+            assert_eq!(
+                parse(&format!(r#"{{{base},"time":{bad}}}"#)),
+                Err(CommandError::BadTime),
+                "{bad}"
+            );
+        }
+        assert_eq!(
+            parse(&format!(r#"{{{base},"time":1700000000}}"#)),
+            Err(CommandError::WrongType("time"))
+        );
+        let c = parse(&format!(r#"{{{base},"time":"2026-03-14T08:15:00Z"}}"#)).unwrap();
+        assert_eq!(c.time, Timestamp::parse("2026-03-14T08:15:00Z").unwrap());
+    }
+
+    /// Each rule of `[commands]` refuses with its own code; the age limit
+    /// holds both ways and is inclusive.
+    #[test]
+    fn the_policy_refuses_stale_disabled_unlisted_and_long() {
+        let sent = Timestamp::parse("2026-03-14T08:15:00Z").unwrap();
+        let cmd = |action: &str, by: &str, minutes: &str| {
+            parse(&format!(
+                r#"{{"id":"p","action":"{action}","alarm":"a","by":"{by}"{minutes},"time":"2026-03-14T08:15:00Z"}}"#
+            ))
+            .unwrap()
+        };
+        let policy = CommandSettings {
+            enabled: vec![Action::Ack, Action::Shelve],
+            allowed_by: vec!["op-anna".into(), "scada-1".into()],
+            max_shelve_min: 60.0,
+            max_age_s: 120.0,
+        };
+        let ack = cmd("ack", "op-anna", "");
+        assert_eq!(check_policy(&policy, &ack, sent.plus_s(120.0)), Ok(()));
+        assert_eq!(check_policy(&policy, &ack, sent.plus_s(-120.0)), Ok(()));
+        let e = check_policy(&policy, &ack, sent.plus_s(121.0)).unwrap_err();
+        assert_eq!(
+            (e.code(), e.to_string().contains("121 s old")),
+            ("stale", true)
+        );
+        let e = check_policy(&policy, &ack, sent.plus_s(-3600.0)).unwrap_err();
+        assert_eq!(e.code(), "from_the_future");
+        let oos = cmd("out_of_service", "op-anna", "");
+        let e = check_policy(&policy, &oos, sent).unwrap_err();
+        assert_eq!(e, CommandError::ActionDisabled(Action::OutOfService));
+        assert!(
+            e.to_string().contains("\"out_of_service\" is not enabled"),
+            "{e}"
+        );
+        let e = check_policy(&policy, &cmd("ack", "mallory", ""), sent).unwrap_err();
+        assert_eq!(e, CommandError::NotAllowed("mallory".into()));
+        assert_eq!(e.code(), "not_allowed");
+        let long = cmd("shelve", "scada-1", r#","minutes":61"#);
+        assert_eq!(
+            check_policy(&policy, &long, sent),
+            Err(CommandError::ShelveTooLong(60.0))
+        );
+        let short = cmd("shelve", "scada-1", r#","minutes":60"#);
+        assert_eq!(check_policy(&policy, &short, sent), Ok(()));
+        // The defaults: every action, anyone, a day's shelve, 5 minutes.
+        let open = CommandSettings::default();
+        assert_eq!(
+            check_policy(&open, &cmd("ack", "mallory", ""), sent),
+            Ok(())
+        );
+        assert_eq!(check_policy(&open, &oos, sent.plus_s(300.0)), Ok(()));
+        assert_eq!(
+            check_policy(&open, &oos, sent.plus_s(301.0)).map_err(|e| e.code()),
+            Err("stale")
+        );
     }
 }

@@ -6,7 +6,7 @@
 
 use super::alarm::{AlarmKind, AlarmState, Transition};
 use super::alarm_engine::{event_id, target_names, trend_place, AlarmOutput, TrendAlert};
-use super::command::{command_id, parse_command};
+use super::command::{check_policy, command_id, parse_command};
 use super::output::{
     AlarmEvent, AlarmStateReport, CommandReply, FloodNotice, Output, SourceStatus, StatusReport,
     TrendEvent,
@@ -24,15 +24,18 @@ impl Monitor {
         let reply = match parse_command(payload) {
             Ok(cmd) => CommandReply {
                 id: Some(cmd.id.clone()),
-                result: self.command(&cmd, now).map(|_| ()),
+                result: check_policy(&self.settings.commands, &cmd, now)
+                    .and_then(|()| self.command(&cmd, now).map(|_| ())),
                 command: Some(cmd),
                 payload_bytes: payload.len(),
+                time: now,
             },
             Err(e) => CommandReply {
                 id: command_id(payload),
                 result: Err(e),
                 command: None,
                 payload_bytes: payload.len(),
+                time: now,
             },
         };
         self.push(Output::CommandReply(reply));

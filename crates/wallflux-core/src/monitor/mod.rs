@@ -700,7 +700,7 @@ mod tests {
     fn a_baseline_command_for_an_unknown_zone_is_refused_naming_it() {
         let mut m = monitor(EXAMPLE);
         let cmd = command::parse_command(
-            br#"{"id":"b-1","action":"baseline_start","zone":"nowhere","by":"j.smith"}"#,
+            br#"{"id":"b-1","action":"baseline_start","zone":"nowhere","by":"j.smith","time":"1970-01-01T00:00:01Z"}"#,
         )
         .unwrap();
         let refused = m.command(&cmd, Timestamp::from_epoch_s(1.0));
@@ -709,7 +709,7 @@ mod tests {
         assert!(m.baseline("nowhere").is_none());
         // The one zone there is exists, but has no baseline: a different refusal.
         let cmd = command::parse_command(
-            br#"{"id":"b-2","action":"baseline_start","zone":"north-wall","by":"j.smith"}"#,
+            br#"{"id":"b-2","action":"baseline_start","zone":"north-wall","by":"j.smith","time":"1970-01-01T00:00:01Z"}"#,
         )
         .unwrap();
         assert_eq!(

@@ -209,13 +209,68 @@ pub struct TrendEvent {
 
 /// The answer to an operator command: `{"id":…,"ok":true}` or
 /// `{"id":…,"ok":false,"error":"…","code":"…"}`. Carries the command (when
-/// it could be read) and the payload's size, for the audit line.
+/// it could be read) and the payload's size, for the audit line and the
+/// audit event ([`CommandReply::audit`]).
 #[derive(Debug, Clone, PartialEq)]
 pub struct CommandReply {
     pub id: Option<String>,
     pub result: Result<(), CommandError>,
     pub command: Option<Command>,
     pub payload_bytes: usize,
+    /// When it was handled.
+    pub time: Timestamp,
+}
+
+impl CommandReply {
+    /// The command's audit event (`wallflux.command/1` on `{root}/events`):
+    /// every command, accepted or refused, with who sent it.
+    pub fn audit(&self) -> CommandAudit<'_> {
+        let c = self.command.as_ref();
+        let baseline = c.is_some_and(|c| c.action.is_baseline());
+        let err = self.result.as_ref().err();
+        CommandAudit {
+            action: c.map(|c| c.action.name()),
+            alarm: c.filter(|_| !baseline).map(|c| c.alarm.as_str()),
+            by: c.map(|c| c.by.as_str()),
+            bytes: self.payload_bytes,
+            code: err.map(CommandError::code),
+            error: err.map(ToString::to_string),
+            id: self.id.as_deref(),
+            minutes: c.and_then(|c| c.minutes),
+            ok: err.is_none(),
+            schema: "wallflux.command/1",
+            sent: c.map(|c| c.time),
+            time: self.time,
+            event_type: "command",
+            zone: c.filter(|_| baseline).map(|c| c.alarm.as_str()),
+        }
+    }
+}
+
+/// The audit event of one command. Fields in alphabetical order (see the
+/// module doc); `sent` is the command's own `time`.
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct CommandAudit<'a> {
+    pub action: Option<&'static str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub alarm: Option<&'a str>,
+    pub by: Option<&'a str>,
+    pub bytes: usize,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub code: Option<&'static str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub error: Option<String>,
+    pub id: Option<&'a str>,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub minutes: Option<f64>,
+    pub ok: bool,
+    pub schema: &'static str,
+    pub sent: Option<Timestamp>,
+    pub time: Timestamp,
+    #[serde(rename = "type")]
+    pub event_type: &'static str,
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub zone: Option<&'a str>,
 }
 
 impl Serialize for CommandReply {
