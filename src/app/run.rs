@@ -84,6 +84,10 @@ pub async fn run_recording(
     let (stop_tx, stop_rx) = watch::channel(false);
     let (cmd_tx, mut cmd_rx) = mpsc::channel::<Vec<u8>>(64);
 
+    let password = match &settings.mqtt.credentials {
+        Some(c) => Some(mqtt::read_password(&c.password)?),
+        None => None,
+    };
     let mqtt_task = tokio::spawn(mqtt::run(
         settings.mqtt.clone(),
         root.clone(),
@@ -91,6 +95,7 @@ pub async fn run_recording(
         link.clone(),
         clock,
         cmd_tx,
+        password,
         stop_rx.clone(),
     ));
 
@@ -342,11 +347,13 @@ impl Engine {
         s.mqtt = Some(LinkStatus {
             coalesced: q.counters.coalesced.load(r),
             commands_dropped: link.commands_dropped.load(r),
+            commands_retained: link.commands_retained.load(r),
             connections: link.connections.load(r),
             dropped_channels: q.counters.dropped_channels.load(r),
             dropped_zone_states: q.counters.dropped_zone_states.load(r),
             failed_attempts: link.failed_attempts.load(r),
             lost_events: q.counters.lost_events.load(r),
+            oversize_packets: link.oversize_packets.load(r),
             published: link.published.load(r),
             queued: q.len() as u64,
         });

@@ -40,7 +40,7 @@ use tracing::{info, warn};
 use super::fold::Fold;
 use super::queue::Queue;
 use crate::app::clock::Clock;
-use crate::config::MqttSettings;
+use crate::config::{MqttSettings, PasswordSource};
 use crate::monitor::command::MAX_COMMAND_BYTES;
 use crate::time::Timestamp;
 
@@ -117,6 +117,32 @@ fn will_payload() -> Vec<u8> {
     .unwrap_or_default()
 }
 
+/// `e` in words for the log: a refused connection says why, in the
+/// config's terms (rumqttc's own text would print a Rust spelling).
+fn describe(e: &ConnectionError) -> String {
+    use rumqttc::ConnectReturnCode as C;
+    match e {
+        ConnectionError::ConnectionRefused(code) => match code {
+            C::BadUserNamePassword => {
+                "the broker refused the connection: bad user name or password (mqtt.username and its password)".into()
+            }
+            C::NotAuthorized => {
+                "the broker refused the connection: not authorised (the broker's account and access control)".into()
+            }
+            C::BadClientId => {
+                "the broker refused the connection: client id not accepted (mqtt.client_id)".into()
+            }
+            C::RefusedProtocolVersion => {
+                "the broker refused the connection: it does not speak MQTT 3.1.1".into()
+            }
+            C::ServiceUnavailable | C::Success => {
+                "the broker refused the connection: service unavailable".into()
+            }
+        },
+        e => e.to_string(),
+    }
+}
+
 /// The size of the packet, when `e` is the client refusing one over its
 /// limit.
 fn oversize(e: &ConnectionError) -> Option<usize> {
@@ -128,6 +154,40 @@ fn oversize(e: &ConnectionError) -> Option<usize> {
     }
 }
 
+/// The broker account's password from where `src` says, read once at
+/// start. A password file others can read gets a warning naming the fix;
+/// the password itself never reaches a log line or an error.
+pub fn read_password(src: &PasswordSource) -> anyhow::Result<String> {
+    let path = match src {
+        PasswordSource::File(p) => p.clone(),
+        PasswordSource::Credential(name) => {
+            let dir = std::env::var_os("CREDENTIALS_DIRECTORY").ok_or_else(|| {
+                anyhow::anyhow!(
+                    "mqtt.password_credential = {name:?} needs $CREDENTIALS_DIRECTORY (LoadCredential={name}:… in the systemd unit)"
+                )
+            })?;
+            std::path::Path::new(&dir).join(name)
+        }
+    };
+    let text = std::fs::read_to_string(&path).map_err(|e| {
+        anyhow::anyhow!("cannot read the MQTT password from {}: {e}", path.display())
+    })?;
+    #[cfg(unix)]
+    {
+        use std::os::unix::fs::PermissionsExt;
+        if let Ok(m) = std::fs::metadata(&path) {
+            if m.permissions().mode() & 0o077 != 0 {
+                warn!(file = %path.display(), "the MQTT password file can be read by others: chmod 600 it (owned by the service's user)");
+            }
+        }
+    }
+    let password = text.trim_end_matches(['\n', '\r']).to_string();
+    if password.is_empty() {
+        anyhow::bail!("the MQTT password file {} is empty", path.display());
+    }
+    Ok(password)
+}
+
 /// Runs the MQTT link until `shutdown` turns true, then flushes the queue,
 /// publishes `offline` and disconnects cleanly (bounded by a few seconds).
 pub async fn run(
@@ -137,6 +197,7 @@ pub async fn run(
     health: Arc<LinkHealth>,
     clock: Clock,
     commands: mpsc::Sender<Vec<u8>>,
+    password: Option<String>,
     mut shutdown: watch::Receiver<bool>,
 ) {
     let status_topic = format!("{root}/status");
@@ -146,6 +207,9 @@ pub async fn run(
     // (rumqttc panics otherwise).
     opts.set_keep_alive(Duration::from_secs(cfg.keep_alive_s.max(1)));
     opts.set_clean_session(false);
+    if let (Some(c), Some(p)) = (&cfg.credentials, password) {
+        opts.set_credentials(c.username.clone(), p);
+    }
     opts.set_max_packet_size(MAX_INCOMING_BYTES, MAX_PACKET_BYTES);
     opts.set_last_will(LastWill::new(
         status_topic.clone(),
@@ -242,11 +306,11 @@ pub async fn run(
                         last_reminder = Some(now);
                     } else if was_up {
                         if let Some(folded) = lost_lines.admit(now.into_std()) {
-                            warn!(broker = %target, error = %e, folded, "MQTT broker lost; reconnecting with backoff (states are queued, latest kept)");
+                            warn!(broker = %target, error = %describe(&e), folded, "MQTT broker lost; reconnecting with backoff (states are queued, latest kept)");
                         }
                         last_reminder = Some(now);
                     } else if last_reminder.is_none_or(|t| now.duration_since(t) >= REMIND_EVERY) {
-                        warn!(broker = %target, error = %e, attempts = failures_since_up, "MQTT broker unreachable; retrying");
+                        warn!(broker = %target, error = %describe(&e), attempts = failures_since_up, "MQTT broker unreachable; retrying");
                         last_reminder = Some(now);
                     }
                     tokio::select! {

@@ -21,6 +21,8 @@ pub struct Broker {
     pub port: u16,
     child: Option<Child>,
     dir: std::path::PathBuf,
+    /// A mosquitto configuration of the test's own.
+    conf: Option<String>,
 }
 
 impl Broker {
@@ -33,6 +35,20 @@ impl Broker {
             port,
             child: None,
             dir: dir.to_path_buf(),
+            conf: None,
+        };
+        b.restart();
+        b
+    }
+
+    /// mosquitto with the configuration `conf` (its own listener line
+    /// included).
+    pub fn mosquitto_with(port: u16, dir: &std::path::Path, conf: &str) -> Broker {
+        let mut b = Broker {
+            port,
+            child: None,
+            dir: dir.to_path_buf(),
+            conf: Some(conf.to_string()),
         };
         b.restart();
         b
@@ -40,13 +56,12 @@ impl Broker {
 
     /// Starts (again) on the same port and waits until it accepts.
     pub fn restart(&mut self) {
-        let child = if Self::kind() == "mosquitto" {
+        let child = if Self::kind() == "mosquitto" || self.conf.is_some() {
             let conf = self.dir.join(format!("mosquitto-{}.conf", self.port));
-            std::fs::write(
-                &conf,
-                format!("listener {} 127.0.0.1\nallow_anonymous true\n", self.port),
-            )
-            .unwrap();
+            let text = self.conf.clone().unwrap_or_else(|| {
+                format!("listener {} 127.0.0.1\nallow_anonymous true\n", self.port)
+            });
+            std::fs::write(&conf, text).unwrap();
             Command::new("mosquitto")
                 .arg("-c")
                 .arg(&conf)
@@ -99,6 +114,11 @@ pub struct Msg {
 /// Subscribes to `filter` and forwards every message; reconnects (and
 /// subscribes again) when the broker goes away.
 pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
+    subscribe_as(port, filter, None)
+}
+
+/// [`subscribe`] with a broker account (user, password).
+pub fn subscribe_as(port: u16, filter: &str, account: Option<(&str, &str)>) -> mpsc::Receiver<Msg> {
     let (tx, rx) = mpsc::channel();
     let mut opts = MqttOptions::new(
         format!("test-sub-{port}-{}", std::process::id()),
@@ -108,6 +128,9 @@ pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
     opts.set_keep_alive(Duration::from_secs(5));
     // Large enough for the oversize messages the link tests send.
     opts.set_max_packet_size(32 << 20, 32 << 20);
+    if let Some((u, p)) = account {
+        opts.set_credentials(u, p);
+    }
     let (client, mut conn) = Client::new(opts, 16);
     let filter = filter.to_string();
     std::thread::spawn(move || {
@@ -189,12 +212,26 @@ pub fn stamped(payload: &[u8]) -> Vec<u8> {
 /// broker has it; the broker's refusal (a packet over its limit: it drops
 /// the connection) is the error.
 pub fn try_publish(port: u16, topic: &str, payload: &[u8], retain: bool) -> Result<(), String> {
+    try_publish_as(port, topic, payload, retain, None)
+}
+
+/// [`try_publish`] with a broker account (user, password).
+pub fn try_publish_as(
+    port: u16,
+    topic: &str,
+    payload: &[u8],
+    retain: bool,
+    account: Option<(&str, &str)>,
+) -> Result<(), String> {
     let mut opts = MqttOptions::new(
         format!("test-pub-{port}-{}", std::process::id()),
         "127.0.0.1",
         port,
     );
     opts.set_max_packet_size(32 << 20, 32 << 20);
+    if let Some((u, p)) = account {
+        opts.set_credentials(u, p);
+    }
     let (client, mut conn) = Client::new(opts, 16);
     client
         .publish(topic, QoS::AtLeastOnce, retain, payload.to_vec())

@@ -7,7 +7,7 @@ use std::time::{Duration, Instant};
 
 use crate::common::feeder::Feeder;
 use crate::common::mqtt::{
-    free_port, publish, stamped, subscribe, try_publish, wait_for, Broker, Msg,
+    free_port, publish, stamped, subscribe, try_publish, try_publish_as, wait_for, Broker, Msg,
 };
 use crate::common::*;
 use wallflux::sim::pty::Pty;
@@ -323,4 +323,113 @@ fn the_command_policy_and_an_ok_that_means_on_disk() {
     assert_eq!(audit["code"], "not_persisted");
     std::fs::remove_file(&state).unwrap();
     stop_daemon(daemon);
+}
+
+/// The example broker configuration and access list of `deploy/mosquitto`
+/// on a real mosquitto, with the daemon's account: the daemon connects
+/// with its password and publishes; a client without credentials is
+/// refused; a command from the watch-only account is not delivered, one
+/// from the SCADA account is answered. (mosquitto only: the embedded
+/// broker has no accounts.)
+#[test]
+fn the_example_broker_access_list_lets_only_scada_command() {
+    if Broker::kind() != "mosquitto" {
+        eprintln!("skipped: needs WALLFLUX_TEST_BROKER=mosquitto (CI runs it)");
+        return;
+    }
+    let dir = temp_dir("link-acl");
+    let port = free_port();
+    let root_dir = std::path::Path::new(env!("CARGO_MANIFEST_DIR")).join("deploy/mosquitto");
+    let passwd = dir.join("wallflux.passwd");
+    for (i, (user, pass)) in [
+        ("wallflux-kiln-3", "d-secret-1"),
+        ("scada-1", "s-secret-2"),
+        ("viewer", "v-secret-3"),
+    ]
+    .iter()
+    .enumerate()
+    {
+        let mut c = std::process::Command::new("mosquitto_passwd");
+        if i == 0 {
+            c.arg("-c");
+        }
+        let ok = c
+            .arg("-b")
+            .arg(&passwd)
+            .arg(user)
+            .arg(pass)
+            .status()
+            .unwrap();
+        assert!(ok.success());
+    }
+    let acl = std::fs::read_to_string(root_dir.join("wallflux.acl"))
+        .unwrap()
+        .replace("wallflux/example-plant/kiln-3", ROOT)
+        .replace("wallflux/", "wf/");
+    std::fs::write(dir.join("wallflux.acl"), acl).unwrap();
+    let conf = std::fs::read_to_string(root_dir.join("wallflux.conf"))
+        .unwrap()
+        .replace(
+            "/etc/mosquitto/wallflux.passwd",
+            &passwd.display().to_string(),
+        )
+        .replace(
+            "/etc/mosquitto/wallflux.acl",
+            &dir.join("wallflux.acl").display().to_string(),
+        )
+        .replace(
+            "listener 1883 127.0.0.1",
+            &format!("listener {port} 127.0.0.1"),
+        );
+    assert!(conf.contains(&format!("listener {port}")) && conf.contains("allow_anonymous false"));
+    let _broker = Broker::mosquitto_with(port, &dir, &conf);
+
+    let scada = Some(("scada-1", "s-secret-2"));
+    let rx = crate::common::mqtt::subscribe_as(port, &format!("{ROOT}/#"), scada);
+    let pty = Pty::open().unwrap();
+    std::fs::write(dir.join("mqtt-password"), "d-secret-1\n").unwrap();
+    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0).replace(
+        "topic_root = \"wf\"",
+        &format!(
+            "topic_root = \"wf\"\nusername = \"wallflux-kiln-3\"\npassword_file = \"{}\"\nallow_plaintext_credentials = true",
+            dir.join("mqtt-password").display()
+        ),
+    );
+    let cfg = write(&dir, "w.toml", &text);
+    let _feed = feeder(pty);
+    let log = dir.join("d.log");
+    let daemon = start_daemon(&cfg, &log);
+    wait_for(
+        &rx,
+        Duration::from_secs(20),
+        "a zone state from the daemon",
+        |m| m.topic == format!("{ROOT}/zone/wall/state"),
+    );
+    // No account, or a wrong password: refused.
+    let cmd_topic = format!("{ROOT}/cmd");
+    let cmd = stamped(br#"{"id":"c-anon","action":"ack","alarm":"x","by":"op"}"#);
+    assert!(try_publish_as(port, &cmd_topic, &cmd, false, None).is_err());
+    assert!(try_publish_as(port, &cmd_topic, &cmd, false, Some(("scada-1", "wrong"))).is_err());
+    // The watch-only account's command is not delivered: no reply, while
+    // the SCADA account's, sent after it, is answered.
+    let cmd = stamped(br#"{"id":"c-viewer","action":"ack","alarm":"x","by":"op"}"#);
+    try_publish_as(
+        port,
+        &cmd_topic,
+        &cmd,
+        false,
+        Some(("viewer", "v-secret-3")),
+    )
+    .unwrap();
+    let cmd = stamped(br#"{"id":"c-scada","action":"ack","alarm":"x","by":"op"}"#);
+    try_publish_as(port, &cmd_topic, &cmd, false, scada).unwrap();
+    let r = wait_for(&rx, Duration::from_secs(10), "a reply", |m| {
+        m.topic == format!("{ROOT}/cmd/reply")
+    });
+    assert_eq!(r.json["id"], "c-scada", "{}", r.json);
+    stop_daemon(daemon);
+    let text = std::fs::read_to_string(&log).unwrap();
+    for secret in ["d-secret-1", "s-secret-2", "v-secret-3"] {
+        assert!(!text.contains(secret), "a password in the log:\n{text}");
+    }
 }

@@ -42,6 +42,10 @@ pub(super) const MQTT: &[(&str, Sub)] = &[
     ("topic_root", Leaf),
     ("keep_alive_s", Leaf),
     ("queue_capacity", Leaf),
+    ("username", Leaf),
+    ("password_file", Leaf),
+    ("password_credential", Leaf),
+    ("allow_plaintext_credentials", Leaf),
 ];
 
 pub(super) const LOG: &[(&str, Sub)] = &[("summary_every", Leaf)];

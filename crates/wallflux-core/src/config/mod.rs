@@ -228,6 +228,27 @@ pub struct MqttSettings {
     pub keep_alive_s: u64,
     /// Bound of the queue between the engine and the MQTT task.
     pub queue_capacity: usize,
+    /// The broker account, if it needs one.
+    pub credentials: Option<Credentials>,
+}
+
+/// A broker account: the user name, and where its password is (never the
+/// password itself, which the edge reads when it connects and nothing
+/// prints).
+#[derive(Debug, Clone, PartialEq)]
+pub struct Credentials {
+    pub username: String,
+    pub password: PasswordSource,
+}
+
+/// Where the password of [`Credentials`] is read from.
+#[derive(Debug, Clone, PartialEq)]
+pub enum PasswordSource {
+    /// A file holding the password (trailing line break ignored).
+    File(PathBuf),
+    /// A systemd credential: the file of that name in
+    /// `$CREDENTIALS_DIRECTORY` (`LoadCredential=` in the unit).
+    Credential(String),
 }
 
 /// `[commands]`: which commands this daemon takes, and from whom.

@@ -79,6 +79,10 @@ pub struct RawMqtt {
     pub topic_root: Option<S<String>>,
     pub keep_alive_s: Option<S<f64>>,
     pub queue_capacity: Option<S<i64>>,
+    pub username: Option<S<String>>,
+    pub password_file: Option<S<String>>,
+    pub password_credential: Option<S<String>>,
+    pub allow_plaintext_credentials: Option<S<bool>>,
 }
 
 #[derive(Debug, Deserialize)]

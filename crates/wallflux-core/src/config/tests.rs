@@ -938,3 +938,65 @@ fn the_command_policy_is_read_and_checked() {
         "max_command_age_s",
     );
 }
+
+/// `[mqtt] username` needs a password source, and over this version's
+/// plaintext link the explicit `allow_plaintext_credentials`.
+#[test]
+fn broker_credentials_are_checked() {
+    let with =
+        |keys: &str| EXAMPLE.replace("keep_alive_s = 30", &format!("keep_alive_s = 30\n{keys}"));
+    let ok = parse(
+        &with("username = \"wf-k3\"\npassword_file = \"/etc/wallflux/mqtt-password\"\nallow_plaintext_credentials = true"),
+        "t.toml",
+        None,
+    )
+    .unwrap();
+    assert_eq!(
+        ok.mqtt.credentials,
+        Some(Credentials {
+            username: "wf-k3".into(),
+            password: PasswordSource::File("/etc/wallflux/mqtt-password".into()),
+        })
+    );
+    let cred = parse(
+        &with("username = \"wf-k3\"\npassword_credential = \"mqtt-password\"\nallow_plaintext_credentials = true"),
+        "t.toml",
+        None,
+    )
+    .unwrap();
+    assert_eq!(
+        cred.mqtt.credentials.unwrap().password,
+        PasswordSource::Credential("mqtt-password".into())
+    );
+    assert_eq!(
+        parse(EXAMPLE, "t.toml", None).unwrap().mqtt.credentials,
+        None
+    );
+    refused_naming(
+        &with("username = \"wf-k3\"\npassword_file = \"/p\""),
+        "mqtt.username",
+        "clear text",
+    );
+    refused_naming(
+        &with("username = \"wf-k3\"\nallow_plaintext_credentials = true"),
+        "mqtt.username",
+        "password_file",
+    );
+    refused_naming(
+        &with("password_file = \"/p\""),
+        "mqtt.username",
+        "needs a username",
+    );
+    refused_naming(
+        &with("username = \"u\"\npassword_file = \"/p\"\npassword_credential = \"c\"\nallow_plaintext_credentials = true"),
+        "mqtt.password_credential",
+        "not both",
+    );
+    refused_naming(
+        &with(
+            "username = \"u\"\npassword_credential = \"../x\"\nallow_plaintext_credentials = true",
+        ),
+        "mqtt.password_credential",
+        "no '/'",
+    );
+}

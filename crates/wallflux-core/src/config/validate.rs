@@ -1238,6 +1238,7 @@ impl Validator<'_> {
             }
             None => 256,
         };
+        let credentials = self.credentials(m);
         MqttSettings {
             host,
             port,
@@ -1245,7 +1246,81 @@ impl Validator<'_> {
             topic_root,
             keep_alive_s,
             queue_capacity,
+            credentials,
         }
+    }
+
+    /// `username` with exactly one of `password_file` and
+    /// `password_credential`; over a link without TLS only with
+    /// `allow_plaintext_credentials = true`.
+    fn credentials(&mut self, m: &RawMqtt) -> Option<Credentials> {
+        let password = match (&m.password_file, &m.password_credential) {
+            (Some(f), None) if f.get_ref().is_empty() => {
+                self.problem(f.span(), "mqtt.password_file", "must not be empty");
+                None
+            }
+            (Some(f), None) => Some(PasswordSource::File(PathBuf::from(f.get_ref()))),
+            (None, Some(c)) => {
+                let v = c.get_ref();
+                if v.is_empty() || v.contains('/') || v == "." || v == ".." {
+                    self.problem(
+                        c.span(),
+                        "mqtt.password_credential",
+                        "must be the name of a systemd credential (a file name, no '/')",
+                    );
+                }
+                Some(PasswordSource::Credential(v.clone()))
+            }
+            (Some(_), Some(c)) => {
+                self.problem(
+                    c.span(),
+                    "mqtt.password_credential",
+                    "give password_file or password_credential, not both",
+                );
+                None
+            }
+            (None, None) => None,
+        };
+        let Some(user) = &m.username else {
+            if let Some(f) = m.password_file.as_ref().or(m.password_credential.as_ref()) {
+                self.problem(f.span(), "mqtt.username", "a password needs a username");
+            }
+            return None;
+        };
+        let username = user.get_ref();
+        if username.is_empty()
+            || username.chars().count() > 256
+            || username.chars().any(char::is_control)
+        {
+            self.problem(
+                user.span(),
+                "mqtt.username",
+                "must be 1 to 256 characters without control characters",
+            );
+        }
+        let Some(password) = password else {
+            self.problem(
+                user.span(),
+                "mqtt.username",
+                "needs password_file (a file holding the password) or password_credential (a systemd credential)",
+            );
+            return None;
+        };
+        if !m
+            .allow_plaintext_credentials
+            .as_ref()
+            .is_some_and(|a| *a.get_ref())
+        {
+            self.problem(
+                user.span(),
+                "mqtt.username",
+                "the password would cross the network in clear text (this version has no TLS yet): set allow_plaintext_credentials = true only where the link is trusted (loopback, an isolated segment)",
+            );
+        }
+        Some(Credentials {
+            username: username.clone(),
+            password,
+        })
     }
 
     fn source(&mut self, i: usize, s: &RawSource) -> Source {

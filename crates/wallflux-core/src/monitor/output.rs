@@ -299,11 +299,13 @@ pub struct SourceStatus {
 pub struct LinkStatus {
     pub coalesced: u64,
     pub commands_dropped: u64,
+    pub commands_retained: u64,
     pub connections: u64,
     pub dropped_channels: u64,
     pub dropped_zone_states: u64,
     pub failed_attempts: u64,
     pub lost_events: u64,
+    pub oversize_packets: u64,
     pub published: u64,
     pub queued: u64,
 }
