@@ -88,14 +88,17 @@ pub async fn run_recording(
         Some(c) => Some(mqtt::read_password(&c.password)?),
         None => None,
     };
+    let broker = mqtt::BrokerAccess {
+        cfg: settings.mqtt.clone(),
+        password,
+    };
     let mqtt_task = tokio::spawn(mqtt::run(
-        settings.mqtt.clone(),
+        broker,
         root.clone(),
         queue.clone(),
         link.clone(),
         clock,
         cmd_tx,
-        password,
         stop_rx.clone(),
     ));
 

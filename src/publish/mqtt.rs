@@ -188,18 +188,25 @@ pub fn read_password(src: &PasswordSource) -> anyhow::Result<String> {
     Ok(password)
 }
 
+/// The broker to connect to, and the password of its account (read by
+/// [`read_password`]).
+pub struct BrokerAccess {
+    pub cfg: MqttSettings,
+    pub password: Option<String>,
+}
+
 /// Runs the MQTT link until `shutdown` turns true, then flushes the queue,
 /// publishes `offline` and disconnects cleanly (bounded by a few seconds).
 pub async fn run(
-    cfg: MqttSettings,
+    broker: BrokerAccess,
     root: String,
     queue: Arc<Queue>,
     health: Arc<LinkHealth>,
     clock: Clock,
     commands: mpsc::Sender<Vec<u8>>,
-    password: Option<String>,
     mut shutdown: watch::Receiver<bool>,
 ) {
+    let BrokerAccess { cfg, password } = broker;
     let status_topic = format!("{root}/status");
     let cmd_topic = format!("{root}/cmd");
     let mut opts = MqttOptions::new(cfg.client_id.clone(), cfg.host.clone(), cfg.port);
