@@ -466,7 +466,8 @@ mod tests {
             "alarms_active": 1, "alarm_rate_per_10min": 2, "alarm_flood": false,
             "mqtt": {"connections": 1, "failed_attempts": 0, "published": 40,
                 "queued": 3, "coalesced": 0, "dropped_zone_states": 0,
-                "dropped_channels": 0, "lost_events": 0, "commands_dropped": 0},
+                "dropped_channels": 0, "lost_events": 0, "commands_dropped": 0,
+                "commands_retained": 0, "oversize_packets": 0},
             "unknown_inputs": 5,
         });
         assert_eq!(
