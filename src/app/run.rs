@@ -34,7 +34,8 @@ use crate::publish::route;
 /// Something that wants to see every zone report (the demo's terminal view).
 pub type Observer = Box<dyn FnMut(&ZoneReport) + Send>;
 
-/// How often (real time) the energy totals are saved.
+/// How often (real time) the lining baselines and the recording are saved
+/// (the energy totals are saved after every round of zone cycles).
 const SAVE_EVERY: Duration = Duration::from_secs(300);
 /// How often (real time) the status with counters is republished.
 const STATUS_EVERY: Duration = Duration::from_secs(60);
@@ -223,6 +224,8 @@ struct Engine {
     monitor: Monitor,
     recorder: Option<Recorder>,
     logger: Logger,
+    /// The last energy save failed (said once in the log).
+    energy_unsaved: bool,
 }
 
 impl Engine {
@@ -234,14 +237,18 @@ impl Engine {
         observer: Option<Observer>,
     ) -> Self {
         let mut totals = load_or_default::<EnergyTotals>(&settings, ENERGY_FILE, "energy totals");
+        if let Err(why) = totals.check() {
+            let moved = state::move_aside(&settings.state_dir, ENERGY_FILE);
+            warn!(file = %moved.display(), error = why, "energy totals are nonsense: moved aside, starting afresh");
+            totals = EnergyTotals::default();
+        }
         if let Some(note) = totals.upgrade() {
             info!(file = ENERGY_FILE, "{note}");
         }
-        let flags =
-            load_or_default::<BTreeMap<String, AlarmFlags>>(&settings, ALARMS_FILE, "alarm states");
+        let flags = load_entries_or_default::<AlarmFlags>(&settings, ALARMS_FILE, "alarm states");
         let mut monitor = Monitor::with_alarm_flags(settings.clone(), clock.now(), &flags);
         monitor.restore_energy(totals);
-        let baselines = load_or_default::<BTreeMap<String, crate::monitor::lining::Baseline>>(
+        let baselines = load_entries_or_default::<crate::monitor::lining::Baseline>(
             &settings,
             BASELINES_FILE,
             "lining baselines",
@@ -264,6 +271,7 @@ impl Engine {
             monitor,
             recorder: None,
             logger: Logger::default(),
+            energy_unsaved: false,
         }
     }
 
@@ -299,6 +307,7 @@ impl Engine {
     /// the observer; saves the alarm flags and baselines a change touched.
     fn drain(&mut self, sources: &[Arc<SourceHealth>], link: &LinkHealth) {
         let mut alarms_changed = false;
+        let mut energy_booked = false;
         while let Some(mut out) = self.monitor.poll_output() {
             self.logger.output(&self.settings, &out);
             match &mut out {
@@ -308,6 +317,7 @@ impl Engine {
                     }
                 }
                 Output::AlarmEvent(_) => alarms_changed = true,
+                Output::KilnState(_) => energy_booked = true,
                 Output::CommandReply(r) if r.result.is_ok() => {
                     // `ok` only once the change is on disk: a shelve or a
                     // commissioning step must survive a power cut.
@@ -332,6 +342,10 @@ impl Engine {
                     }
                 }
             }
+        }
+        if energy_booked {
+            // Every round of zone cycles: a kill loses at most one interval.
+            self.save_energy_totals();
         }
         if alarms_changed && self.monitor.alarms_mut().take_dirty() {
             let _ = self.save_alarms(); // a failure is logged
@@ -365,15 +379,26 @@ impl Engine {
 
     /// Energy totals and lining baselines (slow-moving state), every few
     /// minutes and at shutdown.
-    fn save_energy(&self) {
-        if let Err(e) = state::save(
+    fn save_energy(&mut self) {
+        self.save_energy_totals();
+        let _ = self.save_baselines(); // a failure is logged
+    }
+
+    /// The energy totals; a failure is logged once until a save succeeds
+    /// again (it is tried every interval).
+    fn save_energy_totals(&mut self) {
+        match state::save(
             &self.settings.state_dir,
             ENERGY_FILE,
             self.monitor.energy_totals(),
         ) {
-            warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the energy totals");
+            Ok(()) => self.energy_unsaved = false,
+            Err(e) if !self.energy_unsaved => {
+                self.energy_unsaved = true;
+                warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the energy totals (retried every interval; this is said once)");
+            }
+            Err(_) => {}
         }
-        let _ = self.save_baselines(); // a failure is logged
     }
 
     fn save_baselines(&self) -> std::io::Result<()> {
@@ -398,6 +423,32 @@ impl Engine {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the alarm states: they will not survive a restart");
         }
         saved
+    }
+}
+
+/// A file of entries by name, entry by entry: a bad entry is left out with
+/// one log line (naming at most the first few), the others are restored.
+fn load_entries_or_default<T: serde::de::DeserializeOwned>(
+    settings: &Settings,
+    file: &str,
+    what: &str,
+) -> BTreeMap<String, T> {
+    const NAMED: usize = 8;
+    match state::load_entries::<T>(&settings.state_dir, file) {
+        state::Loaded::Value((good, bad)) => {
+            if !bad.is_empty() {
+                let names: Vec<&str> = bad.iter().take(NAMED).map(|(k, _)| k.as_str()).collect();
+                warn!(file, bad = bad.len(), entries = %names.join(","), first_error = %bad[0].1,
+                    "{what}: unreadable entries left out, the others restored");
+            }
+            info!(file, entries = good.len(), "{what} restored");
+            good
+        }
+        state::Loaded::Missing => BTreeMap::new(),
+        state::Loaded::Corrupt(moved, e) => {
+            warn!(file = %moved.display(), error = %e, "{what} unreadable: moved aside, starting afresh");
+            BTreeMap::new()
+        }
     }
 }
 

@@ -2,6 +2,7 @@
 //! atomically (temporary file, fsync, rename, fsync of the directory), so a
 //! power cut leaves the old file or the new one, never half of one.
 
+use std::collections::BTreeMap;
 use std::fs::{self, File};
 use std::io::Write;
 use std::path::{Path, PathBuf};
@@ -55,9 +56,73 @@ pub fn load<T: DeserializeOwned>(dir: &Path, name: &str) -> Loaded<T> {
     }
 }
 
+/// Entries by name that were read, and those left out (name, why).
+pub type Entries<T> = (BTreeMap<String, T>, Vec<(String, String)>);
+
+/// Reads a JSON object of entries by name (`dir/name`), entry by entry: an
+/// entry that does not read as a `T` costs only itself and is returned by
+/// name with why. A file that is not an object at all is moved aside as
+/// [`load`] does.
+pub fn load_entries<T: DeserializeOwned>(dir: &Path, name: &str) -> Loaded<Entries<T>> {
+    match load::<BTreeMap<String, serde_json::Value>>(dir, name) {
+        Loaded::Value(raw) => {
+            let mut good = BTreeMap::new();
+            let mut bad = Vec::new();
+            for (k, v) in raw {
+                match serde_json::from_value::<T>(v) {
+                    Ok(t) => {
+                        good.insert(k, t);
+                    }
+                    Err(e) => bad.push((k, e.to_string())),
+                }
+            }
+            Loaded::Value((good, bad))
+        }
+        Loaded::Missing => Loaded::Missing,
+        Loaded::Corrupt(p, e) => Loaded::Corrupt(p, e),
+    }
+}
+
+/// Moves `dir/name` aside (to `name.bad`) after its content failed a check
+/// beyond parsing; returns where it went.
+pub fn move_aside(dir: &Path, name: &str) -> PathBuf {
+    let bad = dir.join(format!("{name}.bad"));
+    let _ = fs::rename(dir.join(name), &bad);
+    bad
+}
+
 #[cfg(test)]
 mod tests {
     use super::*;
+
+    /// One bad entry costs only itself; a file that is no object at all is
+    /// moved aside.
+    #[test]
+    fn entries_load_one_by_one() {
+        let dir = std::env::temp_dir().join(format!("wallflux-entries-{}", std::process::id()));
+        let _ = fs::remove_dir_all(&dir);
+        fs::create_dir_all(&dir).unwrap();
+        fs::write(
+            dir.join("e.json"),
+            br#"{"a": [1.0, 2.0], "b": "not a list", "c": [], "d": [1, "x"]}"#,
+        )
+        .unwrap();
+        let Loaded::Value((good, bad)) = load_entries::<Vec<f64>>(&dir, "e.json") else {
+            panic!("not loaded");
+        };
+        assert_eq!(good.keys().collect::<Vec<_>>(), ["a", "c"]);
+        assert_eq!(good["a"], vec![1.0, 2.0]);
+        assert_eq!(
+            bad.iter().map(|(k, _)| k.as_str()).collect::<Vec<_>>(),
+            ["b", "d"]
+        );
+        fs::write(dir.join("e.json"), b"[1, 2, 3]").unwrap();
+        assert!(matches!(
+            load_entries::<Vec<f64>>(&dir, "e.json"),
+            Loaded::Corrupt(p, _) if p.ends_with("e.json.bad")
+        ));
+        let _ = fs::remove_dir_all(&dir);
+    }
 
     #[test]
     fn round_trip_and_corrupt_file() {

@@ -203,8 +203,11 @@ pub fn stamped(payload: &[u8]) -> Vec<u8> {
         .unwrap()
         .as_secs_f64();
     let time = wallflux::time::Timestamp::from_epoch_s(now).rfc3339();
-    let mut out = format!("{{\"time\":\"{time}\",").into_bytes();
-    out.extend_from_slice(&payload[1..]);
+    let rest = &payload[1..];
+    let empty = rest.iter().find(|b| !b.is_ascii_whitespace()) == Some(&b'}');
+    let comma = if empty { "" } else { "," };
+    let mut out = format!("{{\"time\":\"{time}\"{comma}").into_bytes();
+    out.extend_from_slice(rest);
     out
 }
 

@@ -433,3 +433,79 @@ fn the_example_broker_access_list_lets_only_scada_command() {
         assert!(!text.contains(secret), "a password in the log:\n{text}");
     }
 }
+
+/// State files are checked on load: an alarm entry that does not read
+/// costs only itself (the others keep their flags), and energy totals that
+/// parse but cannot be true are moved aside.
+#[test]
+fn state_files_are_checked_entry_by_entry() {
+    let dir = temp_dir("link-state");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, &format!("{ROOT}/#"));
+    let pty = Pty::open().unwrap();
+    let state = dir.join("state");
+    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0)
+        .lines()
+        .map(|l| match l {
+            l if l.starts_with("state_dir = ") => format!("state_dir = \"{}\"", state.display()),
+            l => l.to_string(),
+        })
+        .collect::<Vec<_>>()
+        .join("\n");
+    let cfg = write(&dir, "w.toml", &text);
+    let _feed = feeder(pty);
+    let daemon = start_daemon(&cfg, &dir.join("d1.log"));
+    wait_for(&rx, Duration::from_secs(20), "online", |m| {
+        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
+    });
+    let (reply, _) = send(
+        port,
+        &rx,
+        "c-oos",
+        r#"{"id":"c-oos","action":"out_of_service","alarm":"wall-shell-touch","by":"op-anna"}"#,
+    );
+    assert_eq!(reply["ok"], true, "{reply}");
+    stop_daemon(daemon);
+
+    let alarms = state.join("alarms.json");
+    let mut saved: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&alarms).unwrap()).unwrap();
+    assert!(saved["p0-fault"].is_object(), "{saved}");
+    saved["p0-fault"] = serde_json::json!("garbage");
+    std::fs::write(&alarms, saved.to_string()).unwrap();
+    let energy = state.join("energy.json");
+    let mut totals: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(&energy).unwrap()).unwrap();
+    totals["day"] = serde_json::json!(106_751_991_167i64);
+    std::fs::write(&energy, totals.to_string()).unwrap();
+
+    let log = dir.join("d2.log");
+    // Only what the second daemon says: stamped after its start.
+    let started: serde_json::Value = serde_json::from_slice(&stamped(b"{}")).unwrap();
+    let started = started["time"].as_str().unwrap().to_string();
+    let newer = |m: &Msg| {
+        m.json["time"]
+            .as_str()
+            .is_some_and(|t| t > started.as_str())
+    };
+    let daemon = start_daemon(&cfg, &log);
+    wait_for(&rx, Duration::from_secs(20), "online again", |m| {
+        m.topic == format!("{ROOT}/status") && m.json["state"] == "online" && newer(m)
+    });
+    let st = wait_for(
+        &rx,
+        Duration::from_secs(20),
+        "the alarm state after the restart",
+        |m| m.topic == format!("{ROOT}/alarm/wall-shell-touch") && newer(m),
+    );
+    assert_eq!(st.json["out_of_service"], true, "{}", st.json);
+    stop_daemon(daemon);
+    let text = std::fs::read_to_string(&log).unwrap();
+    assert!(
+        text.contains("unreadable entries left out") && text.contains("p0-fault"),
+        "{text}"
+    );
+    assert!(text.contains("energy totals are nonsense"), "{text}");
+    assert!(state.join("energy.json.bad").exists());
+}

@@ -109,6 +109,35 @@ impl EnergyTotals {
     /// sums are kept (they are the best record there is), clamped at 0, and
     /// the total raised to at least the firing's and the day's (a whole is
     /// never less than its part).
+    /// Whether the totals can be true at all (a file that parses can still
+    /// be nonsense): every day and time within 1970 to 2200, every
+    /// duration and the rolling slots finite and not negative. What
+    /// [`Self::upgrade`] can mend (a negative total) passes.
+    pub fn check(&self) -> Result<(), &'static str> {
+        const LAST_DAY: i64 = 84_000; // about the year 2200
+        let last_s = LAST_DAY as f64 * 86_400.0;
+        if !(0..=LAST_DAY).contains(&self.day) {
+            return Err("its day lies outside 1970 to 2200");
+        }
+        if self
+            .firing_started
+            .is_some_and(|t| !(t.is_finite() && (0.0..=last_s).contains(&t)))
+        {
+            return Err("its firing start lies outside 1970 to 2200");
+        }
+        if !(0..=LAST_DAY * 86_400 / ROLLING_SLOT_S as i64).contains(&self.rolling_slot) {
+            return Err("its rolling slot lies outside 1970 to 2200");
+        }
+        let bad = |v: f64| !(v.is_finite() && v >= 0.0);
+        if self.last_firing_hours.is_some_and(bad) || self.last_firing_kwh.is_some_and(bad) {
+            return Err("its last firing is negative or not a number");
+        }
+        if self.rolling.iter().any(|&(l, g)| bad(l) || bad(g)) {
+            return Err("its rolling 24 h holds a negative or non-numeric slot");
+        }
+        Ok(())
+    }
+
     pub fn upgrade(&mut self) -> Option<&'static str> {
         let old = self.format < ENERGY_FORMAT;
         let before = self.clone();
@@ -627,5 +656,37 @@ mod tests {
             let t = &m.totals;
             prop_assert!((t.total_kwh - t.gain_total_kwh - net_kwh).abs() < 1e-6 * (1.0 + t.total_kwh + t.gain_total_kwh));
         }
+    }
+
+    /// A file that parses but cannot be true is refused as a whole; what
+    /// `upgrade` mends is not.
+    #[test]
+    fn nonsense_totals_are_refused() {
+        let ok = EnergyTotals::default();
+        assert_eq!(ok.check(), Ok(()));
+        // The year 292278994, as a corrupted 64-bit time gives.
+        let far = EnergyTotals {
+            day: 106_751_991_167,
+            ..ok.clone()
+        };
+        assert!(far.check().unwrap_err().contains("day"));
+        let future_firing = EnergyTotals {
+            firing_started: Some(9.2e18),
+            ..ok.clone()
+        };
+        assert!(future_firing.check().unwrap_err().contains("firing start"));
+        let negative_hours = EnergyTotals {
+            last_firing_hours: Some(-3.0),
+            ..ok.clone()
+        };
+        assert!(negative_hours.check().is_err());
+        let mut slots = ok.clone();
+        slots.rolling[3] = (-1.0, 0.0);
+        assert!(slots.check().is_err());
+        let mendable = EnergyTotals {
+            total_kwh: -5.0,
+            ..ok.clone()
+        };
+        assert_eq!(mendable.check(), Ok(()));
     }
 }
