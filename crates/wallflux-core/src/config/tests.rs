@@ -205,6 +205,16 @@ fn bad_values_are_refused() {
             "topic_root = \"wall/#\"",
             "mqtt.topic_root",
         ),
+        (
+            "topic_root = \"wallflux\"",
+            "topic_root = \"plant/$SYS\"",
+            "mqtt.topic_root",
+        ),
+        (
+            "topic_root = \"wallflux\"",
+            "topic_root = \"a//b\"",
+            "mqtt.topic_root",
+        ),
     ] {
         assert!(EXAMPLE.contains(from), "{from}");
         let p = problems(&EXAMPLE.replacen(from, to, 1));

@@ -1207,11 +1207,12 @@ impl Validator<'_> {
                     || v.ends_with('/')
                     || v.contains(['+', '#', '\0'])
                     || v.contains("//")
+                    || v.split('/').any(|seg| seg.starts_with('$'))
                 {
                     self.problem(
                         t.span(),
                         "mqtt.topic_root",
-                        format!("{v:?} is not a valid topic prefix (no wildcards, no leading, trailing or double '/')"),
+                        format!("{v:?} is not a valid topic prefix (no wildcards, no leading, trailing or double '/', no level starting with '$', which brokers keep for themselves)"),
                     );
                 }
                 v.clone()
