@@ -226,6 +226,7 @@ struct Engine {
     logger: Logger,
     /// The last energy save failed (said once in the log).
     energy_unsaved: bool,
+    clock: Clock,
 }
 
 impl Engine {
@@ -272,6 +273,7 @@ impl Engine {
             recorder: None,
             logger: Logger::default(),
             energy_unsaved: false,
+            clock,
         }
     }
 
@@ -384,14 +386,23 @@ impl Engine {
         let _ = self.save_baselines(); // a failure is logged
     }
 
+    /// Tells the monitor whether a save worked (its `state-not-saved`
+    /// alarm); its outputs go with the next drain.
+    fn persisted(&mut self, saved: bool) {
+        let now = self.clock.now();
+        self.monitor.handle_persistence(saved, now);
+    }
+
     /// The energy totals; a failure is logged once until a save succeeds
     /// again (it is tried every interval).
     fn save_energy_totals(&mut self) {
-        match state::save(
+        let saved = state::save(
             &self.settings.state_dir,
             ENERGY_FILE,
             self.monitor.energy_totals(),
-        ) {
+        );
+        self.persisted(saved.is_ok());
+        match saved {
             Ok(()) => self.energy_unsaved = false,
             Err(e) if !self.energy_unsaved => {
                 self.energy_unsaved = true;
@@ -401,24 +412,26 @@ impl Engine {
         }
     }
 
-    fn save_baselines(&self) -> std::io::Result<()> {
+    fn save_baselines(&mut self) -> std::io::Result<()> {
         let saved = state::save(
             &self.settings.state_dir,
             BASELINES_FILE,
             &self.monitor.baselines(),
         );
+        self.persisted(saved.is_ok());
         if let Err(e) = &saved {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the lining baselines");
         }
         saved
     }
 
-    fn save_alarms(&self) -> std::io::Result<()> {
+    fn save_alarms(&mut self) -> std::io::Result<()> {
         let saved = state::save(
             &self.settings.state_dir,
             ALARMS_FILE,
             &self.monitor.alarms().flags(),
         );
+        self.persisted(saved.is_ok());
         if let Err(e) = &saved {
             warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the alarm states: they will not survive a restart");
         }

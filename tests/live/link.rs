@@ -214,7 +214,9 @@ fn send(
 /// `[commands]`: a sender not listed, a disabled action, a shelve too long
 /// and a command an hour old are refused, each with its code and an audit
 /// event naming the sender; an accepted shelve is on disk before its `ok`;
-/// with the state directory gone, the reply says the change is not saved.
+/// with the state directory gone, the reply says the change is not saved
+/// and the built-in `state-not-saved` alarm is raised, then cleared once
+/// saving works again.
 #[test]
 fn the_command_policy_and_an_ok_that_means_on_disk() {
     let dir = temp_dir("link-policy");
@@ -321,7 +323,20 @@ fn the_command_policy_and_an_ok_that_means_on_disk() {
         "{reply}"
     );
     assert_eq!(audit["code"], "not_persisted");
+    // ... and its built-in alarm says so until a save works again.
+    wait_for(
+        &rx,
+        Duration::from_secs(10),
+        "state-not-saved raised",
+        |m| m.topic == format!("{ROOT}/alarm/state-not-saved") && m.json["active"] == true,
+    );
     std::fs::remove_file(&state).unwrap();
+    wait_for(
+        &rx,
+        Duration::from_secs(10),
+        "state-not-saved cleared",
+        |m| m.topic == format!("{ROOT}/alarm/state-not-saved") && m.json["active"] == false,
+    );
     stop_daemon(daemon);
 }
 

@@ -74,6 +74,10 @@ pub enum AlarmTarget {
     Channel { channel: ChannelId, health: bool },
     /// Source `source` silent (diagnostic).
     Source { source: SourceId },
+    /// The state directory cannot be written (diagnostic): what the daemon
+    /// must keep (alarm flags, baselines, energy) will not survive a
+    /// restart.
+    StateDir,
 }
 
 /// The zone-state fields an alarm can watch.
@@ -265,6 +269,9 @@ pub struct CommandSettings {
     /// The oldest command applied (and the furthest ahead), s.
     pub max_age_s: f64,
 }
+
+/// Name of the built-in alarm on the state directory.
+pub const STATE_ALARM: &str = "state-not-saved";
 
 /// Default of `[commands] max_command_age_s`: 5 minutes, room for a SCADA
 /// client's clock a little off and a message a little late.

@@ -885,6 +885,14 @@ impl Validator<'_> {
                 "Check the serial cable, the box's power and the port",
             ));
         }
+        out.push(builtin(
+            STATE_ALARM.to_string(),
+            AlarmTarget::StateDir,
+            spec(AlarmKind::Diagnostic, 0.5, 0.0, 0.0, Priority::High),
+            "The state directory cannot be written".to_string(),
+            "Alarm flags, shelves, lining baselines and energy totals will not survive a restart; commands are answered not_persisted",
+            "Check the state directory: free space, permissions, the storage card",
+        ));
         out
     }
 

@@ -267,6 +267,15 @@ impl AlarmEngine {
         }
     }
 
+    /// Whether the state directory could be written, at `now`.
+    pub fn on_state_dir(&mut self, failing: bool, now: Timestamp) {
+        for i in self.slots.ids() {
+            if self.configs[i].target == AlarmTarget::StateDir {
+                self.evaluate(i, Some(if failing { 1.0 } else { 0.0 }), now);
+            }
+        }
+    }
+
     fn evaluate(&mut self, i: AlarmId, raw: Option<f64>, now: Timestamp) {
         self.evaluate_with(i, raw, true, now);
     }
@@ -474,6 +483,7 @@ pub fn target_names(
             Some(settings.sources[source].name.as_str()),
             "silent",
         ),
+        AlarmTarget::StateDir => (None, None, None, "state_dir"),
     }
 }
 
@@ -578,7 +588,7 @@ fn dependencies(settings: &Settings, c: &AlarmConfig) -> HVec<ChannelId, MAX_PRO
             }
         }
         AlarmTarget::Channel { channel, .. } => d.extend([channel]),
-        AlarmTarget::Source { .. } => {}
+        AlarmTarget::Source { .. } | AlarmTarget::StateDir => {}
     }
     d
 }
@@ -611,5 +621,6 @@ pub fn trend_place(settings: &Settings, t: AlarmTarget) -> String {
             format!("channel {}", settings.channels[channel].name)
         }
         AlarmTarget::Source { source } => format!("source {}", settings.sources[source].name),
+        AlarmTarget::StateDir => "the state directory".to_string(),
     }
 }

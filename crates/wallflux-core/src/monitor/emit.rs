@@ -42,6 +42,14 @@ impl Monitor {
         self.collect_alarms(now);
     }
 
+    /// Whether the edge could save the state it must keep (alarm flags,
+    /// baselines, energy), at `now`: raises or clears the built-in
+    /// `state-not-saved` alarm.
+    pub fn handle_persistence(&mut self, saved: bool, now: Timestamp) {
+        self.alarms.on_state_dir(!saved, now);
+        self.collect_alarms(now);
+    }
+
     /// Asks for an [`Output::Status`] with the monitor's counters at `now`.
     pub fn handle_status_request(&mut self, now: Timestamp) {
         let sources = self
