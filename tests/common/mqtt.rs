@@ -193,16 +193,23 @@ pub fn publish_command(port: u16, topic: &str, payload: &[u8]) {
     publish(port, topic, &stamped(payload));
 }
 
+/// The wall clock now, as the payloads spell a time (RFC 3339, ms).
+pub fn now_rfc3339() -> String {
+    let now = std::time::SystemTime::now()
+        .duration_since(std::time::UNIX_EPOCH)
+        .unwrap()
+        .as_secs_f64();
+    wallflux::time::Timestamp::from_epoch_s(now)
+        .rfc3339()
+        .to_string()
+}
+
 /// `payload` with `"time": now` added, when it is a JSON object without one.
 pub fn stamped(payload: &[u8]) -> Vec<u8> {
     if payload.first() != Some(&b'{') || payload.windows(6).any(|w| w == b"\"time\"") {
         return payload.to_vec();
     }
-    let now = std::time::SystemTime::now()
-        .duration_since(std::time::UNIX_EPOCH)
-        .unwrap()
-        .as_secs_f64();
-    let time = wallflux::time::Timestamp::from_epoch_s(now).rfc3339();
+    let time = now_rfc3339();
     let rest = &payload[1..];
     let empty = rest.iter().find(|b| !b.is_ascii_whitespace()) == Some(&b'}');
     let comma = if empty { "" } else { "," };

@@ -7,7 +7,8 @@ use std::time::{Duration, Instant};
 
 use crate::common::feeder::Feeder;
 use crate::common::mqtt::{
-    free_port, publish, stamped, subscribe, try_publish, try_publish_as, wait_for, Broker, Msg,
+    free_port, now_rfc3339, publish, stamped, subscribe, try_publish, try_publish_as, wait_for,
+    Broker, Msg,
 };
 use crate::common::*;
 use wallflux::sim::pty::Pty;
@@ -22,6 +23,77 @@ fn feeder(pty: Pty) -> Feeder {
         DEPTHS_MM.len(),
         std::sync::Arc::new(|i, _| Some(900.0 - 820.0 * DEPTHS_MM[i] / 250.0)),
     )
+}
+
+/// One test's surroundings: a broker, a subscriber to the whole root, a
+/// steady wall on a pseudo-terminal, and a configuration for it (edited
+/// by the test, its state directory the test's own), ready to start
+/// daemons on.
+struct Rig {
+    dir: std::path::PathBuf,
+    port: u16,
+    broker: Broker,
+    rx: std::sync::mpsc::Receiver<Msg>,
+    cfg: std::path::PathBuf,
+    _feed: Feeder,
+}
+
+impl Rig {
+    fn new(name: &str, edit: impl FnOnce(String) -> String) -> Rig {
+        let dir = temp_dir(name);
+        let port = free_port();
+        let broker = Broker::start(port, &dir);
+        let rx = subscribe(port, &format!("{ROOT}/#"));
+        let pty = Pty::open().unwrap();
+        let text = with_state_dir(
+            one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0),
+            &dir.join("state"),
+        );
+        let text = edit(text);
+        let cfg = write(&dir, "w.toml", &text);
+        Rig {
+            port,
+            broker,
+            rx,
+            cfg,
+            _feed: feeder(pty),
+            dir,
+        }
+    }
+
+    /// Starts a daemon logging to `log` and waits for its own `online`
+    /// (stamped after its start: not one an earlier daemon sent).
+    fn daemon(&self, log: &str) -> Daemon {
+        let started = now_rfc3339();
+        let daemon = start_daemon(&self.cfg, &self.dir.join(log));
+        wait_for(&self.rx, Duration::from_secs(20), "online", |m| {
+            m.topic == format!("{ROOT}/status")
+                && m.json["state"] == "online"
+                && m.json["time"]
+                    .as_str()
+                    .is_some_and(|t| t > started.as_str())
+        });
+        daemon
+    }
+
+    fn state(&self) -> std::path::PathBuf {
+        self.dir.join("state")
+    }
+
+    fn log(&self, log: &str) -> String {
+        std::fs::read_to_string(self.dir.join(log)).unwrap()
+    }
+}
+
+/// `text` with its `state_dir` set to `dir`.
+fn with_state_dir(text: String, dir: &std::path::Path) -> String {
+    text.lines()
+        .map(|l| match l {
+            l if l.starts_with("state_dir = ") => format!("state_dir = \"{}\"", dir.display()),
+            l => l.to_string(),
+        })
+        .collect::<Vec<_>>()
+        .join("\n")
 }
 
 /// Sends a command that names no configured alarm until its reply comes
@@ -60,23 +132,10 @@ fn count(text: &str, needle: &str) -> usize {
 /// commands are answered.
 #[test]
 fn huge_messages_on_the_command_topic_do_not_silence_it() {
-    let dir = temp_dir("link-huge");
-    let port = free_port();
-    let _broker = Broker::start(port, &dir);
-    let rx = subscribe(port, &format!("{ROOT}/#"));
-    let pty = Pty::open().unwrap();
-    let cfg = write(
-        &dir,
-        "w.toml",
-        &one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0),
-    );
-    let _feed = feeder(pty);
-    let log = dir.join("d.log");
-    let daemon = start_daemon(&cfg, &log);
-    wait_for(&rx, Duration::from_secs(20), "online", |m| {
-        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
-    });
-    answered(port, &rx, "before", Duration::from_secs(10));
+    let rig = Rig::new("link-huge", |t| t);
+    let (port, rx) = (rig.port, &rig.rx);
+    let daemon = rig.daemon("d.log");
+    answered(port, rx, "before", Duration::from_secs(10));
     // The embedded broker refuses packets over 256 KiB itself; mosquitto
     // as the tests run it takes them and passes them on.
     let cmd = format!("{ROOT}/cmd");
@@ -84,15 +143,15 @@ fn huge_messages_on_the_command_topic_do_not_silence_it() {
     for n in [1usize << 20, 10 << 20] {
         passed_on.push(try_publish(port, &cmd, &vec![b'{'; n], false).is_ok());
     }
-    answered(port, &rx, "after-10", Duration::from_secs(20));
-    let text = std::fs::read_to_string(&log).unwrap();
+    answered(port, rx, "after-10", Duration::from_secs(20));
+    let text = rig.log("d.log");
     assert_eq!(count(&text, "MQTT broker connected"), 1, "{text}");
     let huge = try_publish(port, &cmd, &vec![b'{'; 20 << 20], false).is_ok();
-    answered(port, &rx, "after-20", Duration::from_secs(30));
+    answered(port, rx, "after-20", Duration::from_secs(30));
     // Given time to loop, it does not.
     std::thread::sleep(Duration::from_secs(3));
-    answered(port, &rx, "later", Duration::from_secs(10));
-    let text = std::fs::read_to_string(&log).unwrap();
+    answered(port, rx, "later", Duration::from_secs(10));
+    let text = rig.log("d.log");
     assert_eq!(
         count(&text, "MQTT broker connected"),
         1 + usize::from(huge),
@@ -110,36 +169,23 @@ fn huge_messages_on_the_command_topic_do_not_silence_it() {
 /// subscribes: it is logged as ignored, and gets no reply.
 #[test]
 fn a_retained_command_is_ignored() {
-    let dir = temp_dir("link-retained");
-    let port = free_port();
-    let _broker = Broker::start(port, &dir);
-    let rx = subscribe(port, &format!("{ROOT}/#"));
+    let rig = Rig::new("link-retained", |t| t);
+    let (port, rx) = (rig.port, &rig.rx);
     let retained = br#"{"id":"stale-1","action":"ack","alarm":"no-such-alarm","by":"op-old"}"#;
     try_publish(port, &format!("{ROOT}/cmd"), &stamped(retained), true).unwrap();
-    let pty = Pty::open().unwrap();
-    let cfg = write(
-        &dir,
-        "w.toml",
-        &one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0),
-    );
-    let _feed = feeder(pty);
-    let log = dir.join("d.log");
-    let daemon = start_daemon(&cfg, &log);
     // The retained message arrives right after the subscription, so before
     // the reply to a command sent once the daemon is online.
-    wait_for(&rx, Duration::from_secs(20), "online", |m| {
-        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
-    });
+    let daemon = rig.daemon("d.log");
     let cmd = br#"{"id":"fresh-1","action":"ack","alarm":"no-such-alarm","by":"op-test"}"#;
     publish(port, &format!("{ROOT}/cmd"), &stamped(cmd));
-    let first_reply = wait_for(&rx, Duration::from_secs(10), "a reply", |m| {
+    let first_reply = wait_for(rx, Duration::from_secs(10), "a reply", |m| {
         m.topic == format!("{ROOT}/cmd/reply")
     });
     assert_eq!(
         first_reply.json["id"], "fresh-1",
         "the retained command was answered"
     );
-    let text = std::fs::read_to_string(&log).unwrap();
+    let text = rig.log("d.log");
     assert_eq!(
         count(&text, "retained message on the command topic ignored"),
         1,
@@ -153,33 +199,19 @@ fn a_retained_command_is_ignored() {
 /// second for 20 s): after it, `online` again and commands answered.
 #[test]
 fn commands_are_answered_after_a_long_outage() {
-    let dir = temp_dir("link-outage");
-    let port = free_port();
-    let mut broker = Broker::start(port, &dir);
-    let rx = subscribe(port, &format!("{ROOT}/#"));
-    let pty = Pty::open().unwrap();
-    let cfg = write(
-        &dir,
-        "w.toml",
-        &one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0),
-    );
-    let _feed = feeder(pty);
-    let log = dir.join("d.log");
-    let daemon = start_daemon(&cfg, &log);
-    wait_for(&rx, Duration::from_secs(20), "online", |m| {
-        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
-    });
-    answered(port, &rx, "before", Duration::from_secs(10));
-    broker.stop();
+    let mut rig = Rig::new("link-outage", |t| t);
+    let daemon = rig.daemon("d.log");
+    answered(rig.port, &rig.rx, "before", Duration::from_secs(10));
+    rig.broker.stop();
     // The outage itself: its length is the condition under test.
     let down = Instant::now();
     std::thread::sleep(Duration::from_secs(20));
-    broker.restart();
-    wait_for(&rx, Duration::from_secs(60), "online again", |m| {
+    rig.broker.restart();
+    wait_for(&rig.rx, Duration::from_secs(60), "online again", |m| {
         m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
     });
     assert!(down.elapsed() >= Duration::from_secs(20));
-    answered(port, &rx, "after", Duration::from_secs(20));
+    answered(rig.port, &rig.rx, "after", Duration::from_secs(20));
     stop_daemon(daemon);
 }
 
@@ -219,28 +251,10 @@ fn send(
 /// saving works again.
 #[test]
 fn the_command_policy_and_an_ok_that_means_on_disk() {
-    let dir = temp_dir("link-policy");
-    let port = free_port();
-    let _broker = Broker::start(port, &dir);
-    let rx = subscribe(port, &format!("{ROOT}/#"));
-    let pty = Pty::open().unwrap();
-    let state = dir.join("state");
     let policy = "[commands]\nenabled = [\"ack\", \"shelve\", \"unshelve\"]\nallowed_by = [\"op-anna\"]\nmax_shelve_min = 60\nmax_command_age_s = 120\n\n[log]";
-    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0)
-        .lines()
-        .map(|l| match l {
-            l if l.starts_with("state_dir = ") => format!("state_dir = \"{}\"", state.display()),
-            "[log]" => policy.to_string(),
-            l => l.to_string(),
-        })
-        .collect::<Vec<_>>()
-        .join("\n");
-    let cfg = write(&dir, "w.toml", &text);
-    let _feed = feeder(pty);
-    let daemon = start_daemon(&cfg, &dir.join("d.log"));
-    wait_for(&rx, Duration::from_secs(20), "online", |m| {
-        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
-    });
+    let rig = Rig::new("link-policy", |t| t.replace("[log]", policy));
+    let (port, rx, state) = (rig.port, &rig.rx, rig.state());
+    let daemon = rig.daemon("d.log");
     let alarm = "wall-shell-touch";
     let refused = [
         (
@@ -273,7 +287,7 @@ fn the_command_policy_and_an_ok_that_means_on_disk() {
         ),
     ];
     for (id, cmd, code) in &refused {
-        let (reply, audit) = send(port, &rx, id, cmd);
+        let (reply, audit) = send(port, rx, id, cmd);
         assert_eq!(
             (reply["ok"].as_bool(), reply["code"].as_str()),
             (Some(false), Some(*code)),
@@ -283,13 +297,13 @@ fn the_command_policy_and_an_ok_that_means_on_disk() {
         assert_eq!(audit["code"], *code, "{audit}");
         assert_eq!(audit["type"], "command");
     }
-    let (_, audit) = send(port, &rx, "c-mallory", &refused[0].1);
+    let (_, audit) = send(port, rx, "c-mallory", &refused[0].1);
     assert_eq!(audit["by"], "mallory");
 
     // Accepted: on disk when the reply comes.
     let (reply, audit) = send(
         port,
-        &rx,
+        rx,
         "c-shelve",
         &format!(
             r#"{{"id":"c-shelve","action":"shelve","alarm":"{alarm}","by":"op-anna","minutes":30}}"#
@@ -310,7 +324,7 @@ fn the_command_policy_and_an_ok_that_means_on_disk() {
     std::fs::write(&state, b"not a directory").unwrap();
     let (reply, audit) = send(
         port,
-        &rx,
+        rx,
         "c-unshelve",
         &format!(r#"{{"id":"c-unshelve","action":"unshelve","alarm":"{alarm}","by":"op-anna"}}"#),
     );
@@ -324,15 +338,12 @@ fn the_command_policy_and_an_ok_that_means_on_disk() {
     );
     assert_eq!(audit["code"], "not_persisted");
     // ... and its built-in alarm says so until a save works again.
-    wait_for(
-        &rx,
-        Duration::from_secs(10),
-        "state-not-saved raised",
-        |m| m.topic == format!("{ROOT}/alarm/state-not-saved") && m.json["active"] == true,
-    );
+    wait_for(rx, Duration::from_secs(10), "state-not-saved raised", |m| {
+        m.topic == format!("{ROOT}/alarm/state-not-saved") && m.json["active"] == true
+    });
     std::fs::remove_file(&state).unwrap();
     wait_for(
-        &rx,
+        rx,
         Duration::from_secs(10),
         "state-not-saved cleared",
         |m| m.topic == format!("{ROOT}/alarm/state-not-saved") && m.json["active"] == false,
@@ -454,29 +465,12 @@ fn the_example_broker_access_list_lets_only_scada_command() {
 /// parse but cannot be true are moved aside.
 #[test]
 fn state_files_are_checked_entry_by_entry() {
-    let dir = temp_dir("link-state");
-    let port = free_port();
-    let _broker = Broker::start(port, &dir);
-    let rx = subscribe(port, &format!("{ROOT}/#"));
-    let pty = Pty::open().unwrap();
-    let state = dir.join("state");
-    let text = one_zone_config(&pty.path, port, 1.5, 250.0, &DEPTHS_MM, 1.0)
-        .lines()
-        .map(|l| match l {
-            l if l.starts_with("state_dir = ") => format!("state_dir = \"{}\"", state.display()),
-            l => l.to_string(),
-        })
-        .collect::<Vec<_>>()
-        .join("\n");
-    let cfg = write(&dir, "w.toml", &text);
-    let _feed = feeder(pty);
-    let daemon = start_daemon(&cfg, &dir.join("d1.log"));
-    wait_for(&rx, Duration::from_secs(20), "online", |m| {
-        m.topic == format!("{ROOT}/status") && m.json["state"] == "online"
-    });
+    let rig = Rig::new("link-state", |t| t);
+    let (port, rx, state) = (rig.port, &rig.rx, rig.state());
+    let daemon = rig.daemon("d1.log");
     let (reply, _) = send(
         port,
-        &rx,
+        rx,
         "c-oos",
         r#"{"id":"c-oos","action":"out_of_service","alarm":"wall-shell-touch","by":"op-anna"}"#,
     );
@@ -495,28 +489,16 @@ fn state_files_are_checked_entry_by_entry() {
     totals["day"] = serde_json::json!(106_751_991_167i64);
     std::fs::write(&energy, totals.to_string()).unwrap();
 
-    let log = dir.join("d2.log");
-    // Only what the second daemon says: stamped after its start.
-    let started: serde_json::Value = serde_json::from_slice(&stamped(b"{}")).unwrap();
-    let started = started["time"].as_str().unwrap().to_string();
-    let newer = |m: &Msg| {
-        m.json["time"]
-            .as_str()
-            .is_some_and(|t| t > started.as_str())
-    };
-    let daemon = start_daemon(&cfg, &log);
-    wait_for(&rx, Duration::from_secs(20), "online again", |m| {
-        m.topic == format!("{ROOT}/status") && m.json["state"] == "online" && newer(m)
-    });
+    let daemon = rig.daemon("d2.log");
     let st = wait_for(
-        &rx,
+        rx,
         Duration::from_secs(20),
         "the alarm state after the restart",
-        |m| m.topic == format!("{ROOT}/alarm/wall-shell-touch") && newer(m),
+        |m| m.topic == format!("{ROOT}/alarm/wall-shell-touch"),
     );
     assert_eq!(st.json["out_of_service"], true, "{}", st.json);
     stop_daemon(daemon);
-    let text = std::fs::read_to_string(&log).unwrap();
+    let text = rig.log("d2.log");
     assert!(
         text.contains("unreadable entries left out") && text.contains("p0-fault"),
         "{text}"
