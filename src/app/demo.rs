@@ -125,9 +125,10 @@ pub fn demo(args: &DemoArgs) -> Result<(), Failure> {
         };
         // The simulator stops first: the clock stands still while the daemon
         // shuts down, and the lines stay open until it has (no lost port).
+        let signal = super::shutdown_signal();
         let shutdown = async {
             tokio::select! {
-                _ = super::shutdown_signal() => show!("stopping (signal)"),
+                _ = signal => show!("stopping (signal)"),
                 _ = done.notified() => show!("firing complete"),
             }
             stop.store(true, Ordering::Relaxed);

@@ -98,7 +98,8 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
                 None => None,
             };
             runtime()?.block_on(async move {
-                run::run_recording(settings, clock, shutdown_signal(), None, recorder)
+                let shutdown = shutdown_signal();
+                run::run_recording(settings, clock, shutdown, None, recorder)
                     .await
                     .map_err(Failure::runtime)
             })
@@ -107,9 +108,10 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
         Command::Demo(args) => demo::demo(&args),
         #[cfg(feature = "demo")]
         Command::Broker { port } => runtime()?.block_on(async move {
+            let shutdown = shutdown_signal();
             broker::start(port).await.map_err(Failure::runtime)?;
             tracing::info!(port, "embedded MQTT broker listening on 127.0.0.1");
-            shutdown_signal().await;
+            shutdown.await;
             Ok(())
         }),
         #[cfg(not(feature = "demo"))]
@@ -170,18 +172,32 @@ pub fn runtime() -> Result<tokio::runtime::Runtime, Failure> {
         .map_err(|e| Failure::runtime(anyhow::anyhow!("cannot start the runtime: {e}")))
 }
 
-/// Completes on SIGINT (Ctrl-C) or SIGTERM (systemd stop).
-pub async fn shutdown_signal() {
+/// Completes on SIGINT (Ctrl-C) or SIGTERM (systemd stop). Both are
+/// registered when this is called, not when the future is first polled,
+/// so a stop that comes while the daemon is still starting is a clean stop
+/// too (not the default action, which kills).
+pub fn shutdown_signal() -> impl std::future::Future<Output = ()> {
     use tokio::signal::unix::{signal, SignalKind};
-    let mut term = match signal(SignalKind::terminate()) {
-        Ok(s) => s,
-        Err(_) => {
-            let _ = tokio::signal::ctrl_c().await;
-            return;
+    let term = signal(SignalKind::terminate());
+    let int = signal(SignalKind::interrupt());
+    async move {
+        match (term, int) {
+            (Ok(mut t), Ok(mut i)) => {
+                tokio::select! {
+                    _ = t.recv() => {}
+                    _ = i.recv() => {}
+                }
+            }
+            (Ok(mut t), Err(_)) => {
+                t.recv().await;
+            }
+            (Err(_), Ok(mut i)) => {
+                i.recv().await;
+            }
+            (Err(e), Err(_)) => {
+                tracing::warn!(error = %e, "cannot listen for SIGTERM or SIGINT: stop with SIGKILL");
+                std::future::pending::<()>().await;
+            }
         }
-    };
-    tokio::select! {
-        _ = tokio::signal::ctrl_c() => {}
-        _ = term.recv() => {}
     }
 }
