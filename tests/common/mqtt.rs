@@ -103,6 +103,9 @@ impl Drop for Broker {
     }
 }
 
+/// Subscribers made so far (for their client ids).
+static SUBSCRIBERS: std::sync::atomic::AtomicU32 = std::sync::atomic::AtomicU32::new(0);
+
 /// One received message.
 #[derive(Debug, Clone)]
 pub struct Msg {
@@ -121,7 +124,12 @@ pub fn subscribe(port: u16, filter: &str) -> mpsc::Receiver<Msg> {
 pub fn subscribe_as(port: u16, filter: &str, account: Option<(&str, &str)>) -> mpsc::Receiver<Msg> {
     let (tx, rx) = mpsc::channel();
     let mut opts = MqttOptions::new(
-        format!("test-sub-{port}-{}", std::process::id()),
+        // Each subscriber its own id: a second one must not push out the first.
+        format!(
+            "test-sub-{port}-{}-{}",
+            std::process::id(),
+            SUBSCRIBERS.fetch_add(1, std::sync::atomic::Ordering::Relaxed)
+        ),
         "127.0.0.1",
         port,
     );

@@ -337,16 +337,24 @@ fn the_command_policy_and_an_ok_that_means_on_disk() {
         "{reply}"
     );
     assert_eq!(audit["code"], "not_persisted");
-    // ... and its built-in alarm says so until a save works again.
-    wait_for(rx, Duration::from_secs(10), "state-not-saved raised", |m| {
-        m.topic == format!("{ROOT}/alarm/state-not-saved") && m.json["active"] == true
-    });
-    std::fs::remove_file(&state).unwrap();
+    // ... and its built-in alarm says so until a save works again (a new
+    // subscriber gets its retained state, whenever it was raised).
+    let topic = format!("{ROOT}/alarm/state-not-saved");
+    let alarm_rx = subscribe(port, &topic);
+    let raised = |m: &Msg| m.topic == topic && m.json["active"] == true;
     wait_for(
-        rx,
+        &alarm_rx,
+        Duration::from_secs(10),
+        "state-not-saved raised",
+        raised,
+    );
+    std::fs::remove_file(&state).unwrap();
+    let cleared = |m: &Msg| m.topic == topic && m.json["active"] == false;
+    wait_for(
+        &alarm_rx,
         Duration::from_secs(10),
         "state-not-saved cleared",
-        |m| m.topic == format!("{ROOT}/alarm/state-not-saved") && m.json["active"] == false,
+        cleared,
     );
     stop_daemon(daemon);
 }
