@@ -25,6 +25,8 @@
 //!   lining accounting. Driven by `handle_*`, read by `poll_*`, every call
 //!   given `now`.
 //! - [`publish`]: the bounded queue to the MQTT task and the MQTT edge.
+//! - [`store`]: the local database (SQLite): the spool of events until the
+//!   broker acknowledges them, the history, `export`.
 //! - [`config`]: the TOML file and its validated settings.
 //! - [`ids`]: typed ids of sources, channels, zones and alarms.
 //! - [`sim`]: a finite-difference wall model, the demo's firing schedule and
@@ -36,6 +38,7 @@
 pub mod acquire;
 pub mod app;
 pub mod publish;
+pub mod store;
 
 pub use wallflux_core::{config, ids, monitor, physics, protocol, time};
 #[cfg(feature = "demo")]

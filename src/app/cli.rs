@@ -66,6 +66,9 @@ pub enum Command {
     },
     /// ITS-90 thermocouple conversion, for field checks with a calibrator.
     Tc(TcArgs),
+    /// Write out the history of the local database (zone states, kiln
+    /// states, events) as CSV or JSON lines; works while the daemon runs.
+    Export(ExportArgs),
     /// Run only the embedded MQTT broker on 127.0.0.1 (for trials and tests;
     /// plants use their own broker).
     Broker {
@@ -102,6 +105,29 @@ fn parse_speed(s: &str) -> Result<f64, String> {
         )),
         Err(_) => Err(format!("{s:?} is not a number")),
     }
+}
+
+#[derive(Debug, Args)]
+pub struct ExportArgs {
+    /// The daemon's configuration (its state directory holds the history).
+    #[arg(long, value_name = "FILE")]
+    pub config: PathBuf,
+    /// From this time on (RFC 3339, or a date: midnight UTC).
+    #[arg(long, value_name = "TIME")]
+    pub since: Option<String>,
+    /// Up to (not including) this time.
+    #[arg(long, value_name = "TIME")]
+    pub until: Option<String>,
+    /// Only this zone (its zone states, and events of alarms on it).
+    #[arg(long, value_name = "ZONE")]
+    pub zone: Option<String>,
+    /// Only this kind: zone, kiln or event (needed for csv).
+    #[arg(long, value_name = "KIND", value_parser = ["zone", "kiln", "event"])]
+    pub kind: Option<String>,
+    /// csv (one column per field of the kind) or jsonl (each payload as
+    /// published).
+    #[arg(long, value_name = "FORMAT", default_value = "jsonl", value_parser = ["csv", "jsonl"])]
+    pub format: String,
 }
 
 #[derive(Debug, Args)]

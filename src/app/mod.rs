@@ -79,6 +79,7 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
     match cmd {
         Command::Check { config, strict } => check::check(&config, strict),
         Command::Tc(args) => tc::tc(&args),
+        Command::Export(args) => export(&args),
         Command::Analyze {
             config,
             samples,
@@ -122,6 +123,50 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
         Command::Demo(_) => Err(Failure::usage(anyhow::anyhow!(
             "this build has no demo (built without the `demo` feature)"
         ))),
+    }
+}
+
+/// `wallflux export`: the history to stdout.
+fn export(args: &cli::ExportArgs) -> Result<(), Failure> {
+    use crate::store::export::{self as ex, Filter, Format};
+    let settings = load(&args.config)?;
+    let time = |t: &Option<String>| t.as_deref().map(ex::parse_time).transpose();
+    let filter = Filter {
+        since: time(&args.since).map_err(Failure::usage)?,
+        until: time(&args.until).map_err(Failure::usage)?,
+        zone: args.zone.clone(),
+        kind: args
+            .kind
+            .as_deref()
+            .and_then(crate::store::HistoryKind::from_word),
+    };
+    if let Some(z) = &filter.zone {
+        if settings.zone_named(z).is_none() {
+            let names: Vec<&str> = settings.zones.iter().map(|z| z.name.as_str()).collect();
+            return Err(Failure::usage(anyhow::anyhow!(
+                "--zone {z:?}: no such zone in {} (zones: {})",
+                args.config.display(),
+                names.join(", ")
+            )));
+        }
+    }
+    let format = if args.format == "csv" {
+        Format::Csv
+    } else {
+        Format::Jsonl
+    };
+    let stdout = std::io::stdout();
+    let mut out = std::io::BufWriter::new(stdout.lock());
+    match ex::export(&settings.state_dir, &filter, format, &mut out) {
+        Ok(_) => Ok(()),
+        // `| head` closed the pipe: not an error.
+        Err(e)
+            if e.downcast_ref::<std::io::Error>()
+                .is_some_and(|io| io.kind() == std::io::ErrorKind::BrokenPipe) =>
+        {
+            Ok(())
+        }
+        Err(e) => Err(Failure::runtime(e)),
     }
 }
 

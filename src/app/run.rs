@@ -27,9 +27,11 @@ use crate::monitor::output::{LinkStatus, Output, StatusReport};
 use crate::monitor::zone::ZoneReport;
 use crate::monitor::Monitor;
 use crate::publish::log::Logger;
-use crate::publish::mqtt::{self, LinkHealth};
-use crate::publish::queue::Queue;
+use crate::publish::mqtt::{self, LinkHealth, Outbound};
+use crate::publish::queue::{Kind, Message, Queue};
 use crate::publish::route;
+use crate::store::{HistoryKind, Opened, Store};
+use crate::time::Timestamp;
 
 /// Something that wants to see every zone report (the demo's terminal view).
 pub type Observer = Box<dyn FnMut(&ZoneReport) + Send>;
@@ -93,18 +95,9 @@ pub async fn run_recording(
         cfg: settings.mqtt.clone(),
         password,
     };
-    let mqtt_task = tokio::spawn(mqtt::run(
-        broker,
-        root.clone(),
-        queue.clone(),
-        link.clone(),
-        clock,
-        cmd_tx,
-        stop_rx.clone(),
-    ));
-
     // The monitor starts before any source does: every scan is stamped at
-    // or after its start, as a recording of them replays.
+    // or after its start, as a recording of them replays. (Before the
+    // database opens: a simulated run's clock already runs.)
     let mut engine = Engine::new(
         settings.clone(),
         root.clone(),
@@ -112,6 +105,26 @@ pub async fn run_recording(
         clock,
         observer,
     );
+    let store =
+        open_store(&settings, clock.speed() <= 1.0).map(|s| Arc::new(std::sync::Mutex::new(s)));
+    engine.store = store.clone();
+    if store.is_none() {
+        // Said by the state-not-saved alarm too.
+        engine.persisted(false);
+    }
+    let outbound = Outbound {
+        queue: queue.clone(),
+        store,
+    };
+    let mqtt_task = tokio::spawn(mqtt::run(
+        broker,
+        root.clone(),
+        outbound,
+        link.clone(),
+        clock,
+        cmd_tx,
+        stop_rx.clone(),
+    ));
     engine.recorder = recorder;
     if let Some(r) = engine.recorder.as_mut() {
         r.start(engine.monitor.started());
@@ -145,6 +158,8 @@ pub async fn run_recording(
     engine.drain(&source_health, &link);
     let mut status_tick = tokio::time::interval(STATUS_EVERY);
     status_tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
+    let mut prune_tick = tokio::time::interval(PRUNE_EVERY);
+    prune_tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
     let mut save_tick = tokio::time::interval(SAVE_EVERY);
     save_tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
     tokio::pin!(shutdown);
@@ -182,6 +197,7 @@ pub async fn run_recording(
             // A new broker session may have lost retained alarm states.
             _ = link.reconnected.notified() => engine.monitor.handle_alarm_states_request(clock.now()),
             _ = status_tick.tick() => engine.monitor.handle_status_request(clock.now()),
+            _ = prune_tick.tick() => engine.prune_history(),
             _ = save_tick.tick() => {
                 engine.save_energy();
                 if let Some(r) = engine.recorder.as_mut() {
@@ -215,11 +231,47 @@ pub async fn run_recording(
     Ok(())
 }
 
+/// How often (real time) the history is pruned to `[store] history_days`.
+const PRUNE_EVERY: Duration = Duration::from_secs(3600);
+
+/// Opens the local database; `None` (with the reason in the log) when even
+/// a new one cannot be made: events then wait in memory only.
+/// `power_safe`: every commit synced to the medium (a real-time run; a
+/// simulated one, many times faster, leaves that to the system).
+fn open_store(settings: &Settings, power_safe: bool) -> Option<Store> {
+    match Store::open_with(&settings.state_dir, settings.store.clone(), power_safe) {
+        Ok((s, how)) => {
+            match how {
+                Opened::New => info!(
+                    file = crate::store::STORE_FILE,
+                    "local database created (spool and history)"
+                ),
+                Opened::Existing { unsent } => info!(
+                    file = crate::store::STORE_FILE,
+                    unsent_events = unsent,
+                    "local database opened (spool and history)"
+                ),
+                Opened::MovedAside { to, why } => {
+                    warn!(file = %to.display(), error = %why, "local database damaged: moved aside, a new one started (its unsent events and history stay in the moved file)")
+                }
+            }
+            Some(s)
+        }
+        Err(e) => {
+            warn!(dir = %settings.state_dir.display(), error = %e, "cannot open the local database: events wait in memory only (lost at a restart) and there is no history");
+            None
+        }
+    }
+}
+
 /// The engine loop's state: the monitor and where its outputs go.
 struct Engine {
     settings: Arc<Settings>,
     root: String,
     queue: Arc<Queue>,
+    store: Option<Arc<std::sync::Mutex<Store>>>,
+    /// The last write to the database failed (said once in the log).
+    store_failing: bool,
     observer: Option<Observer>,
     monitor: Monitor,
     recorder: Option<Recorder>,
@@ -268,6 +320,8 @@ impl Engine {
             settings,
             root,
             queue,
+            store: None,
+            store_failing: false,
             observer,
             monitor,
             recorder: None,
@@ -308,6 +362,9 @@ impl Engine {
     /// Routes every output of the monitor to the log, the MQTT queue and
     /// the observer; saves the alarm flags and baselines a change touched.
     fn drain(&mut self, sources: &[Arc<SourceHealth>], link: &LinkHealth) {
+        let events_topic = format!("{}/events", self.root);
+        let now = self.clock.now();
+        let mut round = Round::default();
         let mut alarms_changed = false;
         let mut energy_booked = false;
         while let Some(mut out) = self.monitor.poll_output() {
@@ -336,14 +393,34 @@ impl Engine {
                 Output::Status(s) => self.edge_status(s, sources, link),
                 _ => {}
             }
+            let history = self.history_of(&out);
             for m in route::messages(&self.root, &out) {
                 match m {
-                    Ok(m) => self.queue.push(m),
+                    Ok(m) => {
+                        let is_event = m.topic == events_topic;
+                        if let Some((kind, zone, time)) = &history {
+                            if *kind != HistoryKind::Event || is_event {
+                                round
+                                    .history
+                                    .push((*kind, zone.clone(), *time, m.payload.clone()));
+                            }
+                        }
+                        if m.kind == Kind::Event {
+                            round
+                                .events
+                                .push((history.as_ref().map_or(now, |h| h.2), m));
+                        } else {
+                            round.states.push((round.events.len(), m));
+                        }
+                    }
                     Err(e) => {
                         warn!(kind = out.kind().name(), error = %e, "message could not be encoded")
                     }
                 }
             }
+        }
+        if !round.is_empty() {
+            self.write_round(round, !link.connected.load(Ordering::Relaxed));
         }
         if energy_booked {
             // Every round of zone cycles: a kill loses at most one interval.
@@ -351,6 +428,144 @@ impl Engine {
         }
         if alarms_changed && self.monitor.alarms_mut().take_dirty() {
             let _ = self.save_alarms(); // a failure is logged
+        }
+    }
+
+    /// Where `out` goes in the history, if it does: its kind, zone and time.
+    fn history_of(&self, out: &Output) -> Option<(HistoryKind, Option<String>, Timestamp)> {
+        let zone_of_alarm = |name: &str| {
+            let id = self.settings.alarm_named(name)?;
+            match self.settings.alarms[id].target {
+                crate::config::AlarmTarget::Zone { zone, .. } => {
+                    Some(self.settings.zones[zone].name.to_string())
+                }
+                _ => None,
+            }
+        };
+        Some(match out {
+            Output::ZoneState(z) => (
+                HistoryKind::Zone,
+                Some(z.report.zone.to_string()),
+                z.report.time,
+            ),
+            Output::KilnState(k) => (HistoryKind::Kiln, None, k.time),
+            Output::AlarmEvent(e) => (HistoryKind::Event, zone_of_alarm(&e.alarm), e.time),
+            Output::TrendAlert(t) => (HistoryKind::Event, zone_of_alarm(&t.alarm), t.time),
+            Output::CommandReply(r) => (
+                HistoryKind::Event,
+                r.command.as_ref().and_then(|c| zone_of_alarm(&c.alarm)),
+                r.time,
+            ),
+            _ => return None,
+        })
+    }
+
+    /// Writes one round's events to the spool and its states and events to
+    /// the history, in one transaction (one fsync), then wakes the link.
+    /// When the database cannot take them, the events go to the memory
+    /// queue instead (nothing is lost while the daemon runs) and the
+    /// state-not-saved alarm says so.
+    fn write_round(&mut self, mut round: Round, offline: bool) {
+        // Each state names the last event the monitor gave before it, so
+        // the link keeps their order (a command's reply before the alarm
+        // state it changed; an alarm's state before its event).
+        let mut states = std::mem::take(&mut round.states);
+        let Some(store) = self.store.clone() else {
+            self.queue_in_order(round.events, states);
+            return;
+        };
+        let written = {
+            let mut s = store.lock().unwrap_or_else(|e| e.into_inner());
+            let mut write = || -> rusqlite::Result<()> {
+                let mut seqs = Vec::with_capacity(round.events.len());
+                for (t, m) in &round.events {
+                    seqs.push(s.spool(*t, &m.topic, &m.payload, offline)?);
+                }
+                for (i, m) in states.iter_mut() {
+                    m.after = if *i == 0 { 0 } else { seqs[*i - 1] };
+                }
+                for (kind, zone, t, payload) in &round.history {
+                    s.record(*kind, zone.as_deref(), *t, payload)?;
+                }
+                if let Some(d) = s.enforce_bounds(self.clock.now())? {
+                    let notice = spool_notice(&d, self.clock.now());
+                    s.spool(
+                        self.clock.now(),
+                        &format!("{}/events", self.root),
+                        &notice,
+                        offline,
+                    )?;
+                    s.record(HistoryKind::Event, None, self.clock.now(), &notice)?;
+                    warn!(dropped = d.count, bytes = d.bytes, first = %d.first.rfc3339(), last = %d.last.rfc3339(), bound = d.bound,
+                        "spool full: the oldest unsent events dropped (they stay in the history; `wallflux export --kind event` recovers them)");
+                }
+                s.commit()
+            };
+            let r = write();
+            if r.is_err() {
+                s.rollback();
+            }
+            r
+        };
+        match written {
+            Ok(()) => {
+                if self.store_failing {
+                    self.store_failing = false;
+                    info!(
+                        file = crate::store::STORE_FILE,
+                        "the local database takes writes again"
+                    );
+                }
+                self.persisted(true);
+                for (_, m) in states {
+                    self.queue.push(m);
+                }
+                self.queue.wake();
+            }
+            Err(e) => {
+                if !self.store_failing {
+                    self.store_failing = true;
+                    warn!(file = crate::store::STORE_FILE, error = %e, "cannot write to the local database: events wait in memory until it works again (lost at a restart); this is said once");
+                }
+                self.persisted(false);
+                for (_, m) in states.iter_mut() {
+                    m.after = 0;
+                }
+                self.queue_in_order(round.events, states);
+            }
+        }
+    }
+
+    /// Events and states into the memory queue in the monitor's order
+    /// (the database cannot take the events).
+    fn queue_in_order(&self, events: Vec<(Timestamp, Message)>, states: Vec<(usize, Message)>) {
+        let mut states = states.into_iter().peekable();
+        for (i, (_, e)) in events.into_iter().enumerate() {
+            while let Some((_, m)) = states.next_if(|(j, _)| *j <= i) {
+                self.queue.push(m);
+            }
+            self.queue.push(e);
+        }
+        for (_, m) in states {
+            self.queue.push(m);
+        }
+    }
+
+    /// Prunes the history to `[store] history_days`.
+    fn prune_history(&mut self) {
+        let Some(store) = &self.store else { return };
+        let r = store
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .prune_history(self.clock.now());
+        match r {
+            Ok(0) => {}
+            Ok(n) => info!(
+                rows = n,
+                days = self.settings.store.history_days,
+                "history pruned"
+            ),
+            Err(e) => warn!(error = %e, "cannot prune the history"),
         }
     }
 
@@ -363,7 +578,18 @@ impl Engine {
             st.reopens = Some(h.opens.load(r).saturating_sub(1));
         }
         let q = &self.queue;
+        let spool = self
+            .store
+            .as_ref()
+            .map(|st| st.lock().unwrap_or_else(|e| e.into_inner()).stats())
+            .unwrap_or_default();
         s.mqtt = Some(LinkStatus {
+            backfilled: link.backfilled.load(r),
+            spool_bytes: spool.bytes,
+            spool_dropped: spool.dropped,
+            spool_events: spool.events,
+            spool_oldest: spool.oldest,
+            store_ok: self.store.is_some() && !self.store_failing,
             coalesced: q.counters.coalesced.load(r),
             commands_dropped: link.commands_dropped.load(r),
             commands_retained: link.commands_retained.load(r),
@@ -437,6 +663,41 @@ impl Engine {
         }
         saved
     }
+}
+
+/// What one round of the engine writes to the database.
+#[derive(Default)]
+struct Round {
+    /// Events for the spool, with their time.
+    events: Vec<(Timestamp, Message)>,
+    /// States for the queue, each with the number of the round's events
+    /// the monitor gave before it.
+    states: Vec<(usize, Message)>,
+    /// Zone states, kiln states and events for the history.
+    history: Vec<(HistoryKind, Option<String>, Timestamp, Vec<u8>)>,
+}
+
+impl Round {
+    fn is_empty(&self) -> bool {
+        self.events.is_empty() && self.history.is_empty() && self.states.is_empty()
+    }
+}
+
+/// The event that announces events dropped from the spool
+/// (`wallflux.spool/1`, type `events_dropped`).
+fn spool_notice(d: &crate::store::Dropped, now: Timestamp) -> Vec<u8> {
+    serde_json::to_vec(&serde_json::json!({
+        "schema": "wallflux.spool/1",
+        "type": "events_dropped",
+        "time": now,
+        "count": d.count,
+        "bytes": d.bytes,
+        "first": d.first,
+        "last": d.last,
+        "bound": d.bound,
+        "in_history": true,
+    }))
+    .unwrap_or_default()
 }
 
 /// A file of entries by name, entry by entry: a bad entry is left out with

@@ -1,7 +1,9 @@
 //! Publishing: the monitor's outputs to their sinks. `route` decides where
 //! each output goes on MQTT (one place); `queue` hands messages to the
-//! `mqtt` link without waiting on it; `log` writes the log lines, `fold`
-//! keeps repeated ones from flooding the journal.
+//! `mqtt` link without waiting on it; `flight` tracks what the link has
+//! handed to the MQTT client until the broker acknowledges it; `log` writes
+//! the log lines, `fold` keeps repeated ones from flooding the journal.
+pub mod flight;
 pub mod fold;
 pub mod log;
 pub mod mqtt;

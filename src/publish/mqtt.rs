@@ -1,9 +1,15 @@
 //! The MQTT edge (rumqttc): one task owns the event loop and only polls it;
-//! a second task moves messages from the engine's queue into the client.
-//! Persistent session (fixed client id, `clean_session = false`) so QoS 1
-//! messages queued during an outage survive the reconnect; last will
-//! `offline`; `online` republished on every connection; `offline` published
-//! before a clean disconnect (the will fires only on an abrupt drop).
+//! a second task hands messages to the client: live events from the spool
+//! (`store`) and states from the engine's queue in the monitor's order,
+//! then backfill from the spool at a bounded pace. `flight` matches each
+//! PUBACK to what was handed, so an event leaves the spool only once the
+//! broker has it. Persistent session (fixed client id, `clean_session =
+//! false`); last will `offline`; `online` republished on every connection;
+//! `offline` published before a clean disconnect (the will fires only on an
+//! abrupt drop). When the connection drops, everything handed and not
+//! acknowledged comes back to the link and is sent again after the
+//! reconnection (at least once: a subscriber may see an event twice, with
+//! the same `event_id` and `seq`).
 //!
 //! # The command path
 //! `{root}/cmd` is subscribed at QoS 0: a command is live, so the broker
@@ -25,7 +31,7 @@
 //! never fills.
 
 use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
-use std::sync::Arc;
+use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
 use rumqttc::mqttbytes::v4::{Publish, Subscribe};
@@ -37,11 +43,13 @@ use serde::Serialize;
 use tokio::sync::{mpsc, watch, Notify};
 use tracing::{info, warn};
 
+use super::flight::{hand, Flight, Handed};
 use super::fold::Fold;
 use super::queue::Queue;
 use crate::app::clock::Clock;
 use crate::config::{MqttSettings, PasswordSource};
 use crate::monitor::command::MAX_COMMAND_BYTES;
+use crate::store::Store;
 use crate::time::Timestamp;
 
 /// Largest packet sent; a zone state with 16 probes is about 4 KiB, so this
@@ -66,7 +74,10 @@ pub struct LinkHealth {
     pub connected: AtomicBool,
     pub connections: AtomicU64,
     pub failed_attempts: AtomicU64,
+    /// Publishes the broker acknowledged.
     pub published: AtomicU64,
+    /// Events sent late from the spool, marked `"backfill": true`.
+    pub backfilled: AtomicU64,
     /// Commands not handed to the engine (its queue full, or larger than a
     /// command can be).
     pub commands_dropped: AtomicU64,
@@ -188,6 +199,15 @@ pub fn read_password(src: &PasswordSource) -> anyhow::Result<String> {
     Ok(password)
 }
 
+/// Where the engine's messages wait for the link: states (and events,
+/// when the local database cannot take them) in the queue, events in the
+/// spool.
+#[derive(Clone)]
+pub struct Outbound {
+    pub queue: Arc<Queue>,
+    pub store: Option<Arc<Mutex<Store>>>,
+}
+
 /// The broker to connect to, and the password of its account (read by
 /// [`read_password`]).
 pub struct BrokerAccess {
@@ -200,13 +220,14 @@ pub struct BrokerAccess {
 pub async fn run(
     broker: BrokerAccess,
     root: String,
-    queue: Arc<Queue>,
+    outbound: Outbound,
     health: Arc<LinkHealth>,
     clock: Clock,
     commands: mpsc::Sender<Vec<u8>>,
     mut shutdown: watch::Receiver<bool>,
 ) {
     let BrokerAccess { cfg, password } = broker;
+    let queue = outbound.queue.clone();
     let status_topic = format!("{root}/status");
     let cmd_topic = format!("{root}/cmd");
     let mut opts = MqttOptions::new(cfg.client_id.clone(), cfg.host.clone(), cfg.port);
@@ -226,29 +247,49 @@ pub async fn run(
     ));
     let (client, mut eventloop) = AsyncClient::new(opts, REQUEST_CAPACITY);
     let (up_tx, up_rx) = watch::channel(false);
+    let store = outbound.store.clone();
+    let last_seq = store
+        .as_ref()
+        .and_then(|s| s.lock().unwrap_or_else(|e| e.into_inner()).last_seq().ok())
+        .unwrap_or(0);
+    let flight = Arc::new(Mutex::new(Flight::new(last_seq)));
 
     let sender = {
         let client = client.clone();
         let queue = queue.clone();
         let health = health.clone();
+        let flight = flight.clone();
+        let store = store.clone();
         let mut up = up_rx;
         tokio::spawn(async move {
             loop {
-                // Only while connected: during an outage the messages wait
-                // in the engine's queue, which counts and bounds them.
+                // Only while connected: during an outage states wait in
+                // the engine's queue (latest per topic), events in the
+                // spool.
                 if up.wait_for(|&u| u).await.is_err() {
                     break;
                 }
-                let m = queue.pop().await;
-                let retain = m.retain();
-                if client
-                    .publish(m.topic, QoS::AtLeastOnce, retain, m.payload)
-                    .await
-                    .is_err()
-                {
-                    break;
+                let woken = queue.notified();
+                tokio::pin!(woken);
+                woken.as_mut().enable();
+                delete_acked(&flight, store.as_ref(), false);
+                let is_up = *up.borrow();
+                let wait = match hand(&flight, is_up, &client, &queue, store.as_ref(), &health) {
+                    Handed::One => continue,
+                    Handed::Closed => break,
+                    Handed::Wait(d) => Some(d),
+                    Handed::Nothing | Handed::Full => None,
+                };
+                let acks = flight.lock().unwrap_or_else(|e| e.into_inner()).acks_wait();
+                let nap = match (wait, acks) {
+                    (Some(a), Some(b)) => a.min(b),
+                    (a, b) => a.or(b).unwrap_or(IDLE_RECHECK),
+                };
+                tokio::select! {
+                    _ = &mut woken => {}
+                    _ = tokio::time::sleep(nap) => {}
+                    _ = up.changed() => {}
                 }
-                health.published.fetch_add(1, Ordering::Relaxed);
             }
         })
     };
@@ -273,15 +314,25 @@ pub async fn run(
                     backoff = Duration::from_millis(250);
                     // Persistent again after a fresh session.
                     eventloop.mqtt_options.set_clean_session(false);
-                    // Ahead of anything queued: the subscription (a new
-                    // session may not know it), then `online`, so that a
-                    // client that waits for `online` finds commands heard.
+                    // Ahead of anything: the subscription (a new session
+                    // may not know it), then `online`, so that a client
+                    // that waits for `online` finds commands heard.
                     let mut online = Publish::new(status_topic.as_str(), QoS::AtLeastOnce,
                         status_payload("online", clock.now()));
                     online.retain = true;
+                    flight.lock().unwrap_or_else(|e| e.into_inner()).status_first();
                     eventloop.pending.push_front(Request::Publish(online));
                     eventloop.pending.push_front(Request::Subscribe(Subscribe::new(cmd_topic.as_str(), CMD_QOS)));
                     let _ = up_tx.send(true);
+                }
+                Ok(Event::Outgoing(Outgoing::Publish(pkid))) => {
+                    flight.lock().unwrap_or_else(|e| e.into_inner()).written(pkid);
+                }
+                Ok(Event::Incoming(Packet::PubAck(a))) => {
+                    if flight.lock().unwrap_or_else(|e| e.into_inner()).acked(a.pkid) {
+                        health.published.fetch_add(1, Ordering::Relaxed);
+                    }
+                    queue.wake();
                 }
                 Ok(Event::Incoming(Packet::Publish(p))) if p.topic == cmd_topic => {
                     if p.retain {
@@ -302,18 +353,19 @@ pub async fn run(
                 Err(e) => {
                     let was_up = health.connected.swap(false, Ordering::Relaxed);
                     let _ = up_tx.send(false);
+                    take_all_back(&mut eventloop, &flight, &queue, &health);
                     health.failed_attempts.fetch_add(1, Ordering::Relaxed);
                     failures_since_up += 1;
                     let now = tokio::time::Instant::now();
                     if let Some(bytes) = oversize(&e) {
                         health.oversize_packets.fetch_add(1, Ordering::Relaxed);
                         warn!(broker = %target, bytes, limit = MAX_INCOMING_BYTES,
-                            "a message from the broker is over the packet limit: dropped; reconnecting with a fresh session, so the broker does not send it again (messages still in flight to the broker may be lost)");
+                            "a message from the broker is over the packet limit: dropped; reconnecting with a fresh session, so the broker does not send it again");
                         eventloop.mqtt_options.set_clean_session(true);
                         last_reminder = Some(now);
                     } else if was_up {
                         if let Some(folded) = lost_lines.admit(now.into_std()) {
-                            warn!(broker = %target, error = %describe(&e), folded, "MQTT broker lost; reconnecting with backoff (states are queued, latest kept)");
+                            warn!(broker = %target, error = %describe(&e), folded, "MQTT broker lost; reconnecting with backoff (events kept in the spool, states queued, latest kept)");
                         }
                         last_reminder = Some(now);
                     } else if last_reminder.is_none_or(|t| now.duration_since(t) >= REMIND_EVERY) {
@@ -332,56 +384,145 @@ pub async fn run(
         }
     }
 
-    // Clean shutdown: whatever is still queued, then `offline`, then
-    // DISCONNECT. The publishes await channel space that only polling frees,
-    // so both run together, bounded in time.
+    // Clean shutdown: what is queued and spooled goes out while the broker
+    // takes it (bounded in time), then `offline`, then DISCONNECT. Events
+    // not acknowledged by then stay in the spool for the next start.
     sender.abort();
+    let _ = sender.await;
     if health.connected.load(Ordering::Relaxed) {
-        let flush = async {
-            while let Some(m) = queue.try_pop() {
-                let retain = m.retain();
-                if client
-                    .publish(m.topic, QoS::AtLeastOnce, retain, m.payload)
-                    .await
-                    .is_err()
-                {
-                    break;
+        let deadline = tokio::time::Instant::now() + FLUSH_FOR;
+        let mut offline_sent = false;
+        let mut disconnected = false;
+        while tokio::time::Instant::now() < deadline {
+            let mut idle = false;
+            if !offline_sent {
+                loop {
+                    match hand(&flight, true, &client, &queue, store.as_ref(), &health) {
+                        Handed::One => {}
+                        // At shutdown backfill goes as fast as the window.
+                        Handed::Wait(_) => {
+                            flight.lock().unwrap_or_else(|e| e.into_inner()).hurry();
+                        }
+                        Handed::Nothing => {
+                            idle = true;
+                            break;
+                        }
+                        Handed::Full | Handed::Closed => break,
+                    }
                 }
             }
-            let _ = client
-                .publish(
-                    status_topic,
+            let in_window = flight.lock().unwrap_or_else(|e| e.into_inner()).in_window();
+            if idle && in_window == 0 && !offline_sent {
+                flight
+                    .lock()
+                    .unwrap_or_else(|e| e.into_inner())
+                    .status_last();
+                let _ = client.try_publish(
+                    status_topic.clone(),
                     QoS::AtLeastOnce,
                     true,
                     status_payload("offline", clock.now()),
-                )
-                .await;
-            let _ = client.disconnect().await;
-        };
-        let drain = async {
-            loop {
-                match eventloop.poll().await {
-                    Ok(Event::Outgoing(Outgoing::Disconnect)) | Err(_) => break,
-                    Ok(_) => {}
-                }
+                );
+                let _ = client.try_disconnect();
+                offline_sent = true;
             }
-        };
-        let both = async {
-            tokio::join!(flush, drain);
-        };
-        if tokio::time::timeout(Duration::from_secs(5), both)
-            .await
-            .is_err()
-        {
-            warn!("MQTT disconnect did not complete within 5 s");
-        } else {
+            match tokio::time::timeout_at(deadline, eventloop.poll()).await {
+                Ok(Ok(Event::Outgoing(Outgoing::Publish(pkid)))) => {
+                    flight
+                        .lock()
+                        .unwrap_or_else(|e| e.into_inner())
+                        .written(pkid);
+                }
+                Ok(Ok(Event::Incoming(Packet::PubAck(a)))) => {
+                    if flight
+                        .lock()
+                        .unwrap_or_else(|e| e.into_inner())
+                        .acked(a.pkid)
+                    {
+                        health.published.fetch_add(1, Ordering::Relaxed);
+                    }
+                }
+                Ok(Ok(Event::Outgoing(Outgoing::Disconnect))) => {
+                    disconnected = true;
+                    break;
+                }
+                Ok(Ok(_)) => {}
+                Ok(Err(_)) | Err(_) => break,
+            }
+        }
+        delete_acked(&flight, store.as_ref(), true);
+        if disconnected {
             info!("MQTT status offline published; disconnected");
+        } else {
+            warn!(
+                "MQTT disconnect did not complete within {} s",
+                FLUSH_FOR.as_secs()
+            );
         }
     } else {
+        delete_acked(&flight, store.as_ref(), true);
+        let spooled = store.as_ref().map_or(0, |s| {
+            s.lock().unwrap_or_else(|e| e.into_inner()).stats().events
+        });
         warn!(
-            queued = queue.len(),
-            "stopping while the broker is unreachable: queued states are not delivered"
+            queued_states = queue.len(),
+            spooled_events = spooled,
+            "stopping while the broker is unreachable: the queued states are not delivered; the spooled events go at the next start"
         );
     }
     health.connected.store(false, Ordering::Relaxed);
+}
+
+/// How long a clean stop waits for the broker to take what is left.
+const FLUSH_FOR: Duration = Duration::from_secs(5);
+/// The sender looks again this often even when nothing woke it.
+const IDLE_RECHECK: Duration = Duration::from_secs(1);
+
+/// The connection dropped: what the client still held of ours comes back
+/// to the link (see `flight`), so that nothing of it is sent again out of
+/// order or attributed to the wrong packet id.
+fn take_all_back(
+    eventloop: &mut rumqttc::EventLoop,
+    flight: &Mutex<Flight>,
+    queue: &Queue,
+    health: &LinkHealth,
+) {
+    let mut f = flight.lock().unwrap_or_else(|e| e.into_inner());
+    // What happened on the old connection and was not yet reported.
+    for ev in eventloop.state.events.drain(..) {
+        match ev {
+            Event::Outgoing(Outgoing::Publish(pkid)) => f.written(pkid),
+            Event::Incoming(Packet::PubAck(a)) if f.acked(a.pkid) => {
+                health.published.fetch_add(1, Ordering::Relaxed);
+            }
+            _ => {}
+        }
+    }
+    // Requests still in the client's channel join its pending list, which
+    // then goes: the subscription and `online` are made afresh at the next
+    // connection, everything else is ours to send again.
+    eventloop.clean();
+    eventloop.pending.clear();
+    eventloop.state.collision = None;
+    f.take_back(queue);
+}
+
+/// Deletes the acknowledged events from the spool when a batch is due.
+fn delete_acked(flight: &Mutex<Flight>, store: Option<&Arc<Mutex<Store>>>, force: bool) {
+    let Some(store) = store else { return };
+    let due = flight
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .acks_due(force);
+    if due.is_empty() {
+        return;
+    }
+    let res = store
+        .lock()
+        .unwrap_or_else(|e| e.into_inner())
+        .delete_acked(&due);
+    if let Err(e) = res {
+        // They stay in the spool and go again (at least once).
+        warn!(error = %e, events = due.len(), "cannot delete acknowledged events from the spool: they will be sent again");
+    }
 }

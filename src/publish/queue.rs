@@ -36,8 +36,8 @@ impl Kind {
     }
 }
 
-/// Events held at most while the broker is away; beyond, the oldest is lost
-/// and counted (a durable spool is planned).
+/// Events held at most in memory, when the local database cannot take them
+/// (see `store`); beyond, the oldest is lost and counted.
 pub const MAX_EVENTS: usize = 10_000;
 
 #[derive(Debug, Clone, PartialEq)]
@@ -45,6 +45,10 @@ pub struct Message {
     pub topic: String,
     pub payload: Vec<u8>,
     pub kind: Kind,
+    /// The spool's sequence number of the last event the monitor gave
+    /// before this message (0: none): the link sends that event first, so
+    /// the monitor's order holds across the queue and the spool.
+    pub after: i64,
 }
 
 impl Message {
@@ -145,6 +149,42 @@ impl Queue {
         }
     }
 
+    /// The `after` of the message that would be taken next.
+    pub fn head_after(&self) -> Option<i64> {
+        self.inner
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .front()
+            .map(|m| m.after)
+    }
+
+    /// Puts back a message the link handed out but could not deliver (the
+    /// connection dropped before its PUBACK): at the head, so order holds,
+    /// unless a newer message for the same retained topic is already
+    /// queued (latest wins).
+    pub fn requeue(&self, msg: Message) {
+        {
+            let mut q = self.inner.lock().unwrap_or_else(|e| e.into_inner());
+            if msg.kind.coalesced() && q.iter().any(|m| m.topic == msg.topic) {
+                self.counters.coalesced.fetch_add(1, Ordering::Relaxed);
+                return;
+            }
+            q.push_front(msg);
+        }
+        self.notify.notify_one();
+    }
+
+    /// Wakes the link's sender: something else it sends from (the spool)
+    /// has news, or room opened in its window.
+    pub fn wake(&self) {
+        self.notify.notify_one();
+    }
+
+    /// What [`wake`](Self::wake) and [`push`](Self::push) signal.
+    pub fn notified(&self) -> tokio::sync::futures::Notified<'_> {
+        self.notify.notified()
+    }
+
     pub fn try_pop(&self) -> Option<Message> {
         self.inner
             .lock()
@@ -170,6 +210,7 @@ mod tests {
             topic: topic.into(),
             payload: vec![n],
             kind,
+            after: 0,
         }
     }
 
@@ -196,6 +237,18 @@ mod tests {
             .map(|m| m.topic)
             .collect();
         assert_eq!(topics, ["status", "z/b", "z/c"]);
+    }
+
+    #[test]
+    fn a_requeued_state_yields_to_a_newer_one_and_an_event_goes_first() {
+        let q = Queue::new(8);
+        q.push(msg("z/a", Kind::ZoneState, 2));
+        q.requeue(msg("z/a", Kind::ZoneState, 1));
+        q.requeue(msg("events", Kind::Event, 7));
+        let got: Vec<_> = std::iter::from_fn(|| q.try_pop())
+            .map(|m| (m.topic, m.payload[0]))
+            .collect();
+        assert_eq!(got, [("events".to_string(), 7), ("z/a".to_string(), 2)]);
     }
 
     #[test]

@@ -44,6 +44,7 @@ pub fn message(root: &str, out: &Output) -> Option<Result<Message, serde_json::E
         topic,
         payload,
         kind,
+        after: 0,
     }))
 }
 
@@ -58,6 +59,7 @@ pub fn messages(
             topic: format!("{root}/events"),
             payload,
             kind: Kind::Event,
+            after: 0,
         })),
         _ => None,
     };

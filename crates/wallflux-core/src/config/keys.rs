@@ -57,6 +57,12 @@ pub(super) const COMMANDS: &[(&str, Sub)] = &[
     ("max_command_age_s", Leaf),
 ];
 
+pub(super) const STORE: &[(&str, Sub)] = &[
+    ("spool_max_mb", Leaf),
+    ("spool_max_age_h", Leaf),
+    ("history_days", Leaf),
+];
+
 pub(super) const SOURCE: &[(&str, Sub)] = &[
     ("name", Leaf),
     ("kind", Leaf),
@@ -166,6 +172,7 @@ pub(super) const ROOT: &[(&str, Sub)] = &[
     ("mqtt", Table(MQTT)),
     ("log", Table(LOG)),
     ("commands", Table(COMMANDS)),
+    ("store", Table(STORE)),
     ("source", Items(SOURCE)),
     ("channel", Items(CHANNEL)),
     ("material", Items(MATERIAL)),
@@ -341,6 +348,7 @@ mod tests {
         assert_eq!(names(MQTT), fields_of::<RawMqtt>());
         assert_eq!(names(LOG), fields_of::<RawLog>());
         assert_eq!(names(COMMANDS), fields_of::<RawCommands>());
+        assert_eq!(names(STORE), fields_of::<RawStore>());
         assert_eq!(names(SOURCE), fields_of::<RawSource>());
         assert_eq!(names(CHANNEL), fields_of::<RawChannel>());
         assert_eq!(names(MATERIAL), fields_of::<RawMaterial>());

@@ -48,6 +48,7 @@ pub struct Settings {
     pub mqtt: MqttSettings,
     pub log: LogSettings,
     pub commands: CommandSettings,
+    pub store: StoreSettings,
     pub sources: IdVec<SourceId, Source>,
     pub channels: IdVec<ChannelId, Channel>,
     pub materials: Vec<NamedMaterial>,
@@ -268,6 +269,37 @@ pub struct CommandSettings {
     pub max_shelve_min: f64,
     /// The oldest command applied (and the furthest ahead), s.
     pub max_age_s: f64,
+}
+
+/// `[store]`: the local database in the state directory, which holds the
+/// events not yet acknowledged by the broker (the spool) and the history.
+#[derive(Debug, Clone, PartialEq)]
+pub struct StoreSettings {
+    /// The most the spool of unsent events may hold, MB.
+    pub spool_max_mb: f64,
+    /// The oldest unsent event kept, hours.
+    pub spool_max_age_h: f64,
+    /// How long zone states, kiln states and events stay in the history,
+    /// days.
+    pub history_days: f64,
+}
+
+/// Default of `[store] spool_max_mb`.
+pub const DEFAULT_SPOOL_MAX_MB: f64 = 64.0;
+/// Default of `[store] spool_max_age_h`: a fortnight, longer than a plant
+/// network is usually left broken.
+pub const DEFAULT_SPOOL_MAX_AGE_H: f64 = 336.0;
+/// Default of `[store] history_days`: a quarter of a year.
+pub const DEFAULT_HISTORY_DAYS: f64 = 90.0;
+
+impl Default for StoreSettings {
+    fn default() -> Self {
+        StoreSettings {
+            spool_max_mb: DEFAULT_SPOOL_MAX_MB,
+            spool_max_age_h: DEFAULT_SPOOL_MAX_AGE_H,
+            history_days: DEFAULT_HISTORY_DAYS,
+        }
+    }
 }
 
 /// Name of the built-in alarm on the state directory.

@@ -19,6 +19,8 @@ pub struct RawConfig {
     #[serde(default)]
     pub commands: Option<S<RawCommands>>,
     #[serde(default)]
+    pub store: Option<S<RawStore>>,
+    #[serde(default)]
     pub source: Vec<S<RawSource>>,
     #[serde(default)]
     pub channel: Vec<S<RawChannel>>,
@@ -91,6 +93,13 @@ pub struct RawCommands {
     pub allowed_by: Option<S<Vec<S<String>>>>,
     pub max_shelve_min: Option<S<f64>>,
     pub max_command_age_s: Option<S<f64>>,
+}
+
+#[derive(Debug, Deserialize)]
+pub struct RawStore {
+    pub spool_max_mb: Option<S<f64>>,
+    pub spool_max_age_h: Option<S<f64>>,
+    pub history_days: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]

@@ -291,6 +291,33 @@ impl Validator<'_> {
         out
     }
 
+    /// `[store]`: the spool's bounds and the history's length.
+    fn store(&mut self, c: &RawStore) -> StoreSettings {
+        let mut out = StoreSettings::default();
+        if let Some(v) = &c.spool_max_mb {
+            out.spool_max_mb = self.positive_up_to(v, "store.spool_max_mb", 65_536.0, "MB");
+            if out.spool_max_mb < 0.1 {
+                self.problem(v.span(), "store.spool_max_mb", "must be at least 0.1 MB");
+            }
+        }
+        if let Some(v) = &c.spool_max_age_h {
+            out.spool_max_age_h =
+                self.positive_up_to(v, "store.spool_max_age_h", 24.0 * 366.0, "hours");
+        }
+        if let Some(v) = &c.history_days {
+            let d = *v.get_ref();
+            if !(d.is_finite() && (0.0..=3660.0).contains(&d)) {
+                self.problem(
+                    v.span(),
+                    "store.history_days",
+                    format!("must be 0 (no history) to 3660 days, got {}", num(d)),
+                );
+            }
+            out.history_days = d;
+        }
+        out
+    }
+
     fn word<T: Word>(&mut self, s: &Spanned<String>, path: &str, what: &str, default: T) -> T {
         T::from_word(s.get_ref()).unwrap_or_else(|| {
             let message = format!("{:?} is not {what}; use {}", s.get_ref(), T::word_choices());
@@ -512,6 +539,10 @@ impl Validator<'_> {
             Some(c) => self.commands(c.get_ref()),
             None => CommandSettings::default(),
         };
+        let store = match &raw.store {
+            Some(c) => self.store(c.get_ref()),
+            None => StoreSettings::default(),
+        };
 
         let mut sources: IdVec<SourceId, Source> = raw
             .source
@@ -717,6 +748,7 @@ impl Validator<'_> {
             mqtt,
             log,
             commands,
+            store,
             sources,
             channels,
             materials,

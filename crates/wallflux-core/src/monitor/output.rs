@@ -297,6 +297,8 @@ pub struct SourceStatus {
 /// The MQTT link's and hand-over queue's counters, filled in by the edge.
 #[derive(Debug, Clone, Default, PartialEq, Serialize)]
 pub struct LinkStatus {
+    /// Events sent late, from the spool (`"backfill": true`).
+    pub backfilled: u64,
     pub coalesced: u64,
     pub commands_dropped: u64,
     pub commands_retained: u64,
@@ -308,6 +310,16 @@ pub struct LinkStatus {
     pub oversize_packets: u64,
     pub published: u64,
     pub queued: u64,
+    /// The spool's estimated size, bytes.
+    pub spool_bytes: u64,
+    /// Events the spool's bounds pushed out since start (each announced).
+    pub spool_dropped: u64,
+    /// Events in the spool, not yet acknowledged by the broker.
+    pub spool_events: u64,
+    /// The time of the oldest of them.
+    pub spool_oldest: Option<Timestamp>,
+    /// The local database works (else events wait in memory only).
+    pub store_ok: bool,
 }
 
 /// The service status (`wallflux.status/1`). Fields in alphabetical order
@@ -467,7 +479,9 @@ mod tests {
             "mqtt": {"connections": 1, "failed_attempts": 0, "published": 40,
                 "queued": 3, "coalesced": 0, "dropped_zone_states": 0,
                 "dropped_channels": 0, "lost_events": 0, "commands_dropped": 0,
-                "commands_retained": 0, "oversize_packets": 0},
+                "commands_retained": 0, "oversize_packets": 0, "backfilled": 0,
+                "spool_bytes": 0, "spool_dropped": 0, "spool_events": 0,
+                "spool_oldest": null, "store_ok": false},
             "unknown_inputs": 5,
         });
         assert_eq!(
