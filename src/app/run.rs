@@ -30,6 +30,7 @@ use crate::publish::log::Logger;
 use crate::publish::mqtt::{self, LinkHealth};
 use crate::publish::queue::Queue;
 use crate::publish::route;
+use crate::publish::tls;
 
 /// Something that wants to see every zone report (the demo's terminal view).
 pub type Observer = Box<dyn FnMut(&ZoneReport) + Send>;
@@ -89,9 +90,14 @@ pub async fn run_recording(
         Some(c) => Some(mqtt::read_password(&c.password)?),
         None => None,
     };
+    let tls = match &settings.mqtt.tls {
+        Some(t) => Some(tls::client_config(t, &settings.mqtt.host)?),
+        None => None,
+    };
     let broker = mqtt::BrokerAccess {
         cfg: settings.mqtt.clone(),
         password,
+        tls,
     };
     let mqtt_task = tokio::spawn(mqtt::run(
         broker,

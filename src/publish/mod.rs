@@ -1,9 +1,11 @@
 //! Publishing: the monitor's outputs to their sinks. `route` decides where
 //! each output goes on MQTT (one place); `queue` hands messages to the
 //! `mqtt` link without waiting on it; `log` writes the log lines, `fold`
-//! keeps repeated ones from flooding the journal.
+//! keeps repeated ones from flooding the journal; `tls` builds the link's
+//! TLS client configuration from `[mqtt.tls]`.
 pub mod fold;
 pub mod log;
 pub mod mqtt;
 pub mod queue;
 pub mod route;
+pub mod tls;

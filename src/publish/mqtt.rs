@@ -31,7 +31,7 @@ use std::time::Duration;
 use rumqttc::mqttbytes::v4::{Publish, Subscribe};
 use rumqttc::{
     AsyncClient, ConnectionError, Event, LastWill, MqttOptions, Outgoing, Packet, QoS, Request,
-    StateError,
+    StateError, TlsConfiguration, Transport,
 };
 use serde::Serialize;
 use tokio::sync::{mpsc, watch, Notify};
@@ -139,7 +139,7 @@ fn describe(e: &ConnectionError) -> String {
                 "the broker refused the connection: service unavailable".into()
             }
         },
-        e => e.to_string(),
+        e => super::tls::describe(e).unwrap_or_else(|| e.to_string()),
     }
 }
 
@@ -188,11 +188,13 @@ pub fn read_password(src: &PasswordSource) -> anyhow::Result<String> {
     Ok(password)
 }
 
-/// The broker to connect to, and the password of its account (read by
-/// [`read_password`]).
+/// The broker to connect to, the password of its account (read by
+/// [`read_password`]) and the TLS client configuration (built by
+/// [`super::tls::client_config`]; none: plain TCP).
 pub struct BrokerAccess {
     pub cfg: MqttSettings,
     pub password: Option<String>,
+    pub tls: Option<Arc<rustls::ClientConfig>>,
 }
 
 /// Runs the MQTT link until `shutdown` turns true, then flushes the queue,
@@ -206,7 +208,7 @@ pub async fn run(
     commands: mpsc::Sender<Vec<u8>>,
     mut shutdown: watch::Receiver<bool>,
 ) {
-    let BrokerAccess { cfg, password } = broker;
+    let BrokerAccess { cfg, password, tls } = broker;
     let status_topic = format!("{root}/status");
     let cmd_topic = format!("{root}/cmd");
     let mut opts = MqttOptions::new(cfg.client_id.clone(), cfg.host.clone(), cfg.port);
@@ -218,6 +220,9 @@ pub async fn run(
         opts.set_credentials(c.username.clone(), p);
     }
     opts.set_max_packet_size(MAX_INCOMING_BYTES, MAX_PACKET_BYTES);
+    if let Some(tls) = tls {
+        opts.set_transport(Transport::tls_with_config(TlsConfiguration::Rustls(tls)));
+    }
     opts.set_last_will(LastWill::new(
         status_topic.clone(),
         will_payload(),
