@@ -481,7 +481,7 @@ fn a_tls_failure_is_said_in_words() {
     stop_daemon(daemon_g);
 
     let said = "TLS: the broker's certificate is not signed by mqtt.tls.ca_file";
-    let text = log_saying(&log, said);
+    log_saying(&log, said);
     let text_d = log_saying(&log_d, "TLS: the broker's certificate is not for 127.0.0.1");
     // Neither got through: a fresh TLS client with an account does, and the
     // subscriber has seen no status of either kiln.
