@@ -11,18 +11,26 @@ use crate::config::format_problem;
 pub fn check(path: &Path, strict: bool) -> Result<(), Failure> {
     let s = super::load(path)?;
     let file = path.display().to_string();
-    let n = s.warnings.len();
+    // The configuration's own warnings, then its secret files that others
+    // can read (named, never read out).
+    let mut lines: Vec<String> = s
+        .warnings
+        .iter()
+        .map(|w| format_problem(&file, w))
+        .collect();
+    lines.extend(crate::publish::tls::secret_file_warnings(&s.mqtt));
+    let n = lines.len();
     let plural = if n == 1 { "" } else { "s" };
     if strict && n > 0 {
         let mut msg =
             format!("{file}: {n} warning{plural} in the configuration, refused with --strict");
-        for w in &s.warnings {
-            let _ = write!(msg, "\n  {}", format_problem(&file, w));
+        for w in &lines {
+            let _ = write!(msg, "\n  {w}");
         }
         return Err(Failure::usage(anyhow::anyhow!(msg)));
     }
-    for w in &s.warnings {
-        super::say(&format!("wallflux: warning: {}", format_problem(&file, w)));
+    for w in &lines {
+        super::say(&format!("wallflux: warning: {w}"));
     }
     super::write_stdout(&summary(&s, &file, n))?;
     Ok(())

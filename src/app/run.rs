@@ -30,6 +30,7 @@ use crate::publish::log::Logger;
 use crate::publish::mqtt::{self, LinkHealth, Outbound};
 use crate::publish::queue::{Kind, Message, Queue};
 use crate::publish::route;
+use crate::publish::tls;
 use crate::store::{HistoryKind, Opened, Store};
 use crate::time::Timestamp;
 
@@ -91,9 +92,14 @@ pub async fn run_recording(
         Some(c) => Some(mqtt::read_password(&c.password)?),
         None => None,
     };
+    let tls = match &settings.mqtt.tls {
+        Some(t) => Some(tls::client_config(t, &settings.mqtt.host)?),
+        None => None,
+    };
     let broker = mqtt::BrokerAccess {
         cfg: settings.mqtt.clone(),
         password,
+        tls,
     };
     // The monitor starts before any source does: every scan is stamped at
     // or after its start, as a recording of them replays. (Before the

@@ -37,7 +37,7 @@ use std::time::Duration;
 use rumqttc::mqttbytes::v4::{Publish, Subscribe};
 use rumqttc::{
     AsyncClient, ConnectionError, Event, LastWill, MqttOptions, Outgoing, Packet, QoS, Request,
-    StateError,
+    StateError, TlsConfiguration, Transport,
 };
 use serde::Serialize;
 use tokio::sync::{mpsc, watch, Notify};
@@ -150,7 +150,7 @@ fn describe(e: &ConnectionError) -> String {
                 "the broker refused the connection: service unavailable".into()
             }
         },
-        e => e.to_string(),
+        e => super::tls::describe(e).unwrap_or_else(|| e.to_string()),
     }
 }
 
@@ -208,11 +208,13 @@ pub struct Outbound {
     pub store: Option<Arc<Mutex<Store>>>,
 }
 
-/// The broker to connect to, and the password of its account (read by
-/// [`read_password`]).
+/// The broker to connect to, the password of its account (read by
+/// [`read_password`]) and the TLS client configuration (built by
+/// [`super::tls::client_config`]; none: plain TCP).
 pub struct BrokerAccess {
     pub cfg: MqttSettings,
     pub password: Option<String>,
+    pub tls: Option<Arc<rustls::ClientConfig>>,
 }
 
 /// Runs the MQTT link until `shutdown` turns true, then flushes the queue,
@@ -226,7 +228,7 @@ pub async fn run(
     commands: mpsc::Sender<Vec<u8>>,
     mut shutdown: watch::Receiver<bool>,
 ) {
-    let BrokerAccess { cfg, password } = broker;
+    let BrokerAccess { cfg, password, tls } = broker;
     let queue = outbound.queue.clone();
     let status_topic = format!("{root}/status");
     let cmd_topic = format!("{root}/cmd");
@@ -239,6 +241,9 @@ pub async fn run(
         opts.set_credentials(c.username.clone(), p);
     }
     opts.set_max_packet_size(MAX_INCOMING_BYTES, MAX_PACKET_BYTES);
+    if let Some(tls) = tls {
+        opts.set_transport(Transport::tls_with_config(TlsConfiguration::Rustls(tls)));
+    }
     opts.set_last_will(LastWill::new(
         status_topic.clone(),
         will_payload(),

@@ -14,3 +14,4 @@ mod demo;
 mod diagnostics_live;
 mod link;
 mod no_panic;
+mod tls;

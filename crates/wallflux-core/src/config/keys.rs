@@ -46,6 +46,14 @@ pub(super) const MQTT: &[(&str, Sub)] = &[
     ("password_file", Leaf),
     ("password_credential", Leaf),
     ("allow_plaintext_credentials", Leaf),
+    ("tls", Table(TLS)),
+];
+
+pub(super) const TLS: &[(&str, Sub)] = &[
+    ("ca_file", Leaf),
+    ("client_cert_file", Leaf),
+    ("client_key_file", Leaf),
+    ("server_name", Leaf),
 ];
 
 pub(super) const LOG: &[(&str, Sub)] = &[("summary_every", Leaf)];
@@ -346,6 +354,7 @@ mod tests {
         assert_eq!(names(ROOT), fields_of::<RawConfig>());
         assert_eq!(names(SITE), fields_of::<RawSite>());
         assert_eq!(names(MQTT), fields_of::<RawMqtt>());
+        assert_eq!(names(TLS), fields_of::<RawTls>());
         assert_eq!(names(LOG), fields_of::<RawLog>());
         assert_eq!(names(COMMANDS), fields_of::<RawCommands>());
         assert_eq!(names(STORE), fields_of::<RawStore>());

@@ -235,6 +235,31 @@ pub struct MqttSettings {
     pub queue_capacity: usize,
     /// The broker account, if it needs one.
     pub credentials: Option<Credentials>,
+    /// TLS to the broker (`[mqtt.tls]`); none: plain TCP.
+    pub tls: Option<TlsSettings>,
+}
+
+/// `[mqtt.tls]`: the files the edge reads at start (the core only names
+/// them) and the name the broker's certificate must carry.
+#[derive(Debug, Clone, PartialEq)]
+pub struct TlsSettings {
+    /// The plant's CA certificate(s), PEM: the only roots the broker's
+    /// certificate is checked against (a plant broker has its own CA, so
+    /// the public web roots are never trusted here).
+    pub ca_file: PathBuf,
+    /// This daemon's certificate and key, when the broker asks for one.
+    pub client: Option<ClientIdentity>,
+    /// The DNS name or IP address the broker's certificate must be for
+    /// (`server_name`, else `mqtt.host`).
+    pub server_name: String,
+}
+
+/// A client certificate (PEM, the chain from the leaf) and its private
+/// key (PEM; never printed).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ClientIdentity {
+    pub cert_file: PathBuf,
+    pub key_file: PathBuf,
 }
 
 /// A broker account: the user name, and where its password is (never the

@@ -85,6 +85,15 @@ pub struct RawMqtt {
     pub password_file: Option<S<String>>,
     pub password_credential: Option<S<String>>,
     pub allow_plaintext_credentials: Option<S<bool>>,
+    pub tls: Option<S<RawTls>>,
+}
+
+#[derive(Debug, Deserialize)]
+pub struct RawTls {
+    pub ca_file: Option<S<String>>,
+    pub client_cert_file: Option<S<String>>,
+    pub client_key_file: Option<S<String>>,
+    pub server_name: Option<S<String>>,
 }
 
 #[derive(Debug, Deserialize)]

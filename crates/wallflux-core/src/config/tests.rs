@@ -949,8 +949,8 @@ fn the_command_policy_is_read_and_checked() {
     );
 }
 
-/// `[mqtt] username` needs a password source, and over this version's
-/// plaintext link the explicit `allow_plaintext_credentials`.
+/// `[mqtt] username` needs a password source, and over a plaintext link
+/// (no `mqtt.tls`) the explicit `allow_plaintext_credentials`.
 #[test]
 fn broker_credentials_are_checked() {
     let with =
@@ -987,6 +987,12 @@ fn broker_credentials_are_checked() {
         "mqtt.username",
         "clear text",
     );
+    // The refusal names the way out that keeps the password secret.
+    refused_naming(
+        &with("username = \"wf-k3\"\npassword_file = \"/p\""),
+        "mqtt.username",
+        "set mqtt.tls",
+    );
     refused_naming(
         &with("username = \"wf-k3\"\nallow_plaintext_credentials = true"),
         "mqtt.username",
@@ -1008,5 +1014,154 @@ fn broker_credentials_are_checked() {
         ),
         "mqtt.password_credential",
         "no '/'",
+    );
+}
+
+/// `[mqtt.tls]` (a table or an inline table): `ca_file` required, the
+/// client certificate and key only together, `server_name` defaulting to
+/// `mqtt.host`, port 8883 unless given; with it a broker account needs no
+/// `allow_plaintext_credentials` (and that key, given, is a warning).
+#[test]
+fn mqtt_tls_is_read_and_checked() {
+    let with =
+        |keys: &str| EXAMPLE.replace("keep_alive_s = 30", &format!("keep_alive_s = 30\n{keys}"));
+    let inline = parse(
+        &with("tls = { ca_file = \"/etc/wallflux/plant-ca.pem\" }"),
+        "t.toml",
+        None,
+    )
+    .unwrap();
+    assert_eq!(
+        inline.mqtt.tls,
+        Some(TlsSettings {
+            ca_file: "/etc/wallflux/plant-ca.pem".into(),
+            client: None,
+            server_name: "127.0.0.1".into(),
+        })
+    );
+    // The example gives `port = 1883`, which stays: only an absent port
+    // becomes the TLS port.
+    assert_eq!(inline.mqtt.port, 1883);
+    let no_port = EXAMPLE.replace("port = 1883\n", "");
+    assert_eq!(parse(&no_port, "t.toml", None).unwrap().mqtt.port, 1883);
+    let tls_no_port = no_port.replace(
+        "keep_alive_s = 30",
+        "keep_alive_s = 30\ntls = { ca_file = \"/ca.pem\" }",
+    );
+    assert_eq!(parse(&tls_no_port, "t.toml", None).unwrap().mqtt.port, 8883);
+
+    // `[mqtt.tls]` as a table of its own, after everything else of [mqtt].
+    let table = EXAMPLE.replacen(
+        "\n[[source]]",
+        "\n[mqtt.tls]\nca_file = \"/ca.pem\"\nclient_cert_file = \"/kiln-3.crt\"\nclient_key_file = \"/kiln-3.key\"\nserver_name = \"broker.plant.example\"\n\n[[source]]",
+        1,
+    );
+    assert_ne!(
+        table, EXAMPLE,
+        "the example has a [[source]] to insert before"
+    );
+    let t = parse(&table, "t.toml", None).unwrap().mqtt.tls.unwrap();
+    assert_eq!(
+        t.client,
+        Some(ClientIdentity {
+            cert_file: "/kiln-3.crt".into(),
+            key_file: "/kiln-3.key".into(),
+        })
+    );
+    assert_eq!(t.server_name, "broker.plant.example");
+    assert_eq!(t.ca_file, std::path::PathBuf::from("/ca.pem"));
+
+    refused_naming(
+        &with("tls = { }"),
+        "mqtt.tls.ca_file",
+        "plant broker has its own CA",
+    );
+    refused_naming(
+        &with("tls = { server_name = \"broker\" }"),
+        "mqtt.tls.ca_file",
+        "is required",
+    );
+    refused_naming(
+        &with("tls = { ca_file = \"\" }"),
+        "mqtt.tls.ca_file",
+        "empty",
+    );
+    refused_naming(
+        &with("tls = { ca_file = \"/ca.pem\", client_cert_file = \"/c.crt\" }"),
+        "mqtt.tls.client_key_file",
+        "needs client_key_file",
+    );
+    refused_naming(
+        &with("tls = { ca_file = \"/ca.pem\", client_key_file = \"/c.key\" }"),
+        "mqtt.tls.client_cert_file",
+        "needs client_cert_file",
+    );
+    for bad in [
+        "*.plant.example",
+        "broker name",
+        "-broker",
+        "10.0.0.300",
+        "",
+    ] {
+        refused_naming(
+            &with(&format!(
+                "tls = {{ ca_file = \"/ca.pem\", server_name = \"{bad}\" }}"
+            )),
+            "mqtt.tls.server_name",
+            "neither a DNS name nor an IP address",
+        );
+    }
+    for good in [
+        "broker",
+        "broker.plant.example",
+        "10.0.0.30",
+        "fd00::30",
+        "mqtt_1.plant",
+    ] {
+        let s = parse(
+            &with(&format!(
+                "tls = {{ ca_file = \"/ca.pem\", server_name = \"{good}\" }}"
+            )),
+            "t.toml",
+            None,
+        )
+        .unwrap_or_else(|e| panic!("{good} refused: {e}"));
+        assert_eq!(s.mqtt.tls.unwrap().server_name, good);
+    }
+    refused_naming(
+        &EXAMPLE
+            .replace("host = \"127.0.0.1\"", "host = \"kiln broker\"")
+            .replace(
+                "keep_alive_s = 30",
+                "keep_alive_s = 30\ntls = { ca_file = \"/ca.pem\" }",
+            ),
+        "mqtt.host",
+        "which TLS needs",
+    );
+    refused_naming(
+        &with("tls = { ca_file = \"/ca.pem\", cafile = \"/x\" }"),
+        "mqtt.tls.cafile",
+        "did you mean `ca_file`?",
+    );
+
+    // A broker account over TLS: no plaintext permission needed.
+    let account = parse(
+        &with("username = \"wf-k3\"\npassword_file = \"/p\"\ntls = { ca_file = \"/ca.pem\" }"),
+        "t.toml",
+        None,
+    )
+    .unwrap();
+    assert_eq!(account.mqtt.credentials.unwrap().username, "wf-k3");
+    assert!(account.warnings.is_empty(), "{:#?}", account.warnings);
+    let text = with(
+        "username = \"wf-k3\"\npassword_file = \"/p\"\nallow_plaintext_credentials = true\ntls = { ca_file = \"/ca.pem\" }",
+    );
+    let w = warnings(&text);
+    assert!(
+        w.iter()
+            .any(|p| p.path == "mqtt.allow_plaintext_credentials"
+                && p.line == line_in(&text, "allow_plaintext_credentials")
+                && p.message.contains("no effect")),
+        "{w:#?}"
     );
 }

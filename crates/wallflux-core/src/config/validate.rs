@@ -19,6 +19,27 @@ use crate::monitor::command::Action;
 use crate::physics::material::{Material, Property, MAX_POLYNOMIAL_TERMS};
 use crate::protocol::line::MAX_INPUT;
 
+/// A DNS name (labels of letters, digits, `-` and `_`, none starting or
+/// ending with `-`, at most 253 characters; no wildcard) or an IP address:
+/// what a TLS client can check a certificate against.
+fn is_server_name(s: &str) -> bool {
+    if s.parse::<std::net::IpAddr>().is_ok() {
+        return true;
+    }
+    let name = s.strip_suffix('.').unwrap_or(s);
+    !name.is_empty()
+        && name.len() <= 253
+        && name.split('.').all(|l| {
+            (1..=63).contains(&l.len())
+                && !l.starts_with('-')
+                && !l.ends_with('-')
+                && l.chars()
+                    .all(|c| c.is_ascii_alphanumeric() || c == '-' || c == '_')
+        })
+        // All digits and dots is a mistyped address, not a name.
+        && !name.split('.').all(|l| l.chars().all(|c| c.is_ascii_digit()))
+}
+
 /// A built-in alarm (no baseline; its operator texts given).
 fn builtin(
     name: String,
@@ -1213,6 +1234,9 @@ impl Validator<'_> {
         if host.is_empty() {
             self.problem(m.host.span(), "mqtt.host", "must not be empty");
         }
+        let tls = m.tls.as_ref().and_then(|t| self.tls(t, m, &host));
+        // The IANA ports of MQTT and of MQTT over TLS.
+        let default_port = if m.tls.is_some() { 8883 } else { 1883 };
         let port = match &m.port {
             Some(p) if (1..=65535).contains(p.get_ref()) => *p.get_ref() as u16,
             Some(p) => {
@@ -1221,9 +1245,9 @@ impl Validator<'_> {
                     "mqtt.port",
                     format!("must be 1 to 65535, got {}", p.get_ref()),
                 );
-                1883
+                default_port
             }
-            None => 1883,
+            None => default_port,
         };
         let client_id = match &m.client_id {
             Some(c) => {
@@ -1288,7 +1312,87 @@ impl Validator<'_> {
             keep_alive_s,
             queue_capacity,
             credentials,
+            tls,
         }
+    }
+
+    /// `[mqtt.tls]`: `ca_file` required (a plant broker has its own CA,
+    /// and trusting every public root would let any certificate bought
+    /// for the name pass); the client certificate and key together;
+    /// `server_name` (default `mqtt.host`) a DNS name or an IP address.
+    /// The files are only named here: the edge reads them at start.
+    fn tls(&mut self, t: &Spanned<RawTls>, m: &RawMqtt, host: &str) -> Option<TlsSettings> {
+        let mut file = |v: &Option<Spanned<String>>, key: &str| -> Option<PathBuf> {
+            let f = v.as_ref()?;
+            if f.get_ref().trim().is_empty() {
+                self.problem(f.span(), format!("mqtt.tls.{key}"), "must not be empty");
+                return None;
+            }
+            Some(PathBuf::from(f.get_ref()))
+        };
+        let ca_file = file(&t.get_ref().ca_file, "ca_file");
+        let cert_file = file(&t.get_ref().client_cert_file, "client_cert_file");
+        let key_file = file(&t.get_ref().client_key_file, "client_key_file");
+        let r = t.get_ref();
+        if r.ca_file.is_none() {
+            self.problem(
+                t.span(),
+                "mqtt.tls.ca_file",
+                "is required: the file (PEM) of the CA that signed the broker's certificate; a plant broker has its own CA, and the public web CAs are not trusted here",
+            );
+        }
+        let client = match (&r.client_cert_file, &r.client_key_file) {
+            (Some(_), None) => {
+                self.problem(
+                    t.span(),
+                    "mqtt.tls.client_key_file",
+                    "client_cert_file needs client_key_file (the private key of that certificate)",
+                );
+                None
+            }
+            (None, Some(_)) => {
+                self.problem(
+                    t.span(),
+                    "mqtt.tls.client_cert_file",
+                    "client_key_file needs client_cert_file (the certificate of that key)",
+                );
+                None
+            }
+            _ => cert_file
+                .zip(key_file)
+                .map(|(cert_file, key_file)| ClientIdentity {
+                    cert_file,
+                    key_file,
+                }),
+        };
+        let server_name = match &r.server_name {
+            Some(n) => {
+                let v = n.get_ref().trim();
+                if !is_server_name(v) {
+                    self.problem(
+                        n.span(),
+                        "mqtt.tls.server_name",
+                        format!("{v:?} is neither a DNS name nor an IP address (the name the broker's certificate is for)"),
+                    );
+                }
+                v.to_string()
+            }
+            None => host.to_string(),
+        };
+        // The client connects to, and names, `host` as TLS wants it even
+        // when the certificate is checked against `server_name`.
+        if !host.is_empty() && !is_server_name(host) {
+            self.problem(
+                m.host.span(),
+                "mqtt.host",
+                format!("{host:?} is neither a DNS name nor an IP address, which TLS needs"),
+            );
+        }
+        Some(TlsSettings {
+            ca_file: ca_file?,
+            client,
+            server_name,
+        })
     }
 
     /// `username` with exactly one of `password_file` and
@@ -1347,16 +1451,22 @@ impl Validator<'_> {
             );
             return None;
         };
-        if !m
+        let allowed = m
             .allow_plaintext_credentials
             .as_ref()
-            .is_some_and(|a| *a.get_ref())
-        {
-            self.problem(
+            .filter(|a| *a.get_ref());
+        match (&m.tls, allowed) {
+            (None, None) => self.problem(
                 user.span(),
                 "mqtt.username",
-                "the password would cross the network in clear text (this version has no TLS yet): set allow_plaintext_credentials = true only where the link is trusted (loopback, an isolated segment)",
-            );
+                "the password would cross the network in clear text: set mqtt.tls (the broker's TLS listener), or allow_plaintext_credentials = true only where the link is trusted (loopback, an isolated segment)",
+            ),
+            (Some(_), Some(a)) => self.warning(
+                a.span(),
+                "mqtt.allow_plaintext_credentials",
+                "has no effect: with mqtt.tls the password crosses the network encrypted",
+            ),
+            _ => {}
         }
         Some(Credentials {
             username: username.clone(),
