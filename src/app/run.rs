@@ -494,16 +494,18 @@ impl Engine {
                     s.record(*kind, zone.as_deref(), *t, payload)?;
                 }
                 if let Some(d) = s.enforce_bounds(self.clock.now())? {
-                    let notice = spool_notice(&d, self.clock.now());
-                    s.spool(
-                        self.clock.now(),
-                        &format!("{}/events", self.root),
-                        &notice,
-                        offline,
-                    )?;
-                    s.record(HistoryKind::Event, None, self.clock.now(), &notice)?;
                     warn!(dropped = d.count, bytes = d.bytes, first = %d.first.rfc3339(), last = %d.last.rfc3339(), bound = d.bound,
                         "spool full: the oldest unsent events dropped (they stay in the history; `wallflux export --kind event` recovers them)");
+                }
+                // Announced once the broker is back: one notice for all the
+                // drops of an outage (it goes after the events kept).
+                if !offline {
+                    if let Some(d) = s.take_dropped()? {
+                        let now = self.clock.now();
+                        let notice = spool_notice(&d, now);
+                        s.spool(now, &format!("{}/events", self.root), &notice, false)?;
+                        s.record(HistoryKind::Event, None, now, &notice)?;
+                    }
                 }
                 s.commit()
             };

@@ -60,6 +60,14 @@ CREATE TABLE IF NOT EXISTS history (
     payload BLOB NOT NULL
 );
 CREATE INDEX IF NOT EXISTS history_by_time ON history (time_ms);
+CREATE TABLE IF NOT EXISTS dropped (
+    id INTEGER PRIMARY KEY CHECK (id = 1),
+    count INTEGER NOT NULL,
+    bytes INTEGER NOT NULL,
+    first_ms INTEGER NOT NULL,
+    last_ms INTEGER NOT NULL,
+    bound TEXT NOT NULL
+);
 ";
 
 /// How many bytes a row costs beyond its payload (SQLite's record header,
@@ -421,8 +429,49 @@ impl Store {
         Ok(())
     }
 
+    /// The events dropped since the last announcement (kept in the
+    /// database, so a kill does not lose the count), taken to be announced
+    /// now (in the open transaction).
+    pub fn take_dropped(&mut self) -> rusqlite::Result<Option<Dropped>> {
+        let row = self
+            .conn
+            .query_row(
+                "SELECT count, bytes, first_ms, last_ms, bound FROM dropped WHERE id = 1",
+                [],
+                |r| {
+                    Ok((
+                        r.get::<_, i64>(0)?,
+                        r.get::<_, i64>(1)?,
+                        r.get::<_, i64>(2)?,
+                        r.get::<_, i64>(3)?,
+                        r.get::<_, String>(4)?,
+                    ))
+                },
+            )
+            .optional()?;
+        let Some((count, bytes, first, last, bound)) = row else {
+            return Ok(None);
+        };
+        self.begin()?;
+        self.conn.execute("DELETE FROM dropped", [])?;
+        Ok(Some(Dropped {
+            count: count as u64,
+            bytes: bytes as u64,
+            first: from_ms(first),
+            last: from_ms(last),
+            bound: if bound == "spool_max_age_h" {
+                "spool_max_age_h"
+            } else {
+                "spool_max_mb"
+            },
+        }))
+    }
+
     /// Drops the oldest events while the spool is over a bound (in the open
-    /// transaction); what went, if anything. The caller announces it.
+    /// transaction); what went, if anything (for the log). The drops also
+    /// add up in the database until [`take_dropped`](Self::take_dropped)
+    /// takes them to be announced: one notice per outage, not one per
+    /// event.
     pub fn enforce_bounds(&mut self, now: Timestamp) -> rusqlite::Result<Option<Dropped>> {
         let max_bytes = (self.limits.spool_max_mb * 1e6) as u64;
         let min_ms = ms(now) - (self.limits.spool_max_age_h * 3.6e6) as i64;
@@ -463,6 +512,14 @@ impl Store {
             self.oldest_ms = self
                 .conn
                 .query_row("SELECT min(time_ms) FROM outbox", [], |r| r.get(0))?;
+        }
+        if let Some(d) = &out {
+            self.conn.execute(
+                "INSERT INTO dropped (id, count, bytes, first_ms, last_ms, bound) VALUES (1, ?1, ?2, ?3, ?4, ?5)
+                 ON CONFLICT (id) DO UPDATE SET count = count + ?1, bytes = bytes + ?2,
+                    first_ms = min(first_ms, ?3), last_ms = max(last_ms, ?4), bound = ?5",
+                params![d.count as i64, d.bytes as i64, ms(d.first), ms(d.last), d.bound],
+            )?;
         }
         Ok(out)
     }
@@ -586,6 +643,22 @@ mod tests {
         assert_eq!(dropped.last, t("2026-05-01T10:00:10Z"));
         assert_eq!(kept.oldest, Some(t("2026-05-01T10:00:11Z")));
         assert_eq!(kept.dropped, 11);
+        // A second drop adds up with the first until announced.
+        s.spool(t("2026-05-01T10:00:30Z"), "r/events", &payload, true)
+            .unwrap();
+        assert_eq!(
+            s.enforce_bounds(t("2026-05-01T10:01:00Z"))
+                .unwrap()
+                .unwrap()
+                .count,
+            1
+        );
+        let all = s.take_dropped().unwrap().unwrap();
+        assert_eq!(
+            (all.count, all.first, all.last),
+            (12, t("2026-05-01T10:00:00Z"), t("2026-05-01T10:00:11Z"))
+        );
+        assert_eq!(s.take_dropped().unwrap(), None);
     }
 
     #[test]

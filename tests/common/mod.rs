@@ -3,6 +3,7 @@
 
 pub mod feeder;
 pub mod mqtt;
+pub mod proxy;
 
 use std::path::PathBuf;
 use std::process::{Child, Command, Output, Stdio};

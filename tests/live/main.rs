@@ -14,4 +14,5 @@ mod demo;
 mod diagnostics_live;
 mod link;
 mod no_panic;
+mod spool;
 mod tls;

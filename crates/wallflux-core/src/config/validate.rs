@@ -317,8 +317,8 @@ impl Validator<'_> {
         let mut out = StoreSettings::default();
         if let Some(v) = &c.spool_max_mb {
             out.spool_max_mb = self.positive_up_to(v, "store.spool_max_mb", 65_536.0, "MB");
-            if out.spool_max_mb < 0.1 {
-                self.problem(v.span(), "store.spool_max_mb", "must be at least 0.1 MB");
+            if out.spool_max_mb < 0.01 {
+                self.problem(v.span(), "store.spool_max_mb", "must be at least 0.01 MB");
             }
         }
         if let Some(v) = &c.spool_max_age_h {
