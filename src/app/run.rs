@@ -56,7 +56,10 @@ const RECHECK: Duration = Duration::from_millis(5);
 /// must be handled first, as a replay of the stamps would.
 const IN_FLIGHT: Duration = Duration::from_millis(2);
 
-/// File of the energy totals in the state directory.
+/// Name of the energy totals in the local database's state.
+const ENERGY_STATE: &str = "energy";
+/// File of the energy totals in the state directory (when the local
+/// database cannot be used).
 pub const ENERGY_FILE: &str = "energy.json";
 /// File of the alarm flags in the state directory.
 pub const ALARMS_FILE: &str = "alarms.json";
@@ -114,6 +117,7 @@ pub async fn run_recording(
     let store =
         open_store(&settings, clock.speed() <= 1.0).map(|s| Arc::new(std::sync::Mutex::new(s)));
     engine.store = store.clone();
+    engine.restore_energy_from_store();
     if store.is_none() {
         // Said by the state-not-saved alarm too.
         engine.persisted(false);
@@ -284,6 +288,8 @@ struct Engine {
     logger: Logger,
     /// The last energy save failed (said once in the log).
     energy_unsaved: bool,
+    /// No `energy.json` is left to compete with the database's books.
+    energy_file_gone: bool,
     clock: Clock,
 }
 
@@ -333,6 +339,7 @@ impl Engine {
             recorder: None,
             logger: Logger::default(),
             energy_unsaved: false,
+            energy_file_gone: false,
             clock,
         }
     }
@@ -425,11 +432,15 @@ impl Engine {
                 }
             }
         }
+        if energy_booked && self.store.is_some() {
+            // Every round of zone cycles, with the round: a kill loses at
+            // most one interval.
+            round.energy = serde_json::to_vec(self.monitor.energy_totals()).ok();
+        }
         if !round.is_empty() {
             self.write_round(round, !link.connected.load(Ordering::Relaxed));
         }
-        if energy_booked {
-            // Every round of zone cycles: a kill loses at most one interval.
+        if energy_booked && self.store.is_none() {
             self.save_energy_totals();
         }
         if alarms_changed && self.monitor.alarms_mut().take_dirty() {
@@ -493,6 +504,9 @@ impl Engine {
                 for (kind, zone, t, payload) in &round.history {
                     s.record(*kind, zone.as_deref(), *t, payload)?;
                 }
+                if let Some(e) = &round.energy {
+                    s.put_state(ENERGY_STATE, self.clock.now(), e)?;
+                }
                 if let Some(d) = s.enforce_bounds(self.clock.now())? {
                     warn!(dropped = d.count, bytes = d.bytes, first = %d.first.rfc3339(), last = %d.last.rfc3339(), bound = d.bound,
                         "spool full: the oldest unsent events dropped (they stay in the history; `wallflux export --kind event` recovers them)");
@@ -525,6 +539,9 @@ impl Engine {
                     );
                 }
                 self.persisted(true);
+                if round.energy.is_some() {
+                    self.energy_saved_in_store();
+                }
                 for (_, m) in states {
                     self.queue.push(m);
                 }
@@ -536,6 +553,10 @@ impl Engine {
                     warn!(file = crate::store::STORE_FILE, error = %e, "cannot write to the local database: events wait in memory until it works again (lost at a restart); this is said once");
                 }
                 self.persisted(false);
+                if round.energy.is_some() {
+                    // The file, then, if it can be written.
+                    self.save_energy_file();
+                }
                 for (_, m) in states.iter_mut() {
                     m.after = 0;
                 }
@@ -627,9 +648,85 @@ impl Engine {
         self.monitor.handle_persistence(saved, now);
     }
 
-    /// The energy totals; a failure is logged once until a save succeeds
-    /// again (it is tried every interval).
+    /// The energy totals: in the database, else in `energy.json`.
     fn save_energy_totals(&mut self) {
+        if self.store.is_some() {
+            let round = Round {
+                energy: serde_json::to_vec(self.monitor.energy_totals()).ok(),
+                ..Round::default()
+            };
+            self.write_round(round, false);
+        } else {
+            self.save_energy_file();
+        }
+    }
+
+    /// The energy books are in the database: an `energy.json` left from a
+    /// run without it (or an older version) would only compete at the next
+    /// start, so it goes.
+    fn energy_saved_in_store(&mut self) {
+        self.energy_unsaved = false;
+        if !self.energy_file_gone {
+            let path = self.settings.state_dir.join(ENERGY_FILE);
+            match std::fs::remove_file(&path) {
+                Ok(()) => {
+                    info!(file = %path.display(), "energy totals now kept in the local database; the file is removed")
+                }
+                Err(e) if e.kind() == std::io::ErrorKind::NotFound => {}
+                Err(e) => {
+                    warn!(file = %path.display(), error = %e, "cannot remove the old energy file")
+                }
+            }
+            self.energy_file_gone = true;
+        }
+    }
+
+    /// Restores the energy books from the database, unless `energy.json`
+    /// exists (written when the database could not take them, so newer).
+    fn restore_energy_from_store(&mut self) {
+        let Some(store) = self.store.clone() else {
+            return;
+        };
+        if self.settings.state_dir.join(ENERGY_FILE).exists() {
+            return;
+        }
+        let json = store
+            .lock()
+            .unwrap_or_else(|e| e.into_inner())
+            .get_state(ENERGY_STATE);
+        let json = match json {
+            Ok(Some(j)) => j,
+            Ok(None) => return,
+            Err(e) => {
+                warn!(error = %e, "cannot read the energy totals from the local database: starting afresh");
+                return;
+            }
+        };
+        let mut totals = match serde_json::from_slice::<EnergyTotals>(&json) {
+            Ok(t) => t,
+            Err(e) => {
+                warn!(error = %e, "energy totals in the local database unreadable: starting afresh");
+                return;
+            }
+        };
+        if let Err(why) = totals.check() {
+            warn!(
+                error = why,
+                "energy totals in the local database are nonsense: starting afresh"
+            );
+            return;
+        }
+        if let Some(note) = totals.upgrade() {
+            info!(file = crate::store::STORE_FILE, "{note}");
+        }
+        info!(file = crate::store::STORE_FILE, "energy totals restored");
+        self.monitor.restore_energy(totals);
+        self.energy_file_gone = true;
+    }
+
+    /// The energy totals to `energy.json`; a failure is logged once until
+    /// a save succeeds again (it is tried every interval).
+    fn save_energy_file(&mut self) {
         let saved = state::save(
             &self.settings.state_dir,
             ENERGY_FILE,
@@ -683,11 +780,16 @@ struct Round {
     states: Vec<(usize, Message)>,
     /// Zone states, kiln states and events for the history.
     history: Vec<(HistoryKind, Option<String>, Timestamp, Vec<u8>)>,
+    /// The energy books, when the round booked energy.
+    energy: Option<Vec<u8>>,
 }
 
 impl Round {
     fn is_empty(&self) -> bool {
-        self.events.is_empty() && self.history.is_empty() && self.states.is_empty()
+        self.events.is_empty()
+            && self.history.is_empty()
+            && self.states.is_empty()
+            && self.energy.is_none()
     }
 }
 

@@ -60,6 +60,11 @@ CREATE TABLE IF NOT EXISTS history (
     payload BLOB NOT NULL
 );
 CREATE INDEX IF NOT EXISTS history_by_time ON history (time_ms);
+CREATE TABLE IF NOT EXISTS state (
+    name TEXT PRIMARY KEY,
+    time_ms INTEGER NOT NULL,
+    json BLOB NOT NULL
+);
 CREATE TABLE IF NOT EXISTS dropped (
     id INTEGER PRIMARY KEY CHECK (id = 1),
     count INTEGER NOT NULL,
@@ -321,6 +326,29 @@ impl Store {
             )?
             .execute(params![ms(time), kind.word(), zone, payload])?;
         Ok(())
+    }
+
+    /// Keeps a piece of the daemon's state under `name` (the energy
+    /// books), replacing the last one, in the open transaction: durable
+    /// with the round it belongs to.
+    pub fn put_state(&mut self, name: &str, time: Timestamp, json: &[u8]) -> rusqlite::Result<()> {
+        self.begin()?;
+        self.conn
+            .prepare_cached(
+                "INSERT INTO state (name, time_ms, json) VALUES (?1, ?2, ?3)
+                 ON CONFLICT (name) DO UPDATE SET time_ms = ?2, json = ?3",
+            )?
+            .execute(params![name, ms(time), json])?;
+        Ok(())
+    }
+
+    /// The state kept under `name`, if any.
+    pub fn get_state(&self, name: &str) -> rusqlite::Result<Option<Vec<u8>>> {
+        self.conn
+            .query_row("SELECT json FROM state WHERE name = ?1", [name], |r| {
+                r.get(0)
+            })
+            .optional()
     }
 
     /// Makes everything written since the last commit durable (one fsync).
@@ -696,6 +724,21 @@ mod tests {
             .unwrap();
         s.commit().unwrap();
         assert_eq!(s.stats().events, 1);
+    }
+
+    #[test]
+    fn state_is_kept_by_name_and_replaced() {
+        let d = dir("state");
+        let (mut s, _) = Store::open(&d, limits(64.0, 336.0)).unwrap();
+        assert_eq!(s.get_state("energy").unwrap(), None);
+        s.put_state("energy", t("2026-05-01T10:00:00Z"), b"{\"a\":1}")
+            .unwrap();
+        s.put_state("energy", t("2026-05-01T10:01:00Z"), b"{\"a\":2}")
+            .unwrap();
+        s.commit().unwrap();
+        drop(s);
+        let (s, _) = Store::open(&d, limits(64.0, 336.0)).unwrap();
+        assert_eq!(s.get_state("energy").unwrap().unwrap(), b"{\"a\":2}");
     }
 
     #[test]

@@ -172,3 +172,23 @@ pub fn stop_daemon(mut daemon: Daemon) {
     }
     assert_eq!(daemon.wait().unwrap().code(), Some(0));
 }
+
+/// The energy totals the daemon keeps in its state directory: in the local
+/// database (table `state`, name `energy`), else in `energy.json`.
+pub fn saved_energy(state_dir: &std::path::Path) -> serde_json::Value {
+    let db = state_dir.join("store.db");
+    if db.exists() {
+        let conn =
+            rusqlite::Connection::open_with_flags(&db, rusqlite::OpenFlags::SQLITE_OPEN_READ_ONLY)
+                .unwrap();
+        let json: Option<Vec<u8>> = conn
+            .query_row("SELECT json FROM state WHERE name = 'energy'", [], |r| {
+                r.get(0)
+            })
+            .ok();
+        if let Some(j) = json {
+            return serde_json::from_slice(&j).unwrap();
+        }
+    }
+    serde_json::from_slice(&std::fs::read(state_dir.join("energy.json")).unwrap()).unwrap()
+}

@@ -213,10 +213,7 @@ fn daemon_end_to_end() {
         .find_map(|l| l.strip_prefix("state_dir = "))
         .unwrap()
         .trim_matches('"');
-    let saved: serde_json::Value = serde_json::from_slice(
-        &std::fs::read(std::path::Path::new(state_dir).join("energy.json")).unwrap(),
-    )
-    .unwrap();
+    let saved = saved_energy(std::path::Path::new(state_dir));
     let kwh = saved["total_kwh"].as_f64().unwrap();
     assert!(kwh > 0.0 && kwh < 30.0 * 60.0 / 3600.0, "{kwh} kWh");
     // The garbage was seen and reported, rate-limited: far fewer warnings
