@@ -89,7 +89,7 @@ pub async fn run_recording(
     let queue = Arc::new(Queue::new(settings.mqtt.queue_capacity));
     let link = Arc::new(LinkHealth::default());
     let (stop_tx, stop_rx) = watch::channel(false);
-    let (cmd_tx, mut cmd_rx) = mpsc::channel::<Vec<u8>>(64);
+    let (cmd_tx, mut cmd_rx) = mpsc::channel::<mqtt::Incoming>(64);
 
     let password = match &settings.mqtt.credentials {
         Some(c) => Some(mqtt::read_password(&c.password)?),
@@ -190,7 +190,7 @@ pub async fn run_recording(
                 Some(f) => engine.source(f),
                 None => sources_open = false,
             },
-            Some(payload) = cmd_rx.recv() => engine.monitor.handle_command(&payload, clock.now()),
+            Some(c) = cmd_rx.recv() => engine.command(c),
             _ = tokio::time::sleep_until(wake) => {
                 // Woken for `deadline`. A clock still short of it by more
                 // than a rounding error (driven by the demo's simulator,
@@ -290,6 +290,11 @@ struct Engine {
     energy_unsaved: bool,
     /// No `energy.json` is left to compete with the database's books.
     energy_file_gone: bool,
+    /// MQTT 5: the response topic and correlation data of the command
+    /// being handled.
+    respond_to: Option<(String, Vec<u8>)>,
+    /// MQTT 5: how long the broker keeps a retained measurement, s.
+    state_expiry_s: u32,
     clock: Clock,
 }
 
@@ -328,6 +333,7 @@ impl Engine {
                     "lining baseline (commands baseline_start, baseline_stop, baseline_reset on {{root}}/cmd)");
             }
         }
+        let expiry = state_expiry_s(&settings);
         Engine {
             settings,
             root,
@@ -340,8 +346,17 @@ impl Engine {
             logger: Logger::default(),
             energy_unsaved: false,
             energy_file_gone: false,
+            respond_to: None,
+            state_expiry_s: expiry,
             clock,
         }
+    }
+
+    /// A command from the broker; its reply goes where it asks (MQTT 5),
+    /// when that is a topic we may publish to.
+    fn command(&mut self, c: mqtt::Incoming) {
+        self.respond_to = c.respond_to.filter(|(t, _)| valid_response_topic(t));
+        self.monitor.handle_command(&c.payload, self.clock.now());
     }
 
     /// What a source delivered, after every deadline before its stamp (as
@@ -407,9 +422,20 @@ impl Engine {
                 _ => {}
             }
             let history = self.history_of(&out);
-            for m in route::messages(&self.root, &out) {
+            let is_reply = matches!(out, Output::CommandReply(_));
+            for (i, m) in route::messages(&self.root, &out).enumerate() {
                 match m {
-                    Ok(m) => {
+                    Ok(mut m) => {
+                        if is_reply && i == 0 {
+                            // MQTT 5: to where the command asked, with its
+                            // correlation data.
+                            if let Some((topic, correlation)) = self.respond_to.take() {
+                                m.topic = topic;
+                                m.props.correlation = Some(correlation);
+                            }
+                        } else if m.retain() && matches!(m.kind, Kind::ZoneState | Kind::Channel) {
+                            m.props.expiry_s = Some(self.state_expiry_s);
+                        }
                         let is_event = m.topic == events_topic;
                         if let Some((kind, zone, time)) = &history {
                             if *kind != HistoryKind::Event || is_event {
@@ -496,7 +522,13 @@ impl Engine {
             let mut write = || -> rusqlite::Result<()> {
                 let mut seqs = Vec::with_capacity(round.events.len());
                 for (t, m) in &round.events {
-                    seqs.push(s.spool(*t, &m.topic, &m.payload, offline)?);
+                    seqs.push(s.spool_with(
+                        *t,
+                        &m.topic,
+                        &m.payload,
+                        offline,
+                        m.props.correlation.as_deref(),
+                    )?);
                 }
                 for (i, m) in states.iter_mut() {
                     m.after = if *i == 0 { 0 } else { seqs[*i - 1] };
@@ -629,6 +661,7 @@ impl Engine {
             lost_events: q.counters.lost_events.load(r),
             oversize_packets: link.oversize_packets.load(r),
             published: link.published.load(r),
+            refused_by_broker: link.refused_by_broker.load(r),
             queued: q.len() as u64,
         });
         s.version = env!("CARGO_PKG_VERSION");
@@ -768,6 +801,24 @@ impl Engine {
         }
         saved
     }
+}
+
+/// MQTT 5: a retained zone, kiln or channel state expires at the broker
+/// after three of the longest zone interval (at least 3 minutes): a screen
+/// then shows no number rather than one from a daemon long gone.
+fn state_expiry_s(settings: &Settings) -> u32 {
+    let longest = settings
+        .zones
+        .iter()
+        .map(|z| z.interval_s)
+        .fold(60.0, f64::max);
+    (3.0 * longest).clamp(180.0, u32::MAX as f64) as u32
+}
+
+/// A response topic a command may name: a topic, not a filter, and not a
+/// broker's own (`$…`).
+fn valid_response_topic(t: &str) -> bool {
+    !t.is_empty() && t.len() <= 1024 && !t.starts_with('$') && !t.contains(['+', '#', '\0'])
 }
 
 /// What one round of the engine writes to the database.

@@ -23,11 +23,11 @@ use std::sync::atomic::Ordering;
 use std::sync::{Arc, Mutex};
 use std::time::{Duration, Instant};
 
-use rumqttc::{AsyncClient, QoS};
 use tracing::warn;
 
 use super::mqtt::LinkHealth;
 use super::queue::{Message, Queue};
+use super::wire::{Props, WireClient};
 use crate::store::Store;
 
 /// Publishes handed to the client and not yet acknowledged, at most: far
@@ -198,7 +198,7 @@ impl Flight {
 pub fn hand(
     flight: &Mutex<Flight>,
     up: bool,
-    client: &AsyncClient,
+    client: &WireClient,
     queue: &Queue,
     store: Option<&Arc<Mutex<Store>>>,
     health: &LinkHealth,
@@ -242,12 +242,8 @@ pub fn hand(
         }
         _ if !queue.is_empty() => match queue.try_pop() {
             Some(m) => {
-                let sent = client.try_publish(
-                    m.topic.clone(),
-                    QoS::AtLeastOnce,
-                    m.retain(),
-                    m.payload.clone(),
-                );
+                let sent =
+                    client.try_publish(m.topic.clone(), m.retain(), m.payload.clone(), &m.props);
                 match sent {
                     Ok(()) => {
                         let n = f.next;
@@ -272,7 +268,7 @@ pub fn hand(
 
 fn hand_event(
     f: &mut Flight,
-    client: &AsyncClient,
+    client: &WireClient,
     row: crate::store::Spooled,
     backfill: bool,
     health: &LinkHealth,
@@ -282,7 +278,11 @@ fn hand_event(
     } else {
         row.payload
     };
-    match client.try_publish(row.topic, QoS::AtLeastOnce, false, payload) {
+    let props = Props {
+        correlation: row.correlation,
+        ..Props::default()
+    };
+    match client.try_publish(row.topic, false, payload, &props) {
         Ok(()) => {
             let n = f.next;
             f.next += 1;
@@ -336,6 +336,7 @@ mod tests {
             payload: vec![n],
             kind: Kind::ZoneState,
             after: 0,
+            props: Default::default(),
         })
     }
 

@@ -34,11 +34,6 @@ use std::sync::atomic::{AtomicBool, AtomicU64, Ordering};
 use std::sync::{Arc, Mutex};
 use std::time::Duration;
 
-use rumqttc::mqttbytes::v4::{Publish, Subscribe};
-use rumqttc::{
-    AsyncClient, ConnectionError, Event, LastWill, MqttOptions, Outgoing, Packet, QoS, Request,
-    StateError, TlsConfiguration, Transport,
-};
 use serde::Serialize;
 use tokio::sync::{mpsc, watch, Notify};
 use tracing::{info, warn};
@@ -46,6 +41,7 @@ use tracing::{info, warn};
 use super::flight::{hand, Flight, Handed};
 use super::fold::Fold;
 use super::queue::Queue;
+use super::wire::{Connect, Props, Wire, WireEvent};
 use crate::app::clock::Clock;
 use crate::config::{MqttSettings, PasswordSource};
 use crate::monitor::command::MAX_COMMAND_BYTES;
@@ -61,8 +57,6 @@ pub const MAX_PACKET_BYTES: usize = 256 * 1024;
 pub const MAX_INCOMING_BYTES: usize = 16 * 1024 * 1024;
 /// Capacity of rumqttc's request channel.
 const REQUEST_CAPACITY: usize = 64;
-/// The QoS of the `cmd` subscription: at most once (see the module doc).
-const CMD_QOS: QoS = QoS::AtMostOnce;
 /// Longest wait between reconnection attempts.
 const MAX_BACKOFF: Duration = Duration::from_secs(30);
 /// While the broker stays away, a reminder this often.
@@ -86,6 +80,8 @@ pub struct LinkHealth {
     /// Messages over the client's packet limit (each reset the connection
     /// once).
     pub oversize_packets: AtomicU64,
+    /// MQTT 5: messages the broker acknowledged with a refusal.
+    pub refused_by_broker: AtomicU64,
     /// Signalled on every connection: a new session may have lost the
     /// retained alarm states.
     pub reconnected: Notify,
@@ -128,43 +124,6 @@ fn will_payload() -> Vec<u8> {
     .unwrap_or_default()
 }
 
-/// `e` in words for the log: a refused connection says why, in the
-/// config's terms (rumqttc's own text would print a Rust spelling).
-fn describe(e: &ConnectionError) -> String {
-    use rumqttc::ConnectReturnCode as C;
-    match e {
-        ConnectionError::ConnectionRefused(code) => match code {
-            C::BadUserNamePassword => {
-                "the broker refused the connection: bad user name or password (mqtt.username and its password)".into()
-            }
-            C::NotAuthorized => {
-                "the broker refused the connection: not authorised (the broker's account and access control)".into()
-            }
-            C::BadClientId => {
-                "the broker refused the connection: client id not accepted (mqtt.client_id)".into()
-            }
-            C::RefusedProtocolVersion => {
-                "the broker refused the connection: it does not speak MQTT 3.1.1".into()
-            }
-            C::ServiceUnavailable | C::Success => {
-                "the broker refused the connection: service unavailable".into()
-            }
-        },
-        e => super::tls::describe(e).unwrap_or_else(|| e.to_string()),
-    }
-}
-
-/// The size of the packet, when `e` is the client refusing one over its
-/// limit.
-fn oversize(e: &ConnectionError) -> Option<usize> {
-    match e {
-        ConnectionError::MqttState(StateError::Deserialization(
-            rumqttc::mqttbytes::Error::PayloadSizeLimitExceeded(n),
-        )) => Some(*n),
-        _ => None,
-    }
-}
-
 /// The broker account's password from where `src` says, read once at
 /// start. A password file others can read gets a warning naming the fix;
 /// the password itself never reaches a log line or an error.
@@ -199,6 +158,15 @@ pub fn read_password(src: &PasswordSource) -> anyhow::Result<String> {
     Ok(password)
 }
 
+/// A command as it came from the broker.
+#[derive(Debug)]
+pub struct Incoming {
+    pub payload: Vec<u8>,
+    /// MQTT 5: where the sender wants its reply, and the correlation data
+    /// to give back.
+    pub respond_to: Option<(String, Vec<u8>)>,
+}
+
 /// Where the engine's messages wait for the link: states (and events,
 /// when the local database cannot take them) in the queue, events in the
 /// spool.
@@ -225,32 +193,23 @@ pub async fn run(
     outbound: Outbound,
     health: Arc<LinkHealth>,
     clock: Clock,
-    commands: mpsc::Sender<Vec<u8>>,
+    commands: mpsc::Sender<Incoming>,
     mut shutdown: watch::Receiver<bool>,
 ) {
     let BrokerAccess { cfg, password, tls } = broker;
     let queue = outbound.queue.clone();
     let status_topic = format!("{root}/status");
     let cmd_topic = format!("{root}/cmd");
-    let mut opts = MqttOptions::new(cfg.client_id.clone(), cfg.host.clone(), cfg.port);
-    // Validated at load time: keep-alive ≥ 1 s and a non-empty client id
-    // (rumqttc panics otherwise).
-    opts.set_keep_alive(Duration::from_secs(cfg.keep_alive_s.max(1)));
-    opts.set_clean_session(false);
-    if let (Some(c), Some(p)) = (&cfg.credentials, password) {
-        opts.set_credentials(c.username.clone(), p);
-    }
-    opts.set_max_packet_size(MAX_INCOMING_BYTES, MAX_PACKET_BYTES);
-    if let Some(tls) = tls {
-        opts.set_transport(Transport::tls_with_config(TlsConfiguration::Rustls(tls)));
-    }
-    opts.set_last_will(LastWill::new(
-        status_topic.clone(),
-        will_payload(),
-        QoS::AtLeastOnce,
-        true,
-    ));
-    let (client, mut eventloop) = AsyncClient::new(opts, REQUEST_CAPACITY);
+    let (client, mut wire) = Wire::new(Connect {
+        cfg: &cfg,
+        password,
+        tls,
+        will_topic: &status_topic,
+        will_payload: will_payload(),
+        max_incoming: MAX_INCOMING_BYTES,
+        max_outgoing: MAX_PACKET_BYTES,
+        request_capacity: REQUEST_CAPACITY,
+    });
     let (up_tx, up_rx) = watch::channel(false);
     let store = outbound.store.clone();
     let last_seq = store
@@ -304,52 +263,47 @@ pub async fn run(
     let mut failures_since_up: u64 = 0;
     let mut lost_lines = Fold::default();
     let mut ignored_lines = Fold::default();
+    let mut refused_lines = Fold::default();
     let target = format!("{}:{}", cfg.host, cfg.port);
     loop {
         tokio::select! {
-            ev = eventloop.poll() => match ev {
-                Ok(Event::Incoming(Packet::ConnAck(ack))) => {
+            ev = wire.poll() => match ev {
+                Ok(WireEvent::Connected { session_present }) => {
                     health.connected.store(true, Ordering::Relaxed);
                     health.connections.fetch_add(1, Ordering::Relaxed);
                     health.reconnected.notify_one();
-                    info!(broker = %target, session_present = ack.session_present,
+                    info!(broker = %target, session_present, protocol = cfg.protocol.name(),
                         after_failed_attempts = failures_since_up, "MQTT broker connected");
                     failures_since_up = 0;
                     last_reminder = None;
                     backoff = Duration::from_millis(250);
-                    // Persistent again after a fresh session.
-                    eventloop.mqtt_options.set_clean_session(false);
                     // Ahead of anything: the subscription (a new session
                     // may not know it), then `online`, so that a client
                     // that waits for `online` finds commands heard.
-                    let mut online = Publish::new(status_topic.as_str(), QoS::AtLeastOnce,
-                        status_payload("online", clock.now()));
-                    online.retain = true;
                     flight.lock().unwrap_or_else(|e| e.into_inner()).status_first();
-                    eventloop.pending.push_front(Request::Publish(online));
-                    eventloop.pending.push_front(Request::Subscribe(Subscribe::new(cmd_topic.as_str(), CMD_QOS)));
+                    wire.connected(&cmd_topic, &status_topic, status_payload("online", clock.now()));
                     let _ = up_tx.send(true);
                 }
-                Ok(Event::Outgoing(Outgoing::Publish(pkid))) => {
+                Ok(WireEvent::Written(pkid)) => {
                     flight.lock().unwrap_or_else(|e| e.into_inner()).written(pkid);
                 }
-                Ok(Event::Incoming(Packet::PubAck(a))) => {
-                    if flight.lock().unwrap_or_else(|e| e.into_inner()).acked(a.pkid) {
-                        health.published.fetch_add(1, Ordering::Relaxed);
-                    }
+                Ok(WireEvent::Acked { pkid, refused }) => {
+                    acked(&flight, pkid, refused, &health, &mut refused_lines);
                     queue.wake();
                 }
-                Ok(Event::Incoming(Packet::Publish(p))) if p.topic == cmd_topic => {
-                    if p.retain {
+                Ok(WireEvent::Message { topic, retain, payload, respond_to }) if topic == cmd_topic => {
+                    if retain {
                         health.commands_retained.fetch_add(1, Ordering::Relaxed);
                         if let Some(folded) = ignored_lines.admit(std::time::Instant::now()) {
-                            warn!(topic = %cmd_topic, bytes = p.payload.len(), folded,
+                            warn!(topic = %cmd_topic, bytes = payload.len(), folded,
                                 "retained message on the command topic ignored: a command must not apply itself at every connection (clear it with an empty retained message)");
                         }
-                    } else if p.payload.len() > MAX_COMMAND_BYTES * 4 || commands.try_send(p.payload.to_vec()).is_err() {
+                    } else if payload.len() > MAX_COMMAND_BYTES * 4
+                        || commands.try_send(Incoming { payload: payload.to_vec(), respond_to }).is_err()
+                    {
                         health.commands_dropped.fetch_add(1, Ordering::Relaxed);
                         if let Some(folded) = ignored_lines.admit(std::time::Instant::now()) {
-                            warn!(topic = %cmd_topic, bytes = p.payload.len(), folded,
+                            warn!(topic = %cmd_topic, bytes = payload.len(), folded,
                                 "command dropped: larger than a command can be, or too many at once");
                         }
                     }
@@ -358,23 +312,23 @@ pub async fn run(
                 Err(e) => {
                     let was_up = health.connected.swap(false, Ordering::Relaxed);
                     let _ = up_tx.send(false);
-                    take_all_back(&mut eventloop, &flight, &queue, &health);
+                    take_all_back(&mut wire, &flight, &queue, &health, &mut refused_lines);
                     health.failed_attempts.fetch_add(1, Ordering::Relaxed);
                     failures_since_up += 1;
                     let now = tokio::time::Instant::now();
-                    if let Some(bytes) = oversize(&e) {
+                    if let Some(bytes) = e.oversize() {
                         health.oversize_packets.fetch_add(1, Ordering::Relaxed);
                         warn!(broker = %target, bytes, limit = MAX_INCOMING_BYTES,
                             "a message from the broker is over the packet limit: dropped; reconnecting with a fresh session, so the broker does not send it again");
-                        eventloop.mqtt_options.set_clean_session(true);
+                        wire.fresh_session();
                         last_reminder = Some(now);
                     } else if was_up {
                         if let Some(folded) = lost_lines.admit(now.into_std()) {
-                            warn!(broker = %target, error = %describe(&e), folded, "MQTT broker lost; reconnecting with backoff (events kept in the spool, states queued, latest kept)");
+                            warn!(broker = %target, error = %e.describe(), folded, "MQTT broker lost; reconnecting with backoff (events kept in the spool, states queued, latest kept)");
                         }
                         last_reminder = Some(now);
                     } else if last_reminder.is_none_or(|t| now.duration_since(t) >= REMIND_EVERY) {
-                        warn!(broker = %target, error = %describe(&e), attempts = failures_since_up, "MQTT broker unreachable; retrying");
+                        warn!(broker = %target, error = %e.describe(), attempts = failures_since_up, "MQTT broker unreachable; retrying");
                         last_reminder = Some(now);
                     }
                     tokio::select! {
@@ -424,30 +378,24 @@ pub async fn run(
                     .status_last();
                 let _ = client.try_publish(
                     status_topic.clone(),
-                    QoS::AtLeastOnce,
                     true,
                     status_payload("offline", clock.now()),
+                    &Props::default(),
                 );
                 let _ = client.try_disconnect();
                 offline_sent = true;
             }
-            match tokio::time::timeout_at(deadline, eventloop.poll()).await {
-                Ok(Ok(Event::Outgoing(Outgoing::Publish(pkid)))) => {
+            match tokio::time::timeout_at(deadline, wire.poll()).await {
+                Ok(Ok(WireEvent::Written(pkid))) => {
                     flight
                         .lock()
                         .unwrap_or_else(|e| e.into_inner())
                         .written(pkid);
                 }
-                Ok(Ok(Event::Incoming(Packet::PubAck(a)))) => {
-                    if flight
-                        .lock()
-                        .unwrap_or_else(|e| e.into_inner())
-                        .acked(a.pkid)
-                    {
-                        health.published.fetch_add(1, Ordering::Relaxed);
-                    }
+                Ok(Ok(WireEvent::Acked { pkid, refused })) => {
+                    acked(&flight, pkid, refused, &health, &mut refused_lines);
                 }
-                Ok(Ok(Event::Outgoing(Outgoing::Disconnect))) => {
+                Ok(Ok(WireEvent::Disconnected)) => {
                     disconnected = true;
                     break;
                 }
@@ -487,29 +435,61 @@ const IDLE_RECHECK: Duration = Duration::from_secs(1);
 /// to the link (see `flight`), so that nothing of it is sent again out of
 /// order or attributed to the wrong packet id.
 fn take_all_back(
-    eventloop: &mut rumqttc::EventLoop,
+    wire: &mut Wire,
     flight: &Mutex<Flight>,
     queue: &Queue,
     health: &LinkHealth,
+    refused_lines: &mut Fold,
 ) {
     let mut f = flight.lock().unwrap_or_else(|e| e.into_inner());
     // What happened on the old connection and was not yet reported.
-    for ev in eventloop.state.events.drain(..) {
+    for ev in wire.take_back() {
         match ev {
-            Event::Outgoing(Outgoing::Publish(pkid)) => f.written(pkid),
-            Event::Incoming(Packet::PubAck(a)) if f.acked(a.pkid) => {
-                health.published.fetch_add(1, Ordering::Relaxed);
+            WireEvent::Written(pkid) => f.written(pkid),
+            WireEvent::Acked { pkid, refused } => {
+                acked_locked(&mut f, pkid, refused, health, refused_lines)
             }
             _ => {}
         }
     }
-    // Requests still in the client's channel join its pending list, which
-    // then goes: the subscription and `online` are made afresh at the next
-    // connection, everything else is ours to send again.
-    eventloop.clean();
-    eventloop.pending.clear();
-    eventloop.state.collision = None;
     f.take_back(queue);
+}
+
+/// A PUBACK: the publish it names is with the broker (or, MQTT 5, was
+/// refused by it: an event refused is not sent again, since the broker
+/// would refuse it again; said in the log, folded).
+fn acked(
+    flight: &Mutex<Flight>,
+    pkid: u16,
+    refused: Option<String>,
+    health: &LinkHealth,
+    lines: &mut Fold,
+) {
+    let mut f = flight.lock().unwrap_or_else(|e| e.into_inner());
+    acked_locked(&mut f, pkid, refused, health, lines);
+}
+
+fn acked_locked(
+    f: &mut Flight,
+    pkid: u16,
+    refused: Option<String>,
+    health: &LinkHealth,
+    lines: &mut Fold,
+) {
+    if !f.acked(pkid) {
+        return;
+    }
+    match refused {
+        None => {
+            health.published.fetch_add(1, Ordering::Relaxed);
+        }
+        Some(why) => {
+            health.refused_by_broker.fetch_add(1, Ordering::Relaxed);
+            if let Some(folded) = lines.admit(std::time::Instant::now()) {
+                warn!(reason = %why, folded, "the broker refused a message (not sent again): check its access list for this daemon's topics");
+            }
+        }
+    }
 }
 
 /// Deletes the acknowledged events from the spool when a batch is due.

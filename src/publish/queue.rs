@@ -49,6 +49,9 @@ pub struct Message {
     /// before this message (0: none): the link sends that event first, so
     /// the monitor's order holds across the queue and the spool.
     pub after: i64,
+    /// MQTT 5 properties (expiry of a retained measurement, the
+    /// correlation data of a reply).
+    pub props: super::wire::Props,
 }
 
 impl Message {
@@ -211,6 +214,7 @@ mod tests {
             payload: vec![n],
             kind,
             after: 0,
+            props: Default::default(),
         }
     }
 

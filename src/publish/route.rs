@@ -45,6 +45,7 @@ pub fn message(root: &str, out: &Output) -> Option<Result<Message, serde_json::E
         payload,
         kind,
         after: 0,
+        props: Default::default(),
     }))
 }
 
@@ -60,6 +61,7 @@ pub fn messages(
             payload,
             kind: Kind::Event,
             after: 0,
+            props: Default::default(),
         })),
         _ => None,
     };

@@ -298,6 +298,32 @@ pub fn describe(e: &ConnectionError) -> Option<String> {
     inner_rustls(io).map(tls_words)
 }
 
+/// [`describe`] for the MQTT 5 client's errors.
+pub fn describe_v5(e: &rumqttc::v5::ConnectionError) -> Option<String> {
+    use rumqttc::v5::{ConnectionError as E, StateError as S};
+    let io = match e {
+        E::Tls(TlsError::TLS(r)) => return Some(tls_words(r)),
+        E::Tls(TlsError::DNSName(_)) => {
+            return Some("TLS: mqtt.host is neither a DNS name nor an IP address".into())
+        }
+        E::Tls(TlsError::Io(io)) => {
+            if let Some(r) = inner_rustls(io) {
+                return Some(tls_words(r));
+            }
+            return Some(match io.kind() {
+                ErrorKind::UnexpectedEof | ErrorKind::ConnectionReset => {
+                    "TLS: the broker closed the connection during the handshake (is mqtt.port its TLS listener?)".into()
+                }
+                _ => format!("TLS: {io}"),
+            });
+        }
+        E::Tls(other) => return Some(format!("TLS: {other}")),
+        E::Io(io) | E::MqttState(S::Io(io)) => io,
+        _ => return None,
+    };
+    inner_rustls(io).map(tls_words)
+}
+
 fn inner_rustls(io: &std::io::Error) -> Option<&rustls::Error> {
     io.get_ref()?.downcast_ref::<rustls::Error>()
 }

@@ -50,7 +50,8 @@ CREATE TABLE IF NOT EXISTS outbox (
     time_ms INTEGER NOT NULL,
     topic TEXT NOT NULL,
     payload BLOB NOT NULL,
-    offline INTEGER NOT NULL
+    offline INTEGER NOT NULL,
+    correlation BLOB
 );
 CREATE TABLE IF NOT EXISTS history (
     id INTEGER PRIMARY KEY AUTOINCREMENT,
@@ -117,6 +118,8 @@ pub struct Spooled {
     /// Written while the broker was away (or before this start): sent as
     /// backfill.
     pub offline: bool,
+    /// MQTT 5: the correlation data of the command this reply answers.
+    pub correlation: Option<Vec<u8>>,
 }
 
 /// Events the bounds pushed out of the spool in one go.
@@ -294,13 +297,25 @@ impl Store {
         payload: &[u8],
         offline: bool,
     ) -> rusqlite::Result<i64> {
+        self.spool_with(time, topic, payload, offline, None)
+    }
+
+    /// [`spool`](Self::spool) with the MQTT 5 correlation data of a reply.
+    pub fn spool_with(
+        &mut self,
+        time: Timestamp,
+        topic: &str,
+        payload: &[u8],
+        offline: bool,
+        correlation: Option<&[u8]>,
+    ) -> rusqlite::Result<i64> {
         self.begin()?;
         let t = ms(time);
         self.conn
             .prepare_cached(
-                "INSERT INTO outbox (time_ms, topic, payload, offline) VALUES (?1, ?2, ?3, ?4)",
+                "INSERT INTO outbox (time_ms, topic, payload, offline, correlation) VALUES (?1, ?2, ?3, ?4, ?5)",
             )?
-            .execute(params![t, topic, payload, offline])?;
+            .execute(params![t, topic, payload, offline, correlation])?;
         self.events += 1;
         self.bytes += (payload.len() + topic.len()) as u64 + ROW_OVERHEAD_BYTES;
         self.oldest_ms = Some(self.oldest_ms.map_or(t, |o| o.min(t)));
@@ -394,7 +409,7 @@ impl Store {
     pub fn next_after(&self, seq: i64) -> rusqlite::Result<Option<Spooled>> {
         self.conn
             .prepare_cached(
-                "SELECT seq, time_ms, topic, payload, offline FROM outbox WHERE seq > ?1 ORDER BY seq LIMIT 1",
+                "SELECT seq, time_ms, topic, payload, offline, correlation FROM outbox WHERE seq > ?1 ORDER BY seq LIMIT 1",
             )?
             .query_row([seq], |r| {
                 Ok(Spooled {
@@ -403,6 +418,7 @@ impl Store {
                     topic: r.get(2)?,
                     payload: r.get(3)?,
                     offline: r.get(4)?,
+                    correlation: r.get(5)?,
                 })
             })
             .optional()

@@ -46,6 +46,7 @@ pub(super) const MQTT: &[(&str, Sub)] = &[
     ("password_file", Leaf),
     ("password_credential", Leaf),
     ("allow_plaintext_credentials", Leaf),
+    ("protocol", Leaf),
     ("tls", Table(TLS)),
 ];
 

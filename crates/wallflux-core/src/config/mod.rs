@@ -237,6 +237,20 @@ pub struct MqttSettings {
     pub credentials: Option<Credentials>,
     /// TLS to the broker (`[mqtt.tls]`); none: plain TCP.
     pub tls: Option<TlsSettings>,
+    /// The MQTT version spoken (`protocol`, 3.1.1 unless set).
+    pub protocol: MqttProtocol,
+}
+
+crate::word_enum! {
+    /// The MQTT version (`[mqtt] protocol`).
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum MqttProtocol {
+        /// MQTT 3.1.1: every broker speaks it.
+        V311 = "3.1.1",
+        /// MQTT 5: message expiry on retained measurements, response
+        /// topics for commands, PUBACKs that say why.
+        V5 = "5",
+    }
 }
 
 /// `[mqtt.tls]`: the files the edge reads at start (the core only names

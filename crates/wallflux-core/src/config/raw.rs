@@ -86,6 +86,7 @@ pub struct RawMqtt {
     pub password_credential: Option<S<String>>,
     pub allow_plaintext_credentials: Option<S<bool>>,
     pub tls: Option<S<RawTls>>,
+    pub protocol: Option<S<String>>,
 }
 
 #[derive(Debug, Deserialize)]

@@ -1304,6 +1304,10 @@ impl Validator<'_> {
             None => 256,
         };
         let credentials = self.credentials(m);
+        let protocol = match &m.protocol {
+            Some(p) => self.word(p, "mqtt.protocol", "an MQTT version", MqttProtocol::V311),
+            None => MqttProtocol::V311,
+        };
         MqttSettings {
             host,
             port,
@@ -1313,6 +1317,7 @@ impl Validator<'_> {
             queue_capacity,
             credentials,
             tls,
+            protocol,
         }
     }
 

@@ -310,6 +310,9 @@ pub struct LinkStatus {
     pub oversize_packets: u64,
     pub published: u64,
     pub queued: u64,
+    /// MQTT 5: messages the broker acknowledged with a refusal (its access
+    /// list, a quota).
+    pub refused_by_broker: u64,
     /// The spool's estimated size, bytes.
     pub spool_bytes: u64,
     /// Events the spool's bounds pushed out since start (each announced).
@@ -480,6 +483,7 @@ mod tests {
                 "queued": 3, "coalesced": 0, "dropped_zone_states": 0,
                 "dropped_channels": 0, "lost_events": 0, "commands_dropped": 0,
                 "commands_retained": 0, "oversize_packets": 0, "backfilled": 0,
+                "refused_by_broker": 0,
                 "spool_bytes": 0, "spool_dropped": 0, "spool_events": 0,
                 "spool_oldest": null, "store_ok": false},
             "unknown_inputs": 5,
