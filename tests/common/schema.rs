@@ -64,8 +64,8 @@ impl Schema {
         let path = std::path::Path::new(env!("CARGO_MANIFEST_DIR"))
             .join("docs/schema")
             .join(name);
-        let text = std::fs::read_to_string(&path)
-            .unwrap_or_else(|e| panic!("{}: {e}", path.display()));
+        let text =
+            std::fs::read_to_string(&path).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
         let root =
             serde_json::from_str(&text).unwrap_or_else(|e| panic!("{}: {e}", path.display()));
         Schema::new(name, root)
@@ -114,7 +114,11 @@ impl Schema {
                         _ => panic!("{}: type must be a name or a list", self.name),
                     };
                     if !names.iter().any(|t| is_type(v, t)) {
-                        bad(out, at, format!("{} is not {}", kind(v), names.join(" or ")));
+                        bad(
+                            out,
+                            at,
+                            format!("{} is not {}", kind(v), names.join(" or ")),
+                        );
                     }
                 }
                 "enum" => {
@@ -172,7 +176,11 @@ impl Schema {
                     if let Value::String(t) = v {
                         let n = arg.as_u64().expect("a length") as usize;
                         let len = t.chars().count();
-                        let ok = if key == "minLength" { len >= n } else { len <= n };
+                        let ok = if key == "minLength" {
+                            len >= n
+                        } else {
+                            len <= n
+                        };
                         if !ok {
                             bad(out, at, format!("{len} characters, {key} is {n}"));
                         }
@@ -213,7 +221,11 @@ impl Schema {
                     }
                     match matched.len() {
                         1 => refs.extend(matched.pop().unwrap().1),
-                        0 => bad(out, at, format!("matches no alternative: {}", why.join("; "))),
+                        0 => bad(
+                            out,
+                            at,
+                            format!("matches no alternative: {}", why.join("; ")),
+                        ),
                         n => bad(out, at, format!("matches {n} alternatives, not one")),
                     }
                 }
@@ -258,7 +270,9 @@ impl Schema {
         refs: &mut BTreeSet<String>,
     ) {
         let Value::Object(obj) = v else { return };
-        let props = s["properties"].as_object().expect("properties is an object");
+        let props = s["properties"]
+            .as_object()
+            .expect("properties is an object");
         if let Some(req) = s.get("required") {
             for r in req.as_array().expect("required is a list") {
                 let r = text(r, "required");
@@ -346,7 +360,11 @@ pub fn is_rfc3339(t: &str) -> bool {
     ) else {
         return false;
     };
-    if b[4] != b'-' || b[7] != b'-' || !matches!(b[10], b'T' | b't') || b[13] != b':' || b[16] != b':'
+    if b[4] != b'-'
+        || b[7] != b'-'
+        || !matches!(b[10], b'T' | b't')
+        || b[13] != b':'
+        || b[16] != b':'
     {
         return false;
     }
@@ -435,7 +453,10 @@ impl Pattern {
         let mut i = 0;
         while i < members.len() {
             if members.get(i + 1) == Some(&char::MAX) {
-                let (a, z) = (members[i], *members.get(i + 2).ok_or("a range without end")?);
+                let (a, z) = (
+                    members[i],
+                    *members.get(i + 2).ok_or("a range without end")?,
+                );
                 if a > z {
                     return Err(format!("the range {a}-{z} is reversed"));
                 }
@@ -498,7 +519,10 @@ mod tests {
         let s = json!({"type": ["number", "null"]});
         assert!(errors(s.clone(), json!(1.5)).is_empty());
         assert!(errors(s.clone(), json!(null)).is_empty());
-        assert_eq!(errors(s, json!("1.5")), ["/: a string is not number or null"]);
+        assert_eq!(
+            errors(s, json!("1.5")),
+            ["/: a string is not number or null"]
+        );
         let i = json!({"type": "integer"});
         assert!(errors(i.clone(), json!(3)).is_empty());
         assert!(errors(i.clone(), json!(3.0)).is_empty());
@@ -526,7 +550,10 @@ mod tests {
 
     #[test]
     fn enum_const_bounds_lengths_and_items() {
-        assert_eq!(errors(json!({"enum": ["ok", "open"]}), json!("spike")).len(), 1);
+        assert_eq!(
+            errors(json!({"enum": ["ok", "open"]}), json!("spike")).len(),
+            1
+        );
         assert!(errors(json!({"const": true}), json!(true)).is_empty());
         assert_eq!(errors(json!({"const": true}), json!(false)).len(), 1);
         let n = json!({"exclusiveMinimum": 0, "maximum": 1440});
@@ -534,11 +561,17 @@ mod tests {
         assert_eq!(errors(n.clone(), json!(0)).len(), 1);
         assert_eq!(errors(n, json!(1441)).len(), 1);
         let t = json!({"minLength": 1, "maxLength": 3});
-        assert!(errors(t.clone(), json!("äöü")).is_empty(), "characters, not bytes");
+        assert!(
+            errors(t.clone(), json!("äöü")).is_empty(),
+            "characters, not bytes"
+        );
         assert_eq!(errors(t.clone(), json!("")).len(), 1);
         assert_eq!(errors(t, json!("abcd")).len(), 1);
         let a = json!({"type": "array", "items": {"type": "number"}, "maxItems": 2});
-        assert_eq!(errors(a.clone(), json!([1, "x"])), ["/1: a string is not number"]);
+        assert_eq!(
+            errors(a.clone(), json!([1, "x"])),
+            ["/1: a string is not number"]
+        );
         assert_eq!(errors(a, json!([1, 2, 3])).len(), 1);
     }
 
@@ -551,10 +584,7 @@ mod tests {
         let schema = Schema::new("s.json", s);
         let mut refs = BTreeSet::new();
         assert!(schema.check(&json!(false), &mut refs).is_empty());
-        assert_eq!(
-            refs.into_iter().collect::<Vec<_>>(),
-            ["s.json#/$defs/f"]
-        );
+        assert_eq!(refs.into_iter().collect::<Vec<_>>(), ["s.json#/$defs/f"]);
         let mut refs = BTreeSet::new();
         let both = schema.check(&json!(true), &mut refs);
         assert_eq!(both.len(), 1, "true is both: {both:?}");
@@ -600,7 +630,8 @@ mod tests {
         assert!(!name.matches(""));
         assert!(!name.matches("a/b") && !name.matches("a+b") && !name.matches("$SYS"));
         assert!(!name.matches(&"a".repeat(49)));
-        let printable = Pattern::parse("^[^\\u0000-\\u001F\\u007F-\\u009F\\u202A-\\u202E]*$").unwrap();
+        let printable =
+            Pattern::parse("^[^\\u0000-\\u001F\\u007F-\\u009F\\u202A-\\u202E]*$").unwrap();
         assert!(printable.matches("j.smith, shift 2"));
         assert!(!printable.matches("a\u{0007}b"));
         assert!(!printable.matches("evil\u{202E}txt"));
