@@ -225,6 +225,65 @@ fn bad_values_are_refused() {
     }
 }
 
+/// Every name that becomes an MQTT topic level (plant, kiln, zone,
+/// channel, alarm) is refused when a broker would read it otherwise: a
+/// wildcard (`+`, `#`), a level separator, NUL, a leading `$` (the
+/// broker's own topics) or nothing at all; so is a `topic_root` with NUL or
+/// empty. Each with its key path and line.
+#[test]
+fn names_in_topics_cannot_break_a_topic() {
+    let names = [
+        ("plant = \"example-plant\"", "plant", "site.plant"),
+        ("kiln = \"kiln-3\"", "kiln", "site.kiln"),
+        ("name = \"north-wall\"", "name", "zone[0].name"),
+        ("name = \"w1-40\"", "name", "channel[0].name"),
+        ("name = \"north-wall-loss-high\"", "name", "alarm[0].name"),
+    ];
+    // As written in TOML: `\u0000` is the escape of NUL.
+    let bad = ["a+b", "a#b", "a/b", "a\\u0000b", "$SYS", "", "+", "#"];
+    for (from, key, path) in names {
+        assert!(EXAMPLE.contains(from), "{from}");
+        for value in bad {
+            let text = EXAMPLE.replacen(from, &format!("{key} = \"{value}\""), 1);
+            let p = problems(&text);
+            assert!(
+                p.iter().any(|x| x.path == path
+                    && x.line.is_some()
+                    && x.message.contains("names appear in MQTT topics")),
+                "{path} = {value:?}: {p:#?}"
+            );
+        }
+    }
+    for value in ["", "wall\\u0000flux", "$share/x", "a/+/b"] {
+        let text = EXAMPLE.replacen(
+            "topic_root = \"wallflux\"",
+            &format!("topic_root = \"{value}\""),
+            1,
+        );
+        let p = problems(&text);
+        assert!(
+            p.iter()
+                .any(|x| x.path == "mqtt.topic_root" && x.line.is_some()),
+            "topic_root = {value:?}: {p:#?}"
+        );
+    }
+    // What the shipped files name is a valid topic level, the built-in
+    // alarms' names (made of configured names) too.
+    let level_ok =
+        |n: &str| !n.is_empty() && !n.starts_with('$') && !n.contains(['+', '#', '/', '\0']);
+    for (text, file) in [(EXAMPLE, "example.toml"), (DEMO, "demo.toml")] {
+        let s = parse(text, file, None).unwrap();
+        let levels = [s.site.plant.as_str(), s.site.kiln.as_str()]
+            .into_iter()
+            .chain(s.zones.iter().map(|z| z.name.as_str()))
+            .chain(s.channels.iter().map(|c| c.name.as_str()))
+            .chain(s.alarms.iter().map(|a| a.name.as_str()));
+        for n in levels {
+            assert!(level_ok(n), "{file}: {n:?}");
+        }
+    }
+}
+
 #[test]
 fn not_toml_is_an_error_with_a_line() {
     let p = problems("[site]\nplant = \"a\"\nkiln = \n");
