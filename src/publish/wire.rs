@@ -29,6 +29,10 @@ pub struct Props {
     pub correlation: Option<Vec<u8>>,
 }
 
+/// The client's request channel is full or its event loop gone.
+#[derive(Debug)]
+pub struct NotQueued;
+
 /// A client handle: publishes go into the event loop's request channel.
 #[derive(Clone)]
 pub enum WireClient {
@@ -45,15 +49,16 @@ impl WireClient {
         retain: bool,
         payload: Vec<u8>,
         props: &Props,
-    ) -> Result<(), ()> {
+    ) -> Result<(), NotQueued> {
         match self {
             WireClient::V4(c) => c
                 .try_publish(topic, QoS::AtLeastOnce, retain, payload)
-                .map_err(|_| ()),
+                .map_err(|_| NotQueued),
             WireClient::V5(c) => {
                 let qos = rumqttc::v5::mqttbytes::QoS::AtLeastOnce;
                 if props == &Props::default() {
-                    c.try_publish(topic, qos, retain, payload).map_err(|_| ())
+                    c.try_publish(topic, qos, retain, payload)
+                        .map_err(|_| NotQueued)
                 } else {
                     let p = rumqttc::v5::mqttbytes::v5::PublishProperties {
                         message_expiry_interval: props.expiry_s,
@@ -61,16 +66,16 @@ impl WireClient {
                         ..Default::default()
                     };
                     c.try_publish_with_properties(topic, qos, retain, payload, p)
-                        .map_err(|_| ())
+                        .map_err(|_| NotQueued)
                 }
             }
         }
     }
 
-    pub fn try_disconnect(&self) -> Result<(), ()> {
+    pub fn try_disconnect(&self) -> Result<(), NotQueued> {
         match self {
-            WireClient::V4(c) => c.try_disconnect().map_err(|_| ()),
-            WireClient::V5(c) => c.try_disconnect().map_err(|_| ()),
+            WireClient::V4(c) => c.try_disconnect().map_err(|_| NotQueued),
+            WireClient::V5(c) => c.try_disconnect().map_err(|_| NotQueued),
         }
     }
 }
@@ -189,7 +194,7 @@ fn refused(r: Refusal) -> String {
 
 /// The event loop of either version.
 pub enum Wire {
-    V4(rumqttc::EventLoop),
+    V4(Box<rumqttc::EventLoop>),
     V5(Box<rumqttc::v5::EventLoop>),
 }
 
@@ -234,7 +239,7 @@ impl Wire {
                     true,
                 ));
                 let (client, ev) = rumqttc::AsyncClient::new(opts, c.request_capacity);
-                (WireClient::V4(client), Wire::V4(ev))
+                (WireClient::V4(client), Wire::V4(Box::new(ev)))
             }
             MqttProtocol::V5 => {
                 use rumqttc::v5::mqttbytes::v5::LastWill as Will5;

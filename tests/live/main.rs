@@ -3,16 +3,21 @@
 
 #[path = "../common/mod.rs"]
 mod common;
+/// The JSON Schema validator of docs/schema/ (only these tests use it).
+#[path = "../common/schema.rs"]
+mod schema;
 
 mod alarms;
 mod baseline_commands;
 mod check_warnings;
 mod cli;
 mod cold_junction_live;
+mod contract;
 mod daemon;
 mod demo;
 mod diagnostics_live;
 mod link;
+mod mqtt5;
 mod no_panic;
 mod spool;
 mod tls;

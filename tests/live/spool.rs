@@ -35,6 +35,11 @@ struct Rig {
 
 impl Rig {
     fn new(name: &str, store: &str) -> Rig {
+        Self::speaking(name, store, "3.1.1")
+    }
+
+    /// [`Rig::new`] with the daemon speaking MQTT `protocol`.
+    fn speaking(name: &str, store: &str, protocol: &str) -> Rig {
         let dir = temp_dir(name);
         let port = free_port();
         let broker = Broker::start(port, &dir);
@@ -50,7 +55,11 @@ impl Rig {
                 l => l.to_string(),
             })
             .collect::<Vec<_>>()
-            .join("\n");
+            .join("\n")
+            .replace(
+                "topic_root = \"wf\"",
+                &format!("topic_root = \"wf\"\nprotocol = \"{protocol}\""),
+            );
         text += &format!(
             "\n[[alarm]]\nname = \"p0-hot\"\nchannel = \"p0\"\nquantity = \"celsius\"\nkind = \"high\"\nsetpoint = 850.0\ndeadband = 5.0\non_delay_s = 0.0\npriority = \"medium\"\n\n{store}\n"
         );
@@ -181,7 +190,20 @@ fn drained(rig: &Rig) {
 /// exactly the events the subscriber received.
 #[test]
 fn events_of_an_outage_survive_a_kill_and_arrive_once_in_order() {
-    let rig = Rig::new("spool-outage", "");
+    outage_and_kill(Rig::new("spool-outage", ""));
+}
+
+/// The same over MQTT 5 (mosquitto: the embedded broker speaks 3.1.1).
+#[test]
+fn over_mqtt_5_too_events_of_an_outage_survive_a_kill() {
+    if Broker::kind() != "mosquitto" {
+        eprintln!("skipped: needs WALLFLUX_TEST_BROKER=mosquitto (CI runs it)");
+        return;
+    }
+    outage_and_kill(Rig::speaking("spool-outage-5", "", "5"));
+}
+
+fn outage_and_kill(rig: Rig) {
     let d = rig.daemon("d1.log");
     let live = rig.raise_events(0, 2);
     for e in &live {

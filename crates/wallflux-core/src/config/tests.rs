@@ -225,6 +225,65 @@ fn bad_values_are_refused() {
     }
 }
 
+/// Every name that becomes an MQTT topic level (plant, kiln, zone,
+/// channel, alarm) is refused when a broker would read it otherwise: a
+/// wildcard (`+`, `#`), a level separator, NUL, a leading `$` (the
+/// broker's own topics) or nothing at all; so is a `topic_root` with NUL or
+/// empty. Each with its key path and line.
+#[test]
+fn names_in_topics_cannot_break_a_topic() {
+    let names = [
+        ("plant = \"example-plant\"", "plant", "site.plant"),
+        ("kiln = \"kiln-3\"", "kiln", "site.kiln"),
+        ("name = \"north-wall\"", "name", "zone[0].name"),
+        ("name = \"w1-40\"", "name", "channel[0].name"),
+        ("name = \"north-wall-loss-high\"", "name", "alarm[0].name"),
+    ];
+    // As written in TOML: `\u0000` is the escape of NUL.
+    let bad = ["a+b", "a#b", "a/b", "a\\u0000b", "$SYS", "", "+", "#"];
+    for (from, key, path) in names {
+        assert!(EXAMPLE.contains(from), "{from}");
+        for value in bad {
+            let text = EXAMPLE.replacen(from, &format!("{key} = \"{value}\""), 1);
+            let p = problems(&text);
+            assert!(
+                p.iter().any(|x| x.path == path
+                    && x.line.is_some()
+                    && x.message.contains("names appear in MQTT topics")),
+                "{path} = {value:?}: {p:#?}"
+            );
+        }
+    }
+    for value in ["", "wall\\u0000flux", "$share/x", "a/+/b"] {
+        let text = EXAMPLE.replacen(
+            "topic_root = \"wallflux\"",
+            &format!("topic_root = \"{value}\""),
+            1,
+        );
+        let p = problems(&text);
+        assert!(
+            p.iter()
+                .any(|x| x.path == "mqtt.topic_root" && x.line.is_some()),
+            "topic_root = {value:?}: {p:#?}"
+        );
+    }
+    // What the shipped files name is a valid topic level, the built-in
+    // alarms' names (made of configured names) too.
+    let level_ok =
+        |n: &str| !n.is_empty() && !n.starts_with('$') && !n.contains(['+', '#', '/', '\0']);
+    for (text, file) in [(EXAMPLE, "example.toml"), (DEMO, "demo.toml")] {
+        let s = parse(text, file, None).unwrap();
+        let levels = [s.site.plant.as_str(), s.site.kiln.as_str()]
+            .into_iter()
+            .chain(s.zones.iter().map(|z| z.name.as_str()))
+            .chain(s.channels.iter().map(|c| c.name.as_str()))
+            .chain(s.alarms.iter().map(|a| a.name.as_str()));
+        for n in levels {
+            assert!(level_ok(n), "{file}: {n:?}");
+        }
+    }
+}
+
 #[test]
 fn not_toml_is_an_error_with_a_line() {
     let p = problems("[site]\nplant = \"a\"\nkiln = \n");
@@ -1164,4 +1223,42 @@ fn mqtt_tls_is_read_and_checked() {
                 && p.message.contains("no effect")),
         "{w:#?}"
     );
+}
+
+/// `[mqtt] protocol`: 3.1.1 unless "5" is asked for; another word is
+/// refused with the choices; `[store]` bounds are checked.
+#[test]
+fn the_mqtt_version_and_the_store_bounds_are_read_and_checked() {
+    let with =
+        |keys: &str| EXAMPLE.replace("keep_alive_s = 30", &format!("keep_alive_s = 30\n{keys}"));
+    assert_eq!(
+        parse(EXAMPLE, "t.toml", None).unwrap().mqtt.protocol,
+        MqttProtocol::V311
+    );
+    assert_eq!(
+        parse(&with("protocol = \"5\""), "t.toml", None)
+            .unwrap()
+            .mqtt
+            .protocol,
+        MqttProtocol::V5
+    );
+    let p = problems(&with("protocol = \"4\""));
+    assert_eq!(p.len(), 1, "{p:?}");
+    assert_eq!(p[0].path, "mqtt.protocol");
+    assert!(p[0].message.contains("use 3.1.1 or 5"), "{}", p[0].message);
+
+    let store = |keys: &str| format!("{EXAMPLE}\n[store]\n{keys}\n");
+    let s = parse(&store("spool_max_mb = 8\nhistory_days = 0"), "t.toml", None).unwrap();
+    assert_eq!((s.store.spool_max_mb, s.store.history_days), (8.0, 0.0));
+    assert_eq!(s.store.spool_max_age_h, DEFAULT_SPOOL_MAX_AGE_H);
+    for (keys, path) in [
+        ("spool_max_mb = 0.001", "store.spool_max_mb"),
+        ("spool_max_mb = -1", "store.spool_max_mb"),
+        ("spool_max_age_h = 0", "store.spool_max_age_h"),
+        ("history_days = -2", "store.history_days"),
+        ("history_days = 5000", "store.history_days"),
+    ] {
+        let p = problems(&store(keys));
+        assert!(p.iter().any(|p| p.path == path), "{keys}: {p:?}");
+    }
 }
