@@ -340,6 +340,132 @@ mod tests {
         })
     }
 
+    /// A real client whose event loop is not polled: what `hand` gives it
+    /// waits in its request channel, in order.
+    fn client() -> (WireClient, rumqttc::EventLoop) {
+        let (c, ev) = rumqttc::AsyncClient::new(rumqttc::MqttOptions::new("t", "127.0.0.1", 1), 64);
+        (WireClient::V4(c), ev)
+    }
+
+    fn store(name: &str) -> Arc<Mutex<Store>> {
+        let d = std::env::temp_dir().join(format!("wallflux-flight-{name}-{}", std::process::id()));
+        let _ = std::fs::remove_dir_all(&d);
+        let (s, _) = Store::open(&d, crate::config::StoreSettings::default()).unwrap();
+        Arc::new(Mutex::new(s))
+    }
+
+    fn t(s: f64) -> crate::time::Timestamp {
+        crate::time::Timestamp::from_epoch_s(1.78e9 + s)
+    }
+
+    #[test]
+    fn live_events_and_states_go_in_the_monitor_s_order() {
+        let (client, _ev) = client();
+        let store = store("order");
+        let q = Queue::new(8);
+        let health = LinkHealth::default();
+        let flight = Mutex::new(Flight::new(0));
+        // The monitor gave: state A, event 1, state B (after event 1).
+        let seq = {
+            let mut s = store.lock().unwrap();
+            let seq = s.spool(t(0.0), "r/events", b"{\"n\":1}", false).unwrap();
+            s.commit().unwrap();
+            seq
+        };
+        let mut a = match state("z/a", 1) {
+            Tag::Message(m) => m,
+            _ => unreachable!(),
+        };
+        a.after = 0;
+        let mut b = a.clone();
+        b.topic = "z/b".into();
+        b.after = seq;
+        q.push(a);
+        q.push(b);
+        let mut order = Vec::new();
+        while hand(&flight, true, &client, &q, Some(&store), &health) == Handed::One {
+            let f = flight.lock().unwrap();
+            order.push(match &f.handed.back().unwrap().1 {
+                Tag::Message(m) => m.topic.clone(),
+                Tag::Event(s) => format!("event {s}"),
+                Tag::Status => "status".into(),
+            });
+        }
+        assert_eq!(
+            order,
+            ["z/a".to_string(), format!("event {seq}"), "z/b".to_string()]
+        );
+    }
+
+    #[test]
+    fn backfill_waits_for_its_pace_and_live_states_do_not() {
+        let (client, _ev) = client();
+        let store = store("pace");
+        {
+            let mut s = store.lock().unwrap();
+            for i in 0..3 {
+                s.spool(t(i as f64), "r/events", b"{}", true).unwrap();
+            }
+            s.commit().unwrap();
+        }
+        let q = Queue::new(8);
+        let health = LinkHealth::default();
+        let flight = Mutex::new(Flight::new(0));
+        assert_eq!(
+            hand(&flight, true, &client, &q, Some(&store), &health),
+            Handed::One
+        );
+        let gap = Duration::from_secs_f64(1.0 / BACKFILL_PER_S);
+        match hand(&flight, true, &client, &q, Some(&store), &health) {
+            Handed::Wait(d) => assert!(d > Duration::ZERO && d <= gap, "{d:?}"),
+            other => panic!("{other:?}"),
+        }
+        // A state meanwhile goes at once.
+        if let Tag::Message(m) = state("z/a", 1) {
+            q.push(m);
+        }
+        assert_eq!(
+            hand(&flight, true, &client, &q, Some(&store), &health),
+            Handed::One
+        );
+        std::thread::sleep(gap);
+        assert_eq!(
+            hand(&flight, true, &client, &q, Some(&store), &health),
+            Handed::One
+        );
+        assert_eq!(health.backfilled.load(Ordering::Relaxed), 2);
+        // Down: nothing handed; the window bounds what is out.
+        assert_eq!(
+            hand(&flight, false, &client, &q, Some(&store), &health),
+            Handed::Nothing
+        );
+    }
+
+    #[test]
+    fn the_window_bounds_what_is_handed_out() {
+        let (client, _ev) = client();
+        let q = Queue::new(2 * WINDOW);
+        let health = LinkHealth::default();
+        let flight = Mutex::new(Flight::new(0));
+        for i in 0..(WINDOW + 5) {
+            if let Tag::Message(m) = state(&format!("z/{i}"), 0) {
+                q.push(m);
+            }
+        }
+        let mut handed = 0;
+        while hand(&flight, true, &client, &q, None, &health) == Handed::One {
+            handed += 1;
+        }
+        assert_eq!(handed, WINDOW);
+        assert_eq!(
+            hand(&flight, true, &client, &q, None, &health),
+            Handed::Full
+        );
+        flight.lock().unwrap().written(1);
+        assert!(flight.lock().unwrap().acked(1));
+        assert_eq!(hand(&flight, true, &client, &q, None, &health), Handed::One);
+    }
+
     #[test]
     fn packet_ids_name_what_was_handed_in_order_and_a_drop_takes_all_back() {
         let q = Queue::new(8);
