@@ -282,6 +282,7 @@ fn a_full_spool_drops_the_oldest_events_and_says_so() {
     rig.proxy.up();
 
     let keys: Vec<String> = offline.iter().map(key).collect();
+    let mut first_zone: Option<serde_json::Value> = None;
     let mut notice = None;
     let mut got: Vec<serde_json::Value> = Vec::new();
     let deadline = Instant::now() + Duration::from_secs(60);
@@ -296,6 +297,9 @@ fn a_full_spool_drops_the_oldest_events_and_says_so() {
             .rx
             .recv_timeout(deadline.saturating_duration_since(Instant::now()))
             .unwrap_or_else(|_| panic!("got {} events, notice {notice:?}", got.len()));
+        if m.topic == format!("{ROOT}/zone/wall/state") && first_zone.is_none() {
+            first_zone = Some(m.json.clone());
+        }
         if m.topic != format!("{ROOT}/events") {
             continue;
         }
@@ -327,6 +331,16 @@ fn a_full_spool_drops_the_oldest_events_and_says_so() {
     let tail: Vec<String> = got.iter().map(key).collect();
     assert_eq!(tail, keys[dropped..dropped + tail.len()].to_vec());
     assert!(got.iter().all(|g| g["backfill"] == true));
+    // The first zone state after the outage is the newest one, not one
+    // queued at its start (states wait latest-wins; the older ones are in
+    // the history).
+    let zone = first_zone.expect("a zone state after the outage");
+    let last_event = offline.last().unwrap()["time"].as_str().unwrap().to_string();
+    assert!(
+        zone["time"].as_str().unwrap() >= last_event.as_str(),
+        "zone state of {} after events up to {last_event}",
+        zone["time"]
+    );
     // And the history still holds every one of them.
     let all: Vec<String> = rig.exported().iter().map(key).collect();
     assert!(keys.iter().all(|k| all.contains(k)));
