@@ -335,7 +335,10 @@ fn a_full_spool_drops_the_oldest_events_and_says_so() {
     // queued at its start (states wait latest-wins; the older ones are in
     // the history).
     let zone = first_zone.expect("a zone state after the outage");
-    let last_event = offline.last().unwrap()["time"].as_str().unwrap().to_string();
+    let last_event = offline.last().unwrap()["time"]
+        .as_str()
+        .unwrap()
+        .to_string();
     assert!(
         zone["time"].as_str().unwrap() >= last_event.as_str(),
         "zone state of {} after events up to {last_event}",
