@@ -59,11 +59,20 @@ fn summary(s: &crate::config::Settings, file: &str, warnings: usize) -> String {
     let _ = writeln!(o, "  state dir {}", s.state_dir.display());
     for (si, src) in s.sources.iter_ids() {
         let n = s.channels.iter().filter(|c| c.source == si).count();
-        let _ = writeln!(
-            o,
-            "  source    {:<16} line protocol on {} at {} baud, {} channels",
-            src.name, src.port, src.baud, n
-        );
+        let what = match &src.bus {
+            Some(b) => format!(
+                "Modbus RTU on {} at {} baud, parity {}, {} stop bit(s), a poll every {} ms (timeout {} ms, {} retries)",
+                src.port,
+                src.baud,
+                b.parity.name(),
+                b.stop_bits,
+                b.poll_ms,
+                b.timeout_ms,
+                b.retries
+            ),
+            None => format!("line protocol on {} at {} baud", src.port, src.baud),
+        };
+        let _ = writeln!(o, "  source    {:<16} {what}, {n} channels", src.name);
     }
     for z in &s.zones {
         let layers: Vec<String> = z
@@ -89,15 +98,24 @@ fn summary(s: &crate::config::Settings, file: &str, warnings: usize) -> String {
         );
         for p in &z.probes {
             let c = &s.channels[p.channel];
+            let at = match &c.point {
+                Some(pt) => format!(
+                    "unit {} {} register {} ({})",
+                    pt.unit,
+                    pt.function.name(),
+                    pt.address,
+                    pt.data_type.name()
+                ),
+                None => format!("input {}", c.input),
+            };
             let _ = writeln!(
                 o,
-                "    probe   {:<16} {:>6.1} mm  type {} {} on {} input {}",
+                "    probe   {:<16} {:>6.1} mm  type {} {} on {} {at}",
                 c.name,
                 p.depth_m * 1000.0,
                 c.tc_type.letter(),
                 c.signal.name(),
                 s.sources[c.source].name,
-                c.input
             );
         }
     }

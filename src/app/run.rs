@@ -18,14 +18,17 @@ use tracing::{info, warn};
 use super::clock::Clock;
 use super::record::Recorder;
 use super::state;
+use crate::acquire::modbus;
 use crate::acquire::serial::{self, Delivery, FromSource, SourceHealth};
 use crate::config::Settings;
+use crate::config::{Signal, SourceKind};
 use crate::monitor::alarm::AlarmFlags;
 use crate::monitor::command::CommandError;
 use crate::monitor::energy::EnergyTotals;
 use crate::monitor::output::{LinkStatus, Output, StatusReport};
 use crate::monitor::zone::ZoneReport;
 use crate::monitor::Monitor;
+use crate::protocol::scan::Unit;
 use crate::publish::log::Logger;
 use crate::publish::mqtt::{self, LinkHealth, Outbound};
 use crate::publish::queue::{Kind, Message, Queue};
@@ -142,18 +145,49 @@ pub async fn run_recording(
     let (tx, mut rx) = mpsc::channel(256);
     let mut source_health = Vec::new();
     let mut source_tasks = Vec::new();
+    let mut bus_stats = Vec::new();
     for (i, s) in settings.sources.iter_ids() {
         let h = Arc::new(SourceHealth::default());
         source_health.push(h.clone());
-        source_tasks.push(tokio::spawn(serial::run(
-            i,
-            s.clone(),
-            tx.clone(),
-            h,
-            clock,
-            stop_rx.clone(),
-        )));
+        let stats = Arc::new(modbus::BusStats::default());
+        bus_stats.push(stats.clone());
+        let task = match s.kind {
+            SourceKind::Line => tokio::spawn(serial::run(
+                i,
+                s.clone(),
+                tx.clone(),
+                h,
+                clock,
+                stop_rx.clone(),
+            )),
+            SourceKind::ModbusRtu => {
+                let points = settings
+                    .channels
+                    .iter()
+                    .filter(|c| c.source == i)
+                    .filter_map(|c| {
+                        let unit = match c.signal {
+                            Signal::Celsius => Unit::Celsius,
+                            Signal::Millivolts => Unit::Millivolts,
+                        };
+                        Some((c.input, c.point.clone()?, unit))
+                    })
+                    .collect();
+                tokio::spawn(modbus::run(
+                    i,
+                    s.clone(),
+                    points,
+                    tx.clone(),
+                    h,
+                    stats,
+                    clock,
+                    stop_rx.clone(),
+                ))
+            }
+        };
+        source_tasks.push(task);
     }
+    engine.bus_stats = bus_stats;
     drop(tx);
 
     info!(
@@ -295,6 +329,8 @@ struct Engine {
     respond_to: Option<(String, Vec<u8>)>,
     /// MQTT 5: how long the broker keeps a retained measurement, s.
     state_expiry_s: u32,
+    /// Each source's Modbus unit counters (empty for a line source).
+    bus_stats: Vec<Arc<modbus::BusStats>>,
     clock: Clock,
 }
 
@@ -348,6 +384,7 @@ impl Engine {
             energy_file_gone: false,
             respond_to: None,
             state_expiry_s: expiry,
+            bus_stats: Vec::new(),
             clock,
         }
     }
@@ -634,9 +671,39 @@ impl Engine {
     /// and the queue's counters, the program's version.
     fn edge_status(&self, s: &mut StatusReport, sources: &[Arc<SourceHealth>], link: &LinkHealth) {
         let r = Ordering::Relaxed;
-        for (st, h) in s.sources.iter_mut().zip(sources) {
+        for (i, (st, h)) in s.sources.iter_mut().zip(sources).enumerate() {
             st.open = Some(h.open.load(r));
             st.reopens = Some(h.opens.load(r).saturating_sub(1));
+            let Some(bus) = self.bus_stats.get(i) else {
+                continue;
+            };
+            let units = bus.units.lock().unwrap_or_else(|e| e.into_inner());
+            if units.is_empty() {
+                continue;
+            }
+            st.units = Some(
+                units
+                    .iter()
+                    .map(|(&unit, u)| crate::monitor::output::UnitStatus {
+                        answers: u.answers,
+                        bad_frames: u.bad_frames,
+                        crc_errors: u.crc_errors,
+                        exceptions: u
+                            .exceptions
+                            .iter()
+                            .map(|(&code, &count)| crate::monitor::output::ExceptionCount {
+                                code,
+                                count,
+                            })
+                            .collect(),
+                        last_answer: u.last_answer,
+                        requests: u.requests,
+                        silent: u.silent,
+                        timeouts: u.timeouts,
+                        unit,
+                    })
+                    .collect(),
+            );
         }
         let q = &self.queue;
         let spool = self

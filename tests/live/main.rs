@@ -17,6 +17,7 @@ mod daemon;
 mod demo;
 mod diagnostics_live;
 mod link;
+mod modbus;
 mod mqtt5;
 mod no_panic;
 mod spool;

@@ -373,7 +373,34 @@ crate::word_enum! {
     pub enum SourceKind {
         /// Line protocol v1 over a serial port.
         Line = "line",
+        /// Modbus RTU input modules on an RS-485 bus.
+        ModbusRtu = "modbus-rtu",
     }
+}
+
+crate::word_enum! {
+    /// A serial line's parity (`[[source]] parity`).
+    #[derive(Debug, Clone, Copy, PartialEq, Eq)]
+    pub enum Parity {
+        None = "none",
+        Even = "even",
+        Odd = "odd",
+    }
+}
+
+/// How a Modbus RTU bus is driven (`kind = "modbus-rtu"`).
+#[derive(Debug, Clone, PartialEq)]
+pub struct ModbusBus {
+    pub parity: Parity,
+    pub stop_bits: u8,
+    /// One poll of every unit this often, ms.
+    pub poll_ms: u64,
+    /// A reply not complete this long after its request is a timeout, ms.
+    pub timeout_ms: u64,
+    /// Tries after the first before a unit is judged silent for this poll.
+    pub retries: u32,
+    /// The silence between frames, µs (3.5 characters unless set).
+    pub inter_frame_us: u32,
 }
 
 #[derive(Debug, Clone)]
@@ -391,6 +418,8 @@ pub struct Source {
     pub cj_channel: Option<ChannelId>,
     /// No valid frame for this long: the source is reported silent.
     pub silence_s: f64,
+    /// The bus settings of a `modbus-rtu` source.
+    pub bus: Option<ModbusBus>,
 }
 
 crate::word_enum! {
@@ -409,8 +438,11 @@ pub struct Channel {
     pub name: Name,
     /// The source the channel is read from.
     pub source: SourceId,
-    /// Input number on the source, 1..=64.
+    /// Input number on the source, 1..=64 (on a Modbus source, the
+    /// channel's place among the source's channels, given by validation).
     pub input: u8,
+    /// How a channel of a `modbus-rtu` source is read.
+    pub point: Option<crate::protocol::modbus::Point>,
     pub tc_type: TcType,
     pub signal: Signal,
     pub tolerance: ToleranceClass,

@@ -126,13 +126,27 @@ pub struct RawSource {
     pub cj_c: Option<S<f64>>,
     pub cj_channel: Option<S<String>>,
     pub silence_s: Option<S<f64>>,
+    pub parity: Option<S<String>>,
+    pub stop_bits: Option<S<i64>>,
+    pub poll_ms: Option<S<f64>>,
+    pub timeout_ms: Option<S<f64>>,
+    pub retries: Option<S<i64>>,
+    pub inter_frame_ms: Option<S<f64>>,
 }
 
 #[derive(Debug, Deserialize)]
 pub struct RawChannel {
     pub name: S<String>,
     pub source: S<String>,
-    pub input: S<i64>,
+    pub input: Option<S<i64>>,
+    pub unit_id: Option<S<i64>>,
+    pub function: Option<S<String>>,
+    pub address: Option<S<i64>>,
+    pub data_type: Option<S<String>>,
+    pub word_order: Option<S<String>>,
+    pub scale: Option<S<f64>>,
+    pub offset: Option<S<f64>>,
+    pub open_values: Option<S<Vec<S<f64>>>>,
     #[serde(rename = "type")]
     pub tc_type: S<String>,
     pub signal: Option<S<String>>,

@@ -3,9 +3,11 @@
 
 use super::*;
 use crate::physics::material::MAX_TABLE_POINTS;
+use crate::protocol::modbus::{DataType, Function, WordOrder};
 
 const EXAMPLE: &str = include_str!("../../../../config/example.toml");
 const DEMO: &str = include_str!("../../../../config/demo.toml");
+const EXAMPLE_MODBUS: &str = include_str!("../../../../config/example-modbus.toml");
 
 fn problems(text: &str) -> Vec<Problem> {
     match parse(text, "t.toml", None) {
@@ -734,7 +736,7 @@ fn a_misspelt_word_is_refused_listing_the_words_of_its_table() {
             "kind = \"line\"",
             "kind = \"serial\"",
             "source[0].kind",
-            "line",
+            "line or modbus-rtu",
         ),
         (
             "signal = \"celsius\"",
@@ -1261,4 +1263,229 @@ fn the_mqtt_version_and_the_store_bounds_are_read_and_checked() {
         let p = problems(&store(keys));
         assert!(p.iter().any(|p| p.path == path), "{keys}: {p:?}");
     }
+}
+
+/// A Modbus RTU source and its channels: read with their defaults and
+/// their places as inputs; every key in the wrong place refused, naming
+/// why.
+#[test]
+fn modbus_sources_and_channels_are_read_and_checked() {
+    let base = r#"
+[site]
+plant = "p"
+kiln = "k"
+
+[mqtt]
+host = "127.0.0.1"
+
+[[source]]
+name = "bus"
+kind = "modbus-rtu"
+port = "/dev/ttyUSB0"
+baud = 9600
+parity = "even"
+
+[[source]]
+name = "box"
+kind = "line"
+port = "/dev/ttyUSB1"
+
+[[channel]]
+name = "a"
+source = "bus"
+unit_id = 3
+address = 0
+scale = 0.1
+type = "K"
+
+[[channel]]
+name = "b"
+source = "bus"
+unit_id = 4
+function = "holding"
+address = 2
+data_type = "f32"
+word_order = "low_first"
+open_values = [-9999.0]
+type = "K"
+
+[[channel]]
+name = "c"
+source = "box"
+input = 1
+type = "K"
+
+[[material]]
+name = "m"
+conductivity_w_mk = 1.0
+density_kg_m3 = 2000.0
+specific_heat_j_kgk = 1000.0
+
+[[zone]]
+name = "z"
+area_m2 = 1.0
+model = "quadratic"
+interval_s = 10.0
+layers = [{ material = "m", thickness_mm = 200.0 }]
+probes = [{ channel = "a", depth_mm = 20.0 }, { channel = "b", depth_mm = 100.0 }, { channel = "c", depth_mm = 200.0 }]
+"#;
+    let s = parse(base, "t.toml", None).unwrap();
+    let bus = &s.sources[s.source_named("bus").unwrap()];
+    let b = bus.bus.as_ref().unwrap();
+    assert_eq!(
+        (b.parity, b.stop_bits, b.poll_ms, b.timeout_ms, b.retries),
+        (Parity::Even, 1, 1000, 300, 1)
+    );
+    // 3.5 characters of 11 bits at 9600 baud: 4.0104 ms.
+    assert_eq!(b.inter_frame_us, 4011);
+    let a = &s.channels[s.channel_named("a").unwrap()];
+    let pa = a.point.as_ref().unwrap();
+    assert_eq!(
+        (
+            a.input,
+            pa.unit,
+            pa.function,
+            pa.address,
+            pa.data_type,
+            pa.scale
+        ),
+        (1, 3, Function::Input, 0, DataType::I16, 0.1)
+    );
+    let bch = &s.channels[s.channel_named("b").unwrap()];
+    let pb = bch.point.as_ref().unwrap();
+    assert_eq!(
+        (bch.input, pb.function, pb.data_type, pb.word_order),
+        (2, Function::Holding, DataType::F32, WordOrder::LowFirst)
+    );
+    assert_eq!(pb.open_values.as_slice(), &[-9999.0]);
+    assert!(s.channels[s.channel_named("c").unwrap()].point.is_none());
+    assert!(s.sources[s.source_named("box").unwrap()].bus.is_none());
+
+    for (from, to, path, words) in [
+        (
+            "unit_id = 3\n",
+            "unit_id = 3\ninput = 4\n",
+            "channel[0].input",
+            "not input",
+        ),
+        (
+            "input = 1\n",
+            "input = 1\nunit_id = 2\n",
+            "channel[2].unit_id",
+            "line source",
+        ),
+        ("unit_id = 3\n", "", "channel[0].unit_id", "is missing"),
+        (
+            "unit_id = 3\n",
+            "unit_id = 248\n",
+            "channel[0].unit_id",
+            "1 to 247",
+        ),
+        (
+            "address = 0\nscale",
+            "scale",
+            "channel[0].address",
+            "is missing",
+        ),
+        (
+            "address = 0\nscale",
+            "address = 70000\nscale",
+            "channel[0].address",
+            "30001 or 40001 is address 0",
+        ),
+        ("scale = 0.1", "scale = 0.0", "channel[0].scale", "not be 0"),
+        (
+            "scale = 0.1",
+            "scale = 0.1\nword_order = \"low_first\"",
+            "channel[0].word_order",
+            "32-bit",
+        ),
+        (
+            "data_type = \"f32\"",
+            "data_type = \"f64\"",
+            "channel[1].data_type",
+            "i16, u16, i32, u32 or f32",
+        ),
+        (
+            "parity = \"even\"",
+            "parity = \"mark\"",
+            "source[0].parity",
+            "none, even or odd",
+        ),
+        (
+            "parity = \"even\"",
+            "parity = \"even\"\ninter_frame_ms = 1.0",
+            "source[0].inter_frame_ms",
+            "3.5-character",
+        ),
+        (
+            "port = \"/dev/ttyUSB1\"",
+            "port = \"/dev/ttyUSB1\"\npoll_ms = 100",
+            "source[1].poll_ms",
+            "modbus-rtu",
+        ),
+        (
+            "address = 2\n",
+            "address = 0\n",
+            "channel[1].address",
+            "already read",
+        ),
+    ] {
+        assert!(base.contains(from), "{from}");
+        let text = base.replacen(from, to, 1);
+        let text = if from == "address = 2\n" {
+            text.replacen("unit_id = 4", "unit_id = 3", 1).replacen(
+                "function = \"holding\"\n",
+                "",
+                1,
+            )
+        } else {
+            text
+        };
+        let p = problems(&text);
+        assert!(
+            p.iter()
+                .any(|x| x.path == path && x.message.contains(words)),
+            "{to}: {path} should say {words:?}: {p:#?}"
+        );
+    }
+    // A manual's register number is a warning, not an error.
+    let w = parse(
+        &base.replacen("address = 0\nscale", "address = 30001\nscale", 1),
+        "t.toml",
+        None,
+    )
+    .unwrap();
+    assert!(
+        w.warnings
+            .iter()
+            .any(|x| x.path == "channel[0].address"
+                && x.message.contains("register 30001 is address 0")),
+        "{:?}",
+        w.warnings
+    );
+}
+
+/// The Modbus example loads without a warning, its two module layouts as
+/// its comments say.
+#[test]
+fn the_modbus_example_loads_as_it_says() {
+    let s = parse(EXAMPLE_MODBUS, "example-modbus.toml", None).unwrap();
+    assert!(s.warnings.is_empty(), "{:?}", s.warnings);
+    let points: Vec<_> = s
+        .channels
+        .iter()
+        .map(|c| c.point.clone().unwrap())
+        .collect();
+    assert!(points[..4].iter().enumerate().all(|(i, p)| p.unit == 1
+        && p.function == Function::Input
+        && p.address == i as u16
+        && p.data_type == DataType::I16
+        && p.scale == 0.1
+        && p.open_values.as_slice() == [32767.0]));
+    assert!(points[4..].iter().enumerate().all(|(i, p)| p.unit == 2
+        && p.function == Function::Holding
+        && p.address == 2 * i as u16
+        && p.data_type == DataType::F32
+        && p.word_order == WordOrder::LowFirst));
 }

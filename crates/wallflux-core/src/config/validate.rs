@@ -604,13 +604,62 @@ impl Validator<'_> {
             .map(|(c, r)| (c.name.clone(), r.get_ref().name.span()))
             .collect();
         self.unique(&names, "channel");
+        // A Modbus channel's input is its place on its source, 1..=64.
+        let mut on_bus: Vec<u16> = vec![0; sources.len()];
+        for (i, c) in channels.iter_mut().enumerate() {
+            if c.point.is_none() {
+                continue;
+            }
+            let n = &mut on_bus[c.source.index()];
+            *n += 1;
+            c.input = u8::try_from(*n).unwrap_or(0);
+            if *n > MAX_INPUT as u16 {
+                self.problem(
+                    raw.channel[i].get_ref().name.span(),
+                    format!("channel[{i}].source"),
+                    format!("a Modbus source reads at most {MAX_INPUT} channels"),
+                );
+            }
+        }
         for (i, c) in channels.iter().enumerate() {
+            let Some(pt) = &c.point else { continue };
+            let same = channels.as_slice()[..i].iter().position(|d| {
+                d.source == c.source
+                    && d.point.as_ref().is_some_and(|q| {
+                        q.unit == pt.unit && q.function == pt.function && q.address == pt.address
+                    })
+            });
+            if let Some(first) = same {
+                let r = raw.channel[i].get_ref();
+                self.problem(
+                    r.address
+                        .as_ref()
+                        .map(|a| a.span())
+                        .unwrap_or_else(|| r.name.span()),
+                    format!("channel[{i}].address"),
+                    format!(
+                        "unit {} {} register {} is already read by channel[{first}] ({:?})",
+                        pt.unit,
+                        pt.function.name(),
+                        pt.address,
+                        channels.as_slice()[first].name
+                    ),
+                );
+            }
+        }
+        for (i, c) in channels.iter().enumerate() {
+            if c.point.is_some() {
+                continue;
+            }
             if let Some(first) = channels.as_slice()[..i].iter().position(|d| {
                 d.source == c.source && d.input == c.input && sources.get(c.source).is_some()
             }) {
                 let r = raw.channel[i].get_ref();
                 self.problem(
-                    r.input.span(),
+                    r.input
+                        .as_ref()
+                        .map(|n| n.span())
+                        .unwrap_or_else(|| r.name.span()),
                     format!("channel[{i}].input"),
                     format!(
                         "input {} of source {:?} is already read by channel[{first}] ({:?})",
@@ -1482,19 +1531,7 @@ impl Validator<'_> {
     fn source(&mut self, i: usize, s: &RawSource) -> Source {
         let p = |k: &str| format!("source[{i}].{k}");
         let name = self.name(&s.name, &p("name"));
-        let kind = if s.kind.get_ref() == "modbus-rtu" {
-            self.problem(
-                s.kind.span(),
-                p("kind"),
-                format!(
-                    "\"modbus-rtu\" is not supported by this version yet; use {}",
-                    SourceKind::choices()
-                ),
-            );
-            SourceKind::Line
-        } else {
-            self.word(&s.kind, &p("kind"), "a source kind", SourceKind::Line)
-        };
+        let kind = self.word(&s.kind, &p("kind"), "a source kind", SourceKind::Line);
         if s.port.get_ref().is_empty() {
             self.problem(
                 s.port.span(),
@@ -1528,6 +1565,7 @@ impl Validator<'_> {
         let silence_s = s.silence_s.as_ref().map_or(10.0, |v| {
             self.within(v, &p("silence_s"), 0.1, MAX_DELAY_S, "seconds")
         });
+        let bus = self.bus(i, s, kind, baud);
         Source {
             name,
             kind,
@@ -1536,7 +1574,233 @@ impl Validator<'_> {
             cj_c,
             cj_channel: None,
             silence_s,
+            bus,
         }
+    }
+
+    /// A Modbus source's bus keys (refused on a line source).
+    fn bus(&mut self, i: usize, s: &RawSource, kind: SourceKind, baud: u32) -> Option<ModbusBus> {
+        let p = |k: &str| format!("source[{i}].{k}");
+        if kind != SourceKind::ModbusRtu {
+            let given = [
+                ("parity", s.parity.as_ref().map(|v| v.span())),
+                ("stop_bits", s.stop_bits.as_ref().map(|v| v.span())),
+                ("poll_ms", s.poll_ms.as_ref().map(|v| v.span())),
+                ("timeout_ms", s.timeout_ms.as_ref().map(|v| v.span())),
+                ("retries", s.retries.as_ref().map(|v| v.span())),
+                (
+                    "inter_frame_ms",
+                    s.inter_frame_ms.as_ref().map(|v| v.span()),
+                ),
+            ];
+            for (k, span) in given {
+                if let Some(span) = span {
+                    self.problem(span, p(k), "is a key of a kind = \"modbus-rtu\" source");
+                }
+            }
+            return None;
+        }
+        let parity = self.word_or(s.parity.as_ref(), &p("parity"), "a parity", Parity::None);
+        let stop_bits = match &s.stop_bits {
+            Some(b) if matches!(b.get_ref(), 1 | 2) => *b.get_ref() as u8,
+            Some(b) => {
+                self.problem(b.span(), p("stop_bits"), "must be 1 or 2");
+                1
+            }
+            None => 1,
+        };
+        let ms = |this: &mut Self, v: &Option<Spanned<f64>>, k: &str, lo: f64, hi: f64, d: f64| {
+            v.as_ref()
+                .map_or(d, |v| this.within(v, &p(k), lo, hi, "ms"))
+        };
+        let poll_ms = ms(self, &s.poll_ms, "poll_ms", 50.0, 3_600_000.0, 1000.0) as u64;
+        let timeout_ms = ms(self, &s.timeout_ms, "timeout_ms", 10.0, 10_000.0, 300.0) as u64;
+        let retries = match &s.retries {
+            Some(r) if (0..=5).contains(r.get_ref()) => *r.get_ref() as u32,
+            Some(r) => {
+                self.problem(r.span(), p("retries"), "must be 0 to 5");
+                1
+            }
+            None => 1,
+        };
+        let spec_us = crate::protocol::modbus::inter_frame_us(baud);
+        let inter_frame_us = match &s.inter_frame_ms {
+            Some(v) => {
+                let us = (self.within(v, &p("inter_frame_ms"), 0.0, 1000.0, "ms") * 1000.0).ceil()
+                    as u32;
+                if us < spec_us {
+                    self.problem(
+                        v.span(),
+                        p("inter_frame_ms"),
+                        format!(
+                            "must be at least the 3.5-character silence the Modbus serial line spec requires at {baud} baud, {:.2} ms",
+                            spec_us as f64 / 1000.0
+                        ),
+                    );
+                }
+                us.max(spec_us)
+            }
+            None => spec_us,
+        };
+        Some(ModbusBus {
+            parity,
+            stop_bits,
+            poll_ms,
+            timeout_ms,
+            retries,
+            inter_frame_us,
+        })
+    }
+
+    /// A channel's Modbus keys: read on a Modbus source, refused on a line
+    /// source.
+    fn point(
+        &mut self,
+        i: usize,
+        c: &RawChannel,
+        modbus: bool,
+    ) -> Option<crate::protocol::modbus::Point> {
+        use crate::protocol::modbus::{DataType, Function, Point, WordOrder};
+        let p = |k: &str| format!("channel[{i}].{k}");
+        if !modbus {
+            let given = [
+                ("unit_id", c.unit_id.as_ref().map(|v| v.span())),
+                ("function", c.function.as_ref().map(|v| v.span())),
+                ("address", c.address.as_ref().map(|v| v.span())),
+                ("data_type", c.data_type.as_ref().map(|v| v.span())),
+                ("word_order", c.word_order.as_ref().map(|v| v.span())),
+                ("scale", c.scale.as_ref().map(|v| v.span())),
+                ("offset", c.offset.as_ref().map(|v| v.span())),
+                ("open_values", c.open_values.as_ref().map(|v| v.span())),
+            ];
+            for (k, span) in given {
+                if let Some(span) = span {
+                    self.problem(
+                        span,
+                        p(k),
+                        format!("is a key of a channel on a kind = \"modbus-rtu\" source; source {:?} is a line source (its channels have input)", c.source.get_ref()),
+                    );
+                }
+            }
+            return None;
+        }
+        let unit = match &c.unit_id {
+            Some(u) if (1..=247).contains(u.get_ref()) => *u.get_ref() as u8,
+            Some(u) => {
+                self.problem(
+                    u.span(),
+                    p("unit_id"),
+                    format!("must be 1 to 247 (a slave address), got {}", u.get_ref()),
+                );
+                1
+            }
+            None => {
+                self.problem(
+                    c.name.span(),
+                    p("unit_id"),
+                    "is missing: the module's Modbus address, 1 to 247",
+                );
+                1
+            }
+        };
+        let function = self.word_or(
+            c.function.as_ref(),
+            &p("function"),
+            "a register kind",
+            Function::Input,
+        );
+        let data_type = self.word_or(
+            c.data_type.as_ref(),
+            &p("data_type"),
+            "a data type",
+            DataType::I16,
+        );
+        let word_order = self.word_or(
+            c.word_order.as_ref(),
+            &p("word_order"),
+            "a word order",
+            WordOrder::HighFirst,
+        );
+        if let (Some(w), 1) = (&c.word_order, data_type.registers()) {
+            self.problem(
+                w.span(),
+                p("word_order"),
+                "applies to 32-bit data types (i32, u32, f32) only",
+            );
+        }
+        let address = match &c.address {
+            Some(a) if (0..=65535 - data_type.registers() as i64 + 1).contains(a.get_ref()) => {
+                *a.get_ref() as u16
+            }
+            Some(a) => {
+                self.problem(
+                    a.span(),
+                    p("address"),
+                    format!("must be 0 to 65535, 0-based as on the wire (a manual's 30001 or 40001 is address 0), got {}", a.get_ref()),
+                );
+                0
+            }
+            None => {
+                self.problem(
+                    c.name.span(),
+                    p("address"),
+                    "is missing: the register's address, 0-based as on the wire",
+                );
+                0
+            }
+        };
+        if let Some(a) = &c.address {
+            let manual = match function {
+                Function::Input => 30_001..=39_999,
+                Function::Holding => 40_001..=49_999,
+            };
+            if manual.contains(a.get_ref()) {
+                self.warning(
+                    a.span(),
+                    p("address"),
+                    format!(
+                        "{} looks like a manual's register number, not an address on the wire: register {} is address {}",
+                        a.get_ref(),
+                        a.get_ref(),
+                        a.get_ref() - manual.start()
+                    ),
+                );
+            }
+        }
+        let scale = match &c.scale {
+            Some(v) => {
+                let x = self.finite(v, &p("scale"));
+                if x == 0.0 {
+                    self.problem(v.span(), p("scale"), "must not be 0");
+                }
+                x
+            }
+            None => 1.0,
+        };
+        let offset = c
+            .offset
+            .as_ref()
+            .map_or(0.0, |v| self.finite(v, &p("offset")));
+        let mut open_values = heapless::Vec::new();
+        if let Some(list) = &c.open_values {
+            for v in list.get_ref() {
+                let x = self.finite(v, &p("open_values"));
+                if open_values.push(x).is_err() {
+                    self.problem(v.span(), p("open_values"), "at most 4 values");
+                    break;
+                }
+            }
+        }
+        Some(Point {
+            unit,
+            function,
+            address,
+            data_type,
+            word_order,
+            scale,
+            offset,
+            open_values,
+        })
     }
 
     fn channel(&mut self, i: usize, c: &RawChannel, sources: &IdVec<SourceId, Source>) -> Channel {
@@ -1555,17 +1819,44 @@ impl Validator<'_> {
         };
         // Inputs are distinct per source (checked with the channels), so a
         // source has at most MAX_INPUT of them.
-        let input = match u8::try_from(*c.input.get_ref()) {
-            Ok(n @ 1..=MAX_INPUT) => n,
-            _ => {
+        let modbus = sources
+            .get(source)
+            .is_some_and(|s| s.kind == SourceKind::ModbusRtu);
+        let input = match (&c.input, modbus) {
+            (Some(n), false) => match u8::try_from(*n.get_ref()) {
+                Ok(v) if (1..=MAX_INPUT).contains(&v) => v,
+                _ => {
+                    self.problem(
+                        n.span(),
+                        p("input"),
+                        format!("must be 1 to {MAX_INPUT}, got {}", n.get_ref()),
+                    );
+                    0
+                }
+            },
+            (Some(n), true) => {
                 self.problem(
-                    c.input.span(),
+                    n.span(),
                     p("input"),
-                    format!("must be 1 to {MAX_INPUT}, got {}", c.input.get_ref()),
+                    format!(
+                        "source {:?} is a Modbus bus: a channel on it is read by unit_id, function and address, not input",
+                        c.source.get_ref()
+                    ),
                 );
                 0
             }
+            (None, false) if sources.get(source).is_some() => {
+                self.problem(
+                    c.name.span(),
+                    p("input"),
+                    "is missing: the input number on the source, 1 to 64",
+                );
+                0
+            }
+            // Given below, by the channel's place on its bus.
+            (None, _) => 0,
         };
+        let point = self.point(i, c, modbus);
         let terminal = c.tc_type.get_ref() == "terminal";
         let tc_type = match TcType::from_letter(c.tc_type.get_ref()) {
             // A terminal sensor has no thermocouple type (K only fills the field).
@@ -1649,6 +1940,7 @@ impl Validator<'_> {
             name,
             source,
             input,
+            point,
             tc_type,
             signal,
             tolerance,

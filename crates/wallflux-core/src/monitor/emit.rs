@@ -65,6 +65,7 @@ impl Monitor {
                 reopens: None,
                 silent: s.silent,
                 source: c.name.clone(),
+                units: None,
             })
             .collect();
         let status = StatusReport {

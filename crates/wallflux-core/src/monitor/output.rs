@@ -292,6 +292,33 @@ pub struct SourceStatus {
     pub reopens: Option<u64>,
     pub silent: bool,
     pub source: Name,
+    /// A Modbus source: each unit's counters, filled in by the edge.
+    #[serde(skip_serializing_if = "Option::is_none")]
+    pub units: Option<Vec<UnitStatus>>,
+}
+
+/// One Modbus unit's counters (`status`, under its source).
+#[derive(Debug, Clone, PartialEq, Serialize)]
+pub struct UnitStatus {
+    pub answers: u64,
+    /// Frames that were not the answer to their request (late, wrong
+    /// length).
+    pub bad_frames: u64,
+    pub crc_errors: u64,
+    /// Exception replies, by exception code.
+    pub exceptions: Vec<ExceptionCount>,
+    pub last_answer: Option<Timestamp>,
+    pub requests: u64,
+    pub silent: bool,
+    pub timeouts: u64,
+    pub unit: u8,
+}
+
+/// How many exception replies of one code a unit gave.
+#[derive(Debug, Clone, Copy, PartialEq, Serialize)]
+pub struct ExceptionCount {
+    pub code: u8,
+    pub count: u64,
 }
 
 /// The MQTT link's and hand-over queue's counters, filled in by the edge.
@@ -467,6 +494,7 @@ mod tests {
                 reopens: Some(0),
                 silent: false,
                 source: "box".try_into().unwrap(),
+                units: None,
             }],
             state: "online",
             time,

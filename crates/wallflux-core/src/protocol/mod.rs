@@ -2,4 +2,5 @@
 //! each decoder's frames turned into the input-neutral [`scan::Scan`] the
 //! monitor takes.
 pub mod line;
+pub mod modbus;
 pub mod scan;
