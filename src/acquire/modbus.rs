@@ -352,3 +352,123 @@ async fn wait_or_shutdown(d: Duration, shutdown: &mut watch::Receiver<bool>) -> 
         _ = shutdown.changed() => *shutdown.borrow(),
     }
 }
+
+/// `wallflux probe-modbus`: one read, printed raw and decoded; an error
+/// says what the unit did instead (no answer, an exception, a damaged
+/// frame).
+pub async fn probe(a: &crate::app::cli::ProbeModbusArgs) -> anyhow::Result<()> {
+    use crate::protocol::modbus::{DataType, Function, WordOrder};
+    use wallflux_core::words::Word;
+    let parity = Parity::from_word(&a.parity).unwrap_or(Parity::None);
+    let bus = ModbusBus {
+        parity,
+        stop_bits: a.stop_bits,
+        poll_ms: 1000,
+        timeout_ms: a.timeout_ms,
+        retries: 0,
+        inter_frame_us: modbus::inter_frame_us(a.baud),
+    };
+    let source = Source {
+        name: "probe"
+            .try_into()
+            .map_err(|_| anyhow::anyhow!("a source name"))?,
+        kind: crate::config::SourceKind::ModbusRtu,
+        port: a.port.clone(),
+        baud: a.baud,
+        cj_c: None,
+        cj_channel: None,
+        silence_s: 10.0,
+        bus: Some(bus.clone()),
+    };
+    let mut port = open(&source, &bus).map_err(|e| {
+        let hint = if e.to_string().contains("exclusive lock") {
+            " (another program, the daemon perhaps, has the port open)"
+        } else {
+            ""
+        };
+        anyhow::anyhow!("cannot open {}: {e}{hint}", a.port)
+    })?;
+    let function = Function::from_word(&a.function).unwrap_or(Function::Input);
+    let req = Request {
+        unit: a.unit,
+        function,
+        address: a.address,
+        count: a.count,
+        points: heapless::Vec::new(),
+    };
+    let regs = match transact(&mut port, &req, &bus).await? {
+        Outcome::Answer(r) => r,
+        Outcome::Timeout => anyhow::bail!(
+            "unit {} did not answer within {} ms (check its address, the baud rate, parity and the A/B wiring)",
+            a.unit,
+            a.timeout_ms
+        ),
+        Outcome::Fault(Fault::Exception(c)) => anyhow::bail!(
+            "unit {} answered with exception {c:02} ({})",
+            a.unit,
+            exception_words(c)
+        ),
+        Outcome::Fault(Fault::Crc) => anyhow::bail!("a damaged reply (CRC): check the wiring, termination and baud rate"),
+        Outcome::Fault(f) => anyhow::bail!(
+            "a reply that is not the answer ({}): another master on the bus, or a unit answering late",
+            match f {
+                Fault::Short => "cut short",
+                Fault::WrongLength => "of the wrong length",
+                _ => "from another unit or function",
+            }
+        ),
+    };
+    println!(
+        "unit {} {} registers {}..{} ({} registers):",
+        a.unit,
+        function.name(),
+        a.address,
+        a.address as u32 + a.count as u32 - 1,
+        a.count
+    );
+    println!("  address   hex      u16      i16");
+    for (i, r) in regs.iter().enumerate() {
+        println!(
+            "  {:>7}   0x{r:04X}  {r:>6}  {:>7}",
+            a.address as usize + i,
+            *r as i16
+        );
+    }
+    if let Some(dt) = a.data_type.as_deref().and_then(DataType::from_word) {
+        let order = WordOrder::from_word(&a.word_order).unwrap_or(WordOrder::HighFirst);
+        println!("  as {} ({}):", dt.name(), order.name());
+        let step = dt.registers() as usize;
+        for (i, chunk) in regs.chunks(step).enumerate() {
+            match modbus::decode(chunk, dt, order) {
+                Some(v) => println!(
+                    "  {:>7}   {}",
+                    a.address as usize + i * step,
+                    match v {
+                        modbus::Raw::Int(n) => n.to_string(),
+                        modbus::Raw::Float(f) => f.to_string(),
+                    }
+                ),
+                None => println!(
+                    "  {:>7}   (too few registers)",
+                    a.address as usize + i * step
+                ),
+            }
+        }
+    }
+    Ok(())
+}
+
+/// A Modbus exception code in words (application protocol spec, 7).
+fn exception_words(code: u8) -> &'static str {
+    match code {
+        1 => "illegal function: the unit has no such register kind",
+        2 => "illegal data address: no such register on the unit",
+        3 => "illegal data value",
+        4 => "server device failure",
+        5 => "acknowledge: busy with a long operation",
+        6 => "server device busy",
+        10 => "gateway path unavailable",
+        11 => "gateway target device failed to respond",
+        _ => "an exception code of the unit's own",
+    }
+}

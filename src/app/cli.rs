@@ -66,6 +66,9 @@ pub enum Command {
     },
     /// ITS-90 thermocouple conversion, for field checks with a calibrator.
     Tc(TcArgs),
+    /// Read registers of one Modbus RTU unit once and print them raw and
+    /// decoded, for commissioning a bus (not while the daemon has the port).
+    ProbeModbus(ProbeModbusArgs),
     /// Write out the history of the local database (zone states, kiln
     /// states, events) as CSV or JSON lines; works while the daemon runs.
     Export(ExportArgs),
@@ -105,6 +108,40 @@ fn parse_speed(s: &str) -> Result<f64, String> {
         )),
         Err(_) => Err(format!("{s:?} is not a number")),
     }
+}
+
+#[derive(Debug, Args)]
+pub struct ProbeModbusArgs {
+    /// The bus adapter, e.g. /dev/ttyUSB0.
+    #[arg(long)]
+    pub port: String,
+    #[arg(long, default_value_t = 9600)]
+    pub baud: u32,
+    /// none, even or odd.
+    #[arg(long, default_value = "none", value_parser = ["none", "even", "odd"])]
+    pub parity: String,
+    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u8).range(1..=2))]
+    pub stop_bits: u8,
+    /// The unit (slave) address, 1 to 247.
+    #[arg(long, value_parser = clap::value_parser!(u8).range(1..=247))]
+    pub unit: u8,
+    /// input (function code 04) or holding (03).
+    #[arg(long, default_value = "input", value_parser = ["input", "holding"])]
+    pub function: String,
+    /// The first register, 0-based as on the wire.
+    #[arg(long, default_value_t = 0)]
+    pub address: u16,
+    /// How many registers, 1 to 125.
+    #[arg(long, default_value_t = 1, value_parser = clap::value_parser!(u16).range(1..=125))]
+    pub count: u16,
+    /// Also decode the registers as this type: i16 u16 i32 u32 f32.
+    #[arg(long, value_parser = ["i16", "u16", "i32", "u32", "f32"])]
+    pub data_type: Option<String>,
+    /// For 32-bit types: high_first or low_first.
+    #[arg(long, default_value = "high_first", value_parser = ["high_first", "low_first"])]
+    pub word_order: String,
+    #[arg(long, default_value_t = 500)]
+    pub timeout_ms: u64,
 }
 
 #[derive(Debug, Args)]

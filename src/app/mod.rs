@@ -80,6 +80,9 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
         Command::Check { config, strict } => check::check(&config, strict),
         Command::Tc(args) => tc::tc(&args),
         Command::Export(args) => export(&args),
+        Command::ProbeModbus(args) => runtime()?
+            .block_on(crate::acquire::modbus::probe(&args))
+            .map_err(Failure::runtime),
         Command::Analyze {
             config,
             samples,

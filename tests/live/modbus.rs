@@ -308,3 +308,68 @@ fn a_bus_with_faulty_units_is_read_exactly_and_its_faults_counted() {
     );
     stop_daemon(daemon);
 }
+
+/// `wallflux probe-modbus` on the same slave: the registers raw and
+/// decoded; an exception and a unit that never answers said in words, with
+/// exit 1.
+#[test]
+fn probe_modbus_reads_a_unit_once() {
+    let pty = Pty::open().unwrap();
+    let path = pty.path.clone();
+    slave(pty, Arc::new(Seen::default()));
+    let probe = |args: &[&str]| {
+        let mut all = vec![
+            "probe-modbus",
+            "--port",
+            path.as_str(),
+            "--baud",
+            "19200",
+            "--timeout-ms",
+            "100",
+        ];
+        all.extend_from_slice(args);
+        run(&all)
+    };
+    let ok = probe(&[
+        "--unit",
+        "3",
+        "--address",
+        "0",
+        "--count",
+        "4",
+        "--data-type",
+        "i16",
+    ]);
+    assert_eq!(
+        ok.status.code(),
+        Some(0),
+        "{}",
+        String::from_utf8_lossy(&ok.stderr)
+    );
+    let out = String::from_utf8(ok.stdout).unwrap();
+    // 834.4 °C and 572.0 °C (20 and 100 mm deep) as 0.1 °C registers:
+    // 8344 = 0x2098, 5720 = 0x1658.
+    assert!(out.contains("0x2098") && out.contains("8344"), "{out}");
+    assert!(out.contains("0x1658") && out.contains("5720"), "{out}");
+    let f = probe(&[
+        "--unit",
+        "5",
+        "--function",
+        "holding",
+        "--count",
+        "4",
+        "--data-type",
+        "f32",
+        "--word-order",
+        "low_first",
+    ]);
+    let out = String::from_utf8(f.stdout).unwrap();
+    assert!(out.contains("1234.5") && out.contains("-12.25"), "{out}");
+    let ex = probe(&["--unit", "7"]);
+    assert_eq!(ex.status.code(), Some(1));
+    let err = String::from_utf8_lossy(&ex.stderr);
+    assert!(err.contains("exception 02 (illegal data address"), "{err}");
+    let none = probe(&["--unit", "9"]);
+    assert_eq!(none.status.code(), Some(1));
+    assert!(String::from_utf8_lossy(&none.stderr).contains("did not answer within 100 ms"));
+}
