@@ -64,9 +64,9 @@ const REQUEST_CAPACITY: usize = 64;
 /// The QoS of the `cmd` subscription: at most once (see the module doc).
 const CMD_QOS: QoS = QoS::AtMostOnce;
 /// Longest wait between reconnection attempts.
-const MAX_BACKOFF: Duration = Duration::from_secs(30);
+pub const MAX_BACKOFF: Duration = Duration::from_secs(30);
 /// While the broker stays away, a reminder this often.
-const REMIND_EVERY: Duration = Duration::from_secs(300);
+pub const REMIND_EVERY: Duration = Duration::from_secs(300);
 
 /// Link state shared with the status report and the tests.
 #[derive(Debug, Default)]
