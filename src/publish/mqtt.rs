@@ -258,6 +258,7 @@ pub async fn run(
         .and_then(|s| s.lock().unwrap_or_else(|e| e.into_inner()).last_seq().ok())
         .unwrap_or(0);
     let flight = Arc::new(Mutex::new(Flight::new(last_seq)));
+    let delete_lines = Arc::new(Mutex::new(Fold::default()));
 
     let sender = {
         let client = client.clone();
@@ -265,6 +266,7 @@ pub async fn run(
         let health = health.clone();
         let flight = flight.clone();
         let store = store.clone();
+        let delete_lines = delete_lines.clone();
         let mut up = up_rx;
         tokio::spawn(async move {
             loop {
@@ -277,7 +279,7 @@ pub async fn run(
                 let woken = queue.notified();
                 tokio::pin!(woken);
                 woken.as_mut().enable();
-                delete_acked(&flight, store.as_ref(), false);
+                delete_acked(&flight, store.as_ref(), false, &delete_lines);
                 let is_up = *up.borrow();
                 let wait = match hand(&flight, is_up, &client, &queue, store.as_ref(), &health) {
                     Handed::One => continue,
@@ -455,7 +457,7 @@ pub async fn run(
                 Ok(Err(_)) | Err(_) => break,
             }
         }
-        delete_acked(&flight, store.as_ref(), true);
+        delete_acked(&flight, store.as_ref(), true, &delete_lines);
         if disconnected {
             info!("MQTT status offline published; disconnected");
         } else {
@@ -465,7 +467,7 @@ pub async fn run(
             );
         }
     } else {
-        delete_acked(&flight, store.as_ref(), true);
+        delete_acked(&flight, store.as_ref(), true, &delete_lines);
         let spooled = store.as_ref().map_or(0, |s| {
             s.lock().unwrap_or_else(|e| e.into_inner()).stats().events
         });
@@ -512,8 +514,15 @@ fn take_all_back(
     f.take_back(queue);
 }
 
-/// Deletes the acknowledged events from the spool when a batch is due.
-fn delete_acked(flight: &Mutex<Flight>, store: Option<&Arc<Mutex<Store>>>, force: bool) {
+/// Deletes the acknowledged events from the spool when a batch is due; a
+/// failure is said at most once per fold window of `lines` (a full disk
+/// can fail every batch).
+fn delete_acked(
+    flight: &Mutex<Flight>,
+    store: Option<&Arc<Mutex<Store>>>,
+    force: bool,
+    lines: &Mutex<Fold>,
+) {
     let Some(store) = store else { return };
     let due = flight
         .lock()
@@ -528,6 +537,9 @@ fn delete_acked(flight: &Mutex<Flight>, store: Option<&Arc<Mutex<Store>>>, force
         .delete_acked(&due);
     if let Err(e) = res {
         // They stay in the spool and go again (at least once).
-        warn!(error = %e, events = due.len(), "cannot delete acknowledged events from the spool: they will be sent again");
+        let mut lines = lines.lock().unwrap_or_else(|e| e.into_inner());
+        if let Some(folded) = lines.admit(std::time::Instant::now()) {
+            warn!(error = %e, events = due.len(), folded, "cannot delete acknowledged events from the spool: they will be sent again at the next start");
+        }
     }
 }

@@ -894,3 +894,239 @@ fn a_command_flood_keeps_the_log_bounded_and_the_daemon_answering() {
         lines.join("\n")
     );
 }
+
+/// How the full-disk test makes the state directory full.
+enum Filler {
+    /// A small tmpfs of the test's own mounted on the state directory
+    /// (needs root): filled by a file written until the file system says
+    /// ENOSPC, freed by removing it; unmounted when dropped.
+    Tmpfs {
+        mount: std::path::PathBuf,
+        file: std::path::PathBuf,
+    },
+    /// Where no mount is allowed: the daemon's file size limit
+    /// (RLIMIT_FSIZE) lowered to a few bytes, so every write past them
+    /// fails (EFBIG, SIGXFSZ ignored), and raised again to free it.
+    Rlimit { pid: Option<libc::pid_t> },
+}
+
+impl Filler {
+    /// A tmpfs of `size` on `dir`, or the file size limit when mounting is
+    /// not allowed (or `WALLFLUX_TEST_FULL=rlimit` asks for it).
+    fn new(dir: &std::path::Path, size: &str) -> Filler {
+        std::fs::create_dir_all(dir).unwrap();
+        if std::env::var("WALLFLUX_TEST_FULL").as_deref() != Ok("rlimit") {
+            let mounted = std::process::Command::new("mount")
+                .args(["-t", "tmpfs", "-o", &format!("size={size}"), "tmpfs"])
+                .arg(dir)
+                .stderr(std::process::Stdio::null())
+                .status()
+                .is_ok_and(|s| s.success());
+            if mounted {
+                return Filler::Tmpfs {
+                    mount: dir.to_path_buf(),
+                    file: dir.join("filler"),
+                };
+            }
+        }
+        eprintln!("no tmpfs (not root?): the state directory is made full by RLIMIT_FSIZE");
+        Filler::Rlimit { pid: None }
+    }
+
+    /// Starts the daemon as this filler needs it: with the file size limit,
+    /// its log through a pipe (the limit would stop a log file too) and
+    /// SIGXFSZ ignored, so that a write past the limit is an error.
+    fn start(&mut self, cfg: &std::path::Path, log: &std::path::Path) -> Daemon {
+        let Filler::Rlimit { pid } = self else {
+            return start_daemon(cfg, log);
+        };
+        use std::os::unix::process::CommandExt;
+        let mut cmd = bin();
+        cmd.args(["run", "--config", cfg.to_str().unwrap()])
+            .stdout(std::process::Stdio::null())
+            .stderr(std::process::Stdio::piped());
+        // SAFETY: signal(2) is async-signal-safe; nothing else runs between
+        // fork and exec.
+        unsafe {
+            cmd.pre_exec(|| {
+                libc::signal(libc::SIGXFSZ, libc::SIG_IGN);
+                Ok(())
+            });
+        }
+        let mut child = cmd.spawn().unwrap();
+        let mut stderr = child.stderr.take().unwrap();
+        let mut file = std::fs::File::create(log).unwrap();
+        std::thread::spawn(move || std::io::copy(&mut stderr, &mut file));
+        *pid = Some(child.id() as libc::pid_t);
+        Daemon(child)
+    }
+
+    fn fill(&self) {
+        match self {
+            Filler::Tmpfs { file, .. } => {
+                use std::io::Write;
+                let mut f = std::fs::File::create(file).unwrap();
+                let chunk = vec![0x5a_u8; 64 * 1024];
+                loop {
+                    match f.write_all(&chunk) {
+                        Ok(()) => {}
+                        Err(e) if e.raw_os_error() == Some(libc::ENOSPC) => break,
+                        Err(e) => panic!("filling the tmpfs: {e}"),
+                    }
+                }
+                // The last pages too (a write smaller than a chunk).
+                while f.write(&chunk[..512]).is_ok_and(|n| n > 0) {}
+            }
+            Filler::Rlimit { pid } => set_fsize(pid.unwrap(), 64),
+        }
+    }
+
+    fn free(&self) {
+        match self {
+            Filler::Tmpfs { file, .. } => std::fs::remove_file(file).unwrap(),
+            Filler::Rlimit { pid } => set_fsize(pid.unwrap(), libc::RLIM_INFINITY),
+        }
+    }
+}
+
+impl Drop for Filler {
+    fn drop(&mut self) {
+        if let Filler::Tmpfs { mount, .. } = self {
+            let ok = std::process::Command::new("umount")
+                .arg(&*mount)
+                .status()
+                .is_ok_and(|s| s.success());
+            if !ok {
+                // Still busy (a daemon not yet reaped): detach it.
+                let _ = std::process::Command::new("umount")
+                    .arg("-l")
+                    .arg(&*mount)
+                    .status();
+            }
+        }
+    }
+}
+
+/// Sets the soft file size limit of process `pid` (the hard one stays).
+fn set_fsize(pid: libc::pid_t, bytes: libc::rlim_t) {
+    let mut old = libc::rlimit {
+        rlim_cur: 0,
+        rlim_max: 0,
+    };
+    // SAFETY: prlimit(2) on our own child, with valid pointers.
+    let r = unsafe { libc::prlimit(pid, libc::RLIMIT_FSIZE, std::ptr::null(), &mut old) };
+    assert_eq!(r, 0, "prlimit: {}", std::io::Error::last_os_error());
+    let new = libc::rlimit {
+        rlim_cur: bytes.min(old.rlim_max),
+        rlim_max: old.rlim_max,
+    };
+    // SAFETY: as above.
+    let r = unsafe { libc::prlimit(pid, libc::RLIMIT_FSIZE, &new, std::ptr::null_mut()) };
+    assert_eq!(r, 0, "prlimit: {}", std::io::Error::last_os_error());
+}
+
+/// A full state directory (ENOSPC, not a missing one): an accepted command
+/// is answered `not_persisted`; `state-not-saved` is raised and stays
+/// raised while the directory is full; alarm events still reach the
+/// subscriber (they wait in memory when the database cannot take them);
+/// once space is freed the alarm clears, a command is answered `ok` and
+/// its change is in `alarms.json`.
+#[test]
+fn a_full_state_directory_is_said_and_loses_no_event() {
+    let rig = Rig::new("link-full", |t| t + HOT_ALARM);
+    let (port, rx, state) = (rig.port, &rig.rx, rig.state());
+    // Before the daemon, so that it is dropped (unmounted) after it.
+    let mut filler = Filler::new(&state, "16m");
+    let started = now_rfc3339();
+    let mut daemon = filler.start(&rig.cfg, &rig.dir.join("d.log"));
+    wait_for(rx, Duration::from_secs(20), "online", |m| {
+        m.topic == format!("{ROOT}/status")
+            && m.json["state"] == "online"
+            && m.json["time"]
+                .as_str()
+                .is_some_and(|t| t > started.as_str())
+    });
+    let alarm = "wall-shell-touch";
+    let cmd = |id: &str, action: &str| {
+        format!(r#"{{"id":"{id}","action":"{action}","alarm":"{alarm}","by":"op-test"}}"#)
+    };
+    let (reply, _) = send(port, rx, "c-1", &cmd("c-1", "out_of_service"));
+    assert_eq!(reply["ok"], true, "{reply}");
+
+    filler.fill();
+    let topic = format!("{ROOT}/alarm/state-not-saved");
+    let (reply, audit) = send(port, rx, "c-2", &cmd("c-2", "in_service"));
+    assert_eq!(reply["code"], "not_persisted", "{reply}");
+    assert_eq!(audit["code"], "not_persisted", "{audit}");
+    // Raised (perhaps before the reply: the energy totals are saved every
+    // interval), and not cleared while the directory is full, while an
+    // alarm raised and cleared on the probe reaches the subscriber.
+    let mut raised = false;
+    let mut events = Vec::new();
+    rig.hot.store(true, Ordering::Relaxed);
+    let deadline = Instant::now() + Duration::from_secs(30);
+    while !raised || events.len() < 2 {
+        let m = rx
+            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
+            .unwrap_or_else(|_| panic!("raised: {raised}, events: {events:?}"));
+        if m.topic == topic {
+            assert_eq!(
+                m.json["active"], true,
+                "cleared while the directory is full: {}",
+                m.json
+            );
+            raised = true;
+        } else if m.topic == format!("{ROOT}/events") && m.json["alarm"] == "p0-hot" {
+            events.push(m.json["to"].clone());
+            // Raised: now let it clear.
+            rig.hot.store(false, Ordering::Relaxed);
+        }
+    }
+    // A while longer full: the alarm stays raised through several rounds
+    // of saves.
+    let until = Instant::now() + Duration::from_secs(3);
+    while let Ok(m) = rx.recv_timeout(until.saturating_duration_since(Instant::now())) {
+        if m.topic == topic {
+            assert_eq!(m.json["active"], true, "cleared while full: {}", m.json);
+        }
+    }
+    assert!(matches!(daemon.try_wait(), Ok(None)), "the daemon died");
+
+    filler.free();
+    wait_for(
+        rx,
+        Duration::from_secs(20),
+        "state-not-saved cleared",
+        |m| m.topic == topic && m.json["active"] == false,
+    );
+    // Cleared only once everything is on disk: the change that was
+    // answered not_persisted too.
+    let saved: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(state.join("alarms.json")).unwrap()).unwrap();
+    assert_eq!(saved[alarm]["out_of_service"], false, "{saved}");
+    let (reply, _) = send(port, rx, "c-3", &cmd("c-3", "out_of_service"));
+    assert_eq!(reply["ok"], true, "{reply}");
+    let saved: serde_json::Value =
+        serde_json::from_str(&std::fs::read_to_string(state.join("alarms.json")).unwrap()).unwrap();
+    assert_eq!(saved[alarm]["out_of_service"], true, "{saved}");
+    stop_daemon(daemon);
+    let text = rig.log("d.log");
+    assert!(!text.contains("panicked"), "{text}");
+    // One outage of the directory, said as one: raised once, each kind of
+    // failure said once (the database's at most once a fold window: it
+    // can fail and work by turns while the disk is full).
+    assert_eq!(
+        count(&text, "ALARM: The state directory cannot be written"),
+        1,
+        "{text}"
+    );
+    for line in [
+        "cannot save the alarm states",
+        "cannot save the energy totals",
+        "cannot write to the local database",
+        "the local database takes writes again",
+        "cannot delete acknowledged events",
+    ] {
+        assert!(count(&text, line) <= 1, "{line}:\n{text}");
+    }
+}
