@@ -540,6 +540,14 @@ impl Engine {
             let r = write();
             if r.is_err() {
                 s.rollback();
+            } else {
+                // Into the queue before the lock goes: the link reads the
+                // spool under it, so it cannot find this round's events
+                // committed while the states the monitor gave before them
+                // are not yet queued (an alarm's event before its state).
+                for (_, m) in states.drain(..) {
+                    self.queue.push(m);
+                }
             }
             r
         };
@@ -555,9 +563,6 @@ impl Engine {
                     }
                 }
                 self.persisted(Saved::Store, true);
-                for (_, m) in states {
-                    self.queue.push(m);
-                }
                 self.queue.wake();
             }
             Err(e) => {

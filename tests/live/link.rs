@@ -1126,3 +1126,44 @@ fn a_full_state_directory_is_said_and_loses_no_event() {
         assert!(count(&text, line) <= 1, "{line}:\n{text}");
     }
 }
+
+/// An alarm's retained state goes out before its event (a subscriber that
+/// sees the event finds the state already changed), for every one of
+/// many transitions: the alarm on the first probe raised and cleared
+/// thirty times while the zone's and channels' states stream beside it.
+#[test]
+fn an_alarm_state_always_goes_before_its_event() {
+    const TRANSITIONS: usize = 30;
+    let rig = Rig::new("link-order", |t| t + HOT_ALARM);
+    let daemon = rig.daemon("d.log");
+    let state_topic = format!("{ROOT}/alarm/p0-hot");
+    let events_topic = format!("{ROOT}/events");
+    let mut state_seq = 0;
+    let mut events = 0;
+    let deadline = Instant::now() + Duration::from_secs(60);
+    while events < TRANSITIONS {
+        let m = rig
+            .rx
+            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
+            .unwrap_or_else(|_| panic!("only {events} events"));
+        if m.topic == state_topic {
+            state_seq = m.json["seq"].as_u64().unwrap_or(0).max(state_seq);
+        } else if m.topic == events_topic
+            && m.json["alarm"] == "p0-hot"
+            && m.json["type"] == "alarm"
+        {
+            let seq = m.json["seq"].as_u64().unwrap();
+            assert!(
+                state_seq >= seq,
+                "event {seq} came before its alarm state (last state seq {state_seq}): {}",
+                m.json
+            );
+            events += 1;
+            // Each transition once its event is out: the next one.
+            rig.hot.fetch_xor(true, Ordering::Relaxed);
+        } else if events == 0 && m.topic == format!("{ROOT}/zone/wall/state") {
+            rig.hot.store(true, Ordering::Relaxed);
+        }
+    }
+    stop_daemon(daemon);
+}
