@@ -29,6 +29,7 @@ use crate::monitor::output::{LinkStatus, Output, StatusReport};
 use crate::monitor::zone::ZoneReport;
 use crate::monitor::Monitor;
 use crate::protocol::scan::Unit;
+use crate::publish::fold::Fold;
 use crate::publish::log::Logger;
 use crate::publish::mqtt::{self, LinkHealth, Outbound};
 use crate::publish::queue::{Kind, Message, Queue};
@@ -122,8 +123,8 @@ pub async fn run_recording(
     engine.store = store.clone();
     engine.restore_energy_from_store();
     if store.is_none() {
-        // Said by the state-not-saved alarm too.
-        engine.persisted(false);
+        // Said by the state-not-saved alarm too, for the whole run.
+        engine.persisted(Saved::Store, false);
     }
     let outbound = Outbound {
         queue: queue.clone(),
@@ -314,14 +315,16 @@ struct Engine {
     root: String,
     queue: Arc<Queue>,
     store: Option<Arc<std::sync::Mutex<Store>>>,
-    /// The last write to the database failed (said once in the log).
+    /// The last write to the database failed.
     store_failing: bool,
+    /// The database's failure and recovery lines: a full disk can make
+    /// its writes fail and work by turns, round after round (a commit
+    /// that fits in pages the file already has goes through).
+    store_lines: [Fold; 2],
     observer: Option<Observer>,
     monitor: Monitor,
     recorder: Option<Recorder>,
     logger: Logger,
-    /// The last energy save failed (said once in the log).
-    energy_unsaved: bool,
     /// No `energy.json` is left to compete with the database's books.
     energy_file_gone: bool,
     /// MQTT 5: the response topic and correlation data of the command
@@ -331,7 +334,25 @@ struct Engine {
     state_expiry_s: u32,
     /// Each source's Modbus unit counters (empty for a line source).
     bus_stats: Vec<Arc<modbus::BusStats>>,
+    /// Which of the things kept in the state directory could not be saved
+    /// the last time (each said once in the log until it saves again):
+    /// `state-not-saved` is raised while any of them is.
+    unsaved: [bool; Saved::COUNT],
     clock: Clock,
+}
+
+/// What the engine keeps in the state directory.
+#[derive(Clone, Copy)]
+enum Saved {
+    /// The local database (spool and history).
+    Store,
+    Energy,
+    Alarms,
+    Baselines,
+}
+
+impl Saved {
+    const COUNT: usize = 4;
 }
 
 impl Engine {
@@ -376,15 +397,16 @@ impl Engine {
             queue,
             store: None,
             store_failing: false,
+            store_lines: Default::default(),
             observer,
             monitor,
             recorder: None,
             logger: Logger::default(),
-            energy_unsaved: false,
             energy_file_gone: false,
             respond_to: None,
             state_expiry_s: expiry,
             bus_stats: Vec::new(),
+            unsaved: [false; Saved::COUNT],
             clock,
         }
     }
@@ -503,10 +525,18 @@ impl Engine {
         if !round.is_empty() {
             self.write_round(round, !link.connected.load(Ordering::Relaxed));
         }
-        if energy_booked && self.store.is_none() {
-            self.save_energy_totals();
+        if energy_booked {
+            if self.store.is_none() {
+                self.save_energy_totals();
+            }
+            // A save that failed is tried again as often, so that
+            // state-not-saved clears only once all is on disk.
+            if self.unsaved[Saved::Baselines as usize] {
+                let _ = self.save_baselines(); // a failure is logged
+            }
         }
-        if alarms_changed && self.monitor.alarms_mut().take_dirty() {
+        let dirty = alarms_changed && self.monitor.alarms_mut().take_dirty();
+        if dirty || (energy_booked && self.unsaved[Saved::Alarms as usize]) {
             let _ = self.save_alarms(); // a failure is logged
         }
     }
@@ -595,6 +625,14 @@ impl Engine {
             let r = write();
             if r.is_err() {
                 s.rollback();
+            } else {
+                // Into the queue before the lock goes: the link reads the
+                // spool under it, so it cannot find this round's events
+                // committed while the states the monitor gave before them
+                // are not yet queued (an alarm's event before its state).
+                for (_, m) in states.drain(..) {
+                    self.queue.push(m);
+                }
             }
             r
         };
@@ -602,26 +640,27 @@ impl Engine {
             Ok(()) => {
                 if self.store_failing {
                     self.store_failing = false;
-                    info!(
-                        file = crate::store::STORE_FILE,
-                        "the local database takes writes again"
-                    );
+                    if let Some(folded) = self.store_lines[1].admit(std::time::Instant::now()) {
+                        info!(
+                            file = crate::store::STORE_FILE,
+                            folded, "the local database takes writes again"
+                        );
+                    }
                 }
-                self.persisted(true);
+                self.persisted(Saved::Store, true);
                 if round.energy.is_some() {
                     self.energy_saved_in_store();
-                }
-                for (_, m) in states {
-                    self.queue.push(m);
                 }
                 self.queue.wake();
             }
             Err(e) => {
                 if !self.store_failing {
                     self.store_failing = true;
-                    warn!(file = crate::store::STORE_FILE, error = %e, "cannot write to the local database: events wait in memory until it works again (lost at a restart); this is said once");
+                    if let Some(folded) = self.store_lines[0].admit(std::time::Instant::now()) {
+                        warn!(file = crate::store::STORE_FILE, error = %e, folded, "cannot write to the local database: events wait in memory until it works again (lost at a restart); said at most once a minute");
+                    }
                 }
-                self.persisted(false);
+                self.persisted(Saved::Store, false);
                 if round.energy.is_some() {
                     // The file, then, if it can be written.
                     self.save_energy_file();
@@ -741,11 +780,17 @@ impl Engine {
         let _ = self.save_baselines(); // a failure is logged
     }
 
-    /// Tells the monitor whether a save worked (its `state-not-saved`
-    /// alarm); its outputs go with the next drain.
-    fn persisted(&mut self, saved: bool) {
+    /// Whether a save of `what` worked. The monitor's `state-not-saved`
+    /// alarm is raised while any of them fails, and cleared only once all
+    /// of them save again (one that works must not clear it while another
+    /// still fails); its outputs go with the next drain. Returns whether
+    /// this is a new failure of `what`, to be said in the log.
+    fn persisted(&mut self, what: Saved, saved: bool) -> bool {
+        let was = std::mem::replace(&mut self.unsaved[what as usize], !saved);
         let now = self.clock.now();
-        self.monitor.handle_persistence(saved, now);
+        let all = !self.unsaved.iter().any(|u| *u);
+        self.monitor.handle_persistence(all, now);
+        !saved && !was
     }
 
     /// The energy totals: in the database, else in `energy.json`.
@@ -765,7 +810,7 @@ impl Engine {
     /// run without it (or an older version) would only compete at the next
     /// start, so it goes.
     fn energy_saved_in_store(&mut self) {
-        self.energy_unsaved = false;
+        self.persisted(Saved::Energy, true);
         if !self.energy_file_gone {
             let path = self.settings.state_dir.join(ENERGY_FILE);
             match std::fs::remove_file(&path) {
@@ -832,39 +877,41 @@ impl Engine {
             ENERGY_FILE,
             self.monitor.energy_totals(),
         );
-        self.persisted(saved.is_ok());
-        match saved {
-            Ok(()) => self.energy_unsaved = false,
-            Err(e) if !self.energy_unsaved => {
-                self.energy_unsaved = true;
+        if self.persisted(Saved::Energy, saved.is_ok()) {
+            if let Err(e) = saved {
                 warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the energy totals (retried every interval; this is said once)");
             }
-            Err(_) => {}
         }
     }
 
+    /// The lining baselines; a failure is logged once until a save
+    /// succeeds again (it is retried every interval).
     fn save_baselines(&mut self) -> std::io::Result<()> {
         let saved = state::save(
             &self.settings.state_dir,
             BASELINES_FILE,
             &self.monitor.baselines(),
         );
-        self.persisted(saved.is_ok());
-        if let Err(e) = &saved {
-            warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the lining baselines");
+        if self.persisted(Saved::Baselines, saved.is_ok()) {
+            if let Err(e) = &saved {
+                warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the lining baselines (retried every interval; this is said once)");
+            }
         }
         saved
     }
 
+    /// The alarm flags; a failure is logged once until a save succeeds
+    /// again (it is retried every interval).
     fn save_alarms(&mut self) -> std::io::Result<()> {
         let saved = state::save(
             &self.settings.state_dir,
             ALARMS_FILE,
             &self.monitor.alarms().flags(),
         );
-        self.persisted(saved.is_ok());
-        if let Err(e) = &saved {
-            warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the alarm states: they will not survive a restart");
+        if self.persisted(Saved::Alarms, saved.is_ok()) {
+            if let Err(e) = &saved {
+                warn!(dir = %self.settings.state_dir.display(), error = %e, "cannot save the alarm states: they will not survive a restart (retried every interval; this is said once)");
+            }
         }
         saved
     }

@@ -58,9 +58,9 @@ pub const MAX_INCOMING_BYTES: usize = 16 * 1024 * 1024;
 /// Capacity of rumqttc's request channel.
 const REQUEST_CAPACITY: usize = 64;
 /// Longest wait between reconnection attempts.
-const MAX_BACKOFF: Duration = Duration::from_secs(30);
+pub const MAX_BACKOFF: Duration = Duration::from_secs(30);
 /// While the broker stays away, a reminder this often.
-const REMIND_EVERY: Duration = Duration::from_secs(300);
+pub const REMIND_EVERY: Duration = Duration::from_secs(300);
 
 /// Link state shared with the status report and the tests.
 #[derive(Debug, Default)]
@@ -217,6 +217,7 @@ pub async fn run(
         .and_then(|s| s.lock().unwrap_or_else(|e| e.into_inner()).last_seq().ok())
         .unwrap_or(0);
     let flight = Arc::new(Mutex::new(Flight::new(last_seq)));
+    let delete_lines = Arc::new(Mutex::new(Fold::default()));
 
     let sender = {
         let client = client.clone();
@@ -224,6 +225,7 @@ pub async fn run(
         let health = health.clone();
         let flight = flight.clone();
         let store = store.clone();
+        let delete_lines = delete_lines.clone();
         let mut up = up_rx;
         tokio::spawn(async move {
             loop {
@@ -236,7 +238,7 @@ pub async fn run(
                 let woken = queue.notified();
                 tokio::pin!(woken);
                 woken.as_mut().enable();
-                delete_acked(&flight, store.as_ref(), false);
+                delete_acked(&flight, store.as_ref(), false, &delete_lines);
                 let is_up = *up.borrow();
                 let wait = match hand(&flight, is_up, &client, &queue, store.as_ref(), &health) {
                     Handed::One => continue,
@@ -403,7 +405,7 @@ pub async fn run(
                 Ok(Err(_)) | Err(_) => break,
             }
         }
-        delete_acked(&flight, store.as_ref(), true);
+        delete_acked(&flight, store.as_ref(), true, &delete_lines);
         if disconnected {
             info!("MQTT status offline published; disconnected");
         } else {
@@ -413,7 +415,7 @@ pub async fn run(
             );
         }
     } else {
-        delete_acked(&flight, store.as_ref(), true);
+        delete_acked(&flight, store.as_ref(), true, &delete_lines);
         let spooled = store.as_ref().map_or(0, |s| {
             s.lock().unwrap_or_else(|e| e.into_inner()).stats().events
         });
@@ -492,8 +494,15 @@ fn acked_locked(
     }
 }
 
-/// Deletes the acknowledged events from the spool when a batch is due.
-fn delete_acked(flight: &Mutex<Flight>, store: Option<&Arc<Mutex<Store>>>, force: bool) {
+/// Deletes the acknowledged events from the spool when a batch is due; a
+/// failure is said at most once per fold window of `lines` (a full disk
+/// can fail every batch).
+fn delete_acked(
+    flight: &Mutex<Flight>,
+    store: Option<&Arc<Mutex<Store>>>,
+    force: bool,
+    lines: &Mutex<Fold>,
+) {
     let Some(store) = store else { return };
     let due = flight
         .lock()
@@ -508,6 +517,9 @@ fn delete_acked(flight: &Mutex<Flight>, store: Option<&Arc<Mutex<Store>>>, force
         .delete_acked(&due);
     if let Err(e) = res {
         // They stay in the spool and go again (at least once).
-        warn!(error = %e, events = due.len(), "cannot delete acknowledged events from the spool: they will be sent again");
+        let mut lines = lines.lock().unwrap_or_else(|e| e.into_inner());
+        if let Some(folded) = lines.admit(std::time::Instant::now()) {
+            warn!(error = %e, events = due.len(), folded, "cannot delete acknowledged events from the spool: they will be sent again at the next start");
+        }
     }
 }

@@ -9,7 +9,7 @@ use std::sync::Arc;
 use std::time::{Duration, Instant};
 
 use crate::common::feeder::Feeder;
-use crate::common::mqtt::{free_port, subscribe, wait_for, Broker, Msg};
+use crate::common::mqtt::{free_port, subscribe, try_publish, wait_for, Broker, Msg};
 use crate::common::proxy::Proxy;
 use crate::common::*;
 use wallflux::sim::pty::Pty;
@@ -25,7 +25,7 @@ const HOT_C: f64 = 870.0;
 /// and a configuration with an alarm on that probe.
 struct Rig {
     dir: std::path::PathBuf,
-    _broker: Broker,
+    broker: Broker,
     proxy: Proxy,
     rx: std::sync::mpsc::Receiver<Msg>,
     cfg: std::path::PathBuf,
@@ -79,7 +79,7 @@ impl Rig {
         );
         Rig {
             dir,
-            _broker: broker,
+            broker,
             proxy,
             rx,
             cfg,
@@ -421,4 +421,79 @@ fn kills_under_event_traffic_lose_nothing_and_repeat_only_the_last_moment() {
             );
         }
     }
+}
+
+/// The outage of the broker itself (stopped, not the relay: the test's
+/// subscriber loses it too), alarm events raised meanwhile, the daemon
+/// SIGKILLed before the broker is back; the broker restarted (empty: no
+/// session, nothing retained) and the subscriber subscribed again (a probe
+/// message proves it) before the daemon restarts: every outage event
+/// arrives once, in order, with its original time, marked as backfill.
+#[test]
+fn events_of_a_broker_stop_survive_a_kill_and_arrive_once_in_order() {
+    let mut rig = Rig::new("spool-broker-stop", "");
+    let d = rig.daemon("d1.log");
+    drained(&rig);
+    rig.broker.stop();
+    let offline = rig.raise_events(0, 4);
+    kill(d);
+    assert!(rig.spooled() >= offline.len() as i64);
+    rig.hot.store(false, Ordering::Relaxed);
+    rig.broker.restart();
+
+    // The subscriber is back on the new broker, subscribed again: a probe
+    // sent until it comes round.
+    let probe = format!("{ROOT}/probe");
+    let deadline = Instant::now() + Duration::from_secs(30);
+    'probe: for n in 0.. {
+        assert!(
+            Instant::now() < deadline,
+            "the subscriber did not come back"
+        );
+        let _ = try_publish(
+            rig.broker.port,
+            &probe,
+            format!(r#"{{"probe":{n}}}"#).as_bytes(),
+            false,
+        );
+        let until = Instant::now() + Duration::from_millis(500);
+        while let Ok(m) = rig
+            .rx
+            .recv_timeout(until.saturating_duration_since(Instant::now()))
+        {
+            if m.topic == probe {
+                break 'probe;
+            }
+        }
+    }
+    let d = rig.daemon("d2.log");
+
+    let keys: Vec<String> = offline.iter().map(key).collect();
+    let mut got: Vec<serde_json::Value> = Vec::new();
+    let deadline = Instant::now() + Duration::from_secs(30);
+    while got.len() < offline.len() {
+        let m = rig
+            .rx
+            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
+            .unwrap_or_else(|_| {
+                panic!("received {} of {} outage events", got.len(), offline.len())
+            });
+        if m.topic == format!("{ROOT}/events") && keys.contains(&key(&m.json)) {
+            got.push(m.json);
+        }
+    }
+    for (g, e) in got.iter().zip(&offline) {
+        assert_eq!(key(g), key(e), "in order, with their original time");
+        assert_eq!(g["time"], e["time"]);
+        assert_eq!(g["backfill"], true, "{g}");
+    }
+    drained(&rig);
+    let later: Vec<Msg> = std::iter::from_fn(|| rig.rx.recv_timeout(Duration::from_secs(2)).ok())
+        .take(200)
+        .collect();
+    assert!(
+        later.iter().all(|m| !keys.contains(&key(&m.json))),
+        "an outage event arrived twice"
+    );
+    stop_daemon(d);
 }
