@@ -251,6 +251,24 @@ fn a_bus_with_faulty_units_is_read_exactly_and_its_faults_counted() {
     let hot = z.json["hot_face_c"].as_f64().unwrap();
     assert!((hot - 900.0).abs() < 0.5, "hot face {hot}");
 
+    // Each unit has its own silent alarm: the one that never answers (and
+    // the late one) raised after the bus's silence_s, the good ones not.
+    let alarm = |name: &str| format!("{ROOT}/alarm/bus-unit-{name}-silent");
+    let raised = wait_for(&rx, Duration::from_secs(30), "unit 9's silent alarm", |m| {
+        m.topic == alarm("9") && m.json["active"] == true
+    });
+    assert_eq!(raised.json["quantity"], "unit_silent");
+    assert_eq!(raised.json["source"], "bus");
+    // (Its state is retained: a new subscriber gets it at once.)
+    let rx3 = subscribe(port, &alarm("3"));
+    let good = wait_for(
+        &rx3,
+        Duration::from_secs(20),
+        "unit 3's silent alarm state",
+        |m| m.topic == alarm("3"),
+    );
+    assert_eq!(good.json["active"], false, "{}", good.json);
+
     // The faults, each counted at its unit, in the status report.
     let st = wait_for(
         &rx,

@@ -75,6 +75,9 @@ pub enum AlarmTarget {
     Channel { channel: ChannelId, health: bool },
     /// Source `source` silent (diagnostic).
     Source { source: SourceId },
+    /// Modbus unit `unit` of source `source` silent: none of its channels
+    /// read within the source's silence limit (diagnostic).
+    Unit { source: SourceId, unit: u8 },
     /// The state directory cannot be written (diagnostic): what the daemon
     /// must keep (alarm flags, baselines, energy) will not survive a
     /// restart.

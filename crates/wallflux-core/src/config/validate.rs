@@ -987,6 +987,29 @@ impl Validator<'_> {
                 "Check the serial cable, the box's power and the port",
             ));
         }
+        // A Modbus unit's silence, once per unit of each bus.
+        for (si, s) in sources.iter_ids() {
+            let mut units: Vec<u8> = channels
+                .iter()
+                .filter(|c| c.source == si)
+                .filter_map(|c| c.point.as_ref().map(|p| p.unit))
+                .collect();
+            units.sort_unstable();
+            units.dedup();
+            for u in units {
+                out.push(builtin(
+                    format!("{}-unit-{u}-silent", s.name),
+                    AlarmTarget::Unit {
+                        source: si,
+                        unit: u,
+                    },
+                    spec(AlarmKind::Diagnostic, 0.5, 0.0, 0.0, Priority::High),
+                    format!("Modbus unit {u} on {} not answering", s.name),
+                    "Its channels get no readings; the zones on them lose those probes",
+                    "Check the module's power and address, and the bus wiring to it",
+                ));
+            }
+        }
         out.push(builtin(
             STATE_ALARM.to_string(),
             AlarmTarget::StateDir,

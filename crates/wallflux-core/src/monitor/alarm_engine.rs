@@ -267,6 +267,15 @@ impl AlarmEngine {
         }
     }
 
+    /// Whether Modbus unit `unit` of `source` is silent, at `now`.
+    pub fn on_unit(&mut self, source: SourceId, unit: u8, silent: bool, now: Timestamp) {
+        for i in self.slots.ids() {
+            if self.configs[i].target == (AlarmTarget::Unit { source, unit }) {
+                self.evaluate(i, Some(if silent { 1.0 } else { 0.0 }), now);
+            }
+        }
+    }
+
     /// Whether the state directory could be written, at `now`.
     pub fn on_state_dir(&mut self, failing: bool, now: Timestamp) {
         for i in self.slots.ids() {
@@ -483,6 +492,12 @@ pub fn target_names(
             Some(settings.sources[source].name.as_str()),
             "silent",
         ),
+        AlarmTarget::Unit { source, .. } => (
+            None,
+            None,
+            Some(settings.sources[source].name.as_str()),
+            "unit_silent",
+        ),
         AlarmTarget::StateDir => (None, None, None, "state_dir"),
     }
 }
@@ -588,7 +603,7 @@ fn dependencies(settings: &Settings, c: &AlarmConfig) -> HVec<ChannelId, MAX_PRO
             }
         }
         AlarmTarget::Channel { channel, .. } => d.extend([channel]),
-        AlarmTarget::Source { .. } | AlarmTarget::StateDir => {}
+        AlarmTarget::Source { .. } | AlarmTarget::Unit { .. } | AlarmTarget::StateDir => {}
     }
     d
 }
@@ -621,6 +636,9 @@ pub fn trend_place(settings: &Settings, t: AlarmTarget) -> String {
             format!("channel {}", settings.channels[channel].name)
         }
         AlarmTarget::Source { source } => format!("source {}", settings.sources[source].name),
+        AlarmTarget::Unit { source, unit } => {
+            format!("unit {unit} of source {}", settings.sources[source].name)
+        }
         AlarmTarget::StateDir => "the state directory".to_string(),
     }
 }

@@ -60,6 +60,15 @@ const OUTPUT_QUEUE: usize = 64;
 /// While an alarm flood lasts, one grouped summary at most this often, s.
 pub const FLOOD_SUMMARY_EVERY_S: f64 = 60.0;
 
+/// One Modbus unit's health: when a channel of it last read, and whether
+/// it is silent.
+#[derive(Debug, Clone)]
+struct UnitWatch {
+    source: SourceId,
+    unit: u8,
+    state: SourceState,
+}
+
 pub struct Monitor {
     settings: Arc<Settings>,
     channels: IdVec<ChannelId, ChannelState>,
@@ -74,6 +83,10 @@ pub struct Monitor {
     unknown_inputs_seen: IdVec<SourceId, [bool; 65]>,
     /// Each source's health: last reading, silence, counters.
     sources: IdVec<SourceId, SourceState>,
+    /// Each Modbus unit's last reading and silence (its own silent alarm).
+    units: Vec<UnitWatch>,
+    /// The unit (an index into `units`) a channel's readings come from.
+    unit_of: IdVec<ChannelId, Option<usize>>,
     start: Timestamp,
     alarms: AlarmEngine,
     meter: EnergyMeter,
@@ -124,6 +137,27 @@ impl Monitor {
                 e
             })
             .collect();
+        // Every Modbus unit of every bus, once; each channel to its unit.
+        let mut units: Vec<UnitWatch> = Vec::new();
+        let unit_of = settings.channels.map(|c| {
+            let unit = c.point.as_ref()?.unit;
+            Some(
+                match units
+                    .iter()
+                    .position(|u| u.source == c.source && u.unit == unit)
+                {
+                    Some(i) => i,
+                    None => {
+                        units.push(UnitWatch {
+                            source: c.source,
+                            unit,
+                            state: SourceState::default(),
+                        });
+                        units.len() - 1
+                    }
+                },
+            )
+        });
         Monitor {
             channels: settings.channels.map(|_| ChannelState::default()),
             stale_after_s,
@@ -133,6 +167,8 @@ impl Monitor {
             outputs: VecDeque::with_capacity(OUTPUT_QUEUE),
             unknown_inputs_seen: settings.sources.map(|_| [false; 65]),
             sources: settings.sources.map(|_| SourceState::default()),
+            units,
+            unit_of,
             start,
             alarms: AlarmEngine::new(&settings, saved, start),
             meter: new_meter(&settings, EnergyTotals::default()),
@@ -207,7 +243,10 @@ impl Monitor {
                 continue; // handled first, above
             }
             match channel {
-                Some(ch) => self.apply_value(ch, value, cj, now),
+                Some(ch) => {
+                    self.apply_value(ch, value, cj, now);
+                    self.unit_heard(ch, now);
+                }
                 None => {
                     self.unknown_inputs += 1;
                     let seen = &mut self.unknown_inputs_seen[source][usize::from(input.min(64))];
@@ -319,6 +358,22 @@ impl Monitor {
         self.end_silence(source, now);
     }
 
+    /// A reading of channel `ch` at `now`: its Modbus unit (if it has one)
+    /// answered, which ends the unit's silence at once.
+    fn unit_heard(&mut self, ch: ChannelId, now: Timestamp) {
+        let Some(Some(u)) = self.unit_of.get(ch).copied() else {
+            return;
+        };
+        let w = &mut self.units[u];
+        w.state.seen = Some(now);
+        if w.state.silent {
+            w.state.silent = false;
+            let (source, unit) = (w.source, w.unit);
+            self.alarms.on_unit(source, unit, false, now);
+            self.collect_alarms(now);
+        }
+    }
+
     /// A reading from source `s` at `now` ends its silence at once.
     fn end_silence(&mut self, s: SourceId, now: Timestamp) {
         if !self.sources.get(s).is_some_and(|s| s.silent) {
@@ -376,6 +431,10 @@ impl Monitor {
             .zip(&self.settings.sources)
             .filter(|(s, _)| !s.silent)
             .map(|(s, c)| s.silent_from(self.start, c.silence_s));
+        let units = self.units.iter().filter(|w| !w.state.silent).map(|w| {
+            w.state
+                .silent_from(self.start, self.settings.sources[w.source].silence_s)
+        });
         let flood = self.last_flood_summary.map(|l| {
             l.plus_s(FLOOD_SUMMARY_EVERY_S)
                 .first_when(|t| t.since(l) >= FLOOD_SUMMARY_EVERY_S)
@@ -383,6 +442,7 @@ impl Monitor {
         zones
             .chain(channels)
             .chain(silence)
+            .chain(units)
             .chain(self.alarms.next_deadline())
             .chain(flood)
             .filter(|t| t.epoch_s().is_finite())
@@ -604,6 +664,11 @@ impl Monitor {
                 self.update_suppression(now);
             }
             self.alarms.on_source(s, silent, now);
+        }
+        for w in &mut self.units {
+            let limit = self.settings.sources[w.source].silence_s;
+            w.state.silent = w.state.silent_at(now, self.start, limit);
+            self.alarms.on_unit(w.source, w.unit, w.state.silent, now);
         }
         self.alarms.tick(now);
     }
