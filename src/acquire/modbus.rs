@@ -249,6 +249,12 @@ pub async fn run(
                     }
                 }
             }
+            // Nobody answered: an adapter pulled out may leave the port
+            // open and silent rather than failing it, but its device node
+            // is gone.
+            if scan.readings.is_empty() && std::fs::metadata(&source.port).is_err() {
+                break 'polling "the device is gone".to_string();
+            }
             if !scan.readings.is_empty() {
                 let msg = FromSource {
                     source: id,

@@ -51,6 +51,16 @@ struct Seen {
 
 /// The slave: answers on the master side of `pty` until the test ends.
 fn slave(pty: Pty, seen: Arc<Seen>) {
+    slave_until(
+        pty,
+        seen,
+        Arc::new(std::sync::atomic::AtomicBool::new(false)),
+    );
+}
+
+/// [`slave`] until `unplug` turns true: then both ends of the pty close,
+/// as when the adapter is pulled out.
+fn slave_until(pty: Pty, seen: Arc<Seen>, unplug: Arc<std::sync::atomic::AtomicBool>) {
     let mut master = pty.master;
     std::thread::spawn(move || {
         let _keep = pty.slave;
@@ -62,6 +72,9 @@ fn slave(pty: Pty, seen: Arc<Seen>) {
                 Ok(1) => req.push(byte[0]),
                 // The master side does not block: wait for the next byte.
                 Err(e) if e.kind() == std::io::ErrorKind::WouldBlock => {
+                    if unplug.load(Ordering::Relaxed) {
+                        return;
+                    }
                     std::thread::sleep(Duration::from_millis(1));
                     continue;
                 }
@@ -132,6 +145,12 @@ fn slave(pty: Pty, seen: Arc<Seen>) {
 }
 
 fn config(pty: &str, port: u16, dir: &std::path::Path) -> String {
+    config_of(pty, port, dir, true)
+}
+
+/// The bus's configuration; `faulty`: with the channels of the units that
+/// fail (else unit 3's alone).
+fn config_of(pty: &str, port: u16, dir: &std::path::Path, faulty: bool) -> String {
     let mut s = format!(
         r#"
 state_dir = "{}"
@@ -175,7 +194,10 @@ specific_heat_j_kgk = 1000.0
         ("x7", 7, "input", 0, "i16"),
         ("x9", 9, "input", 0, "i16"),
         ("late", 11, "input", 0, "i16"),
-    ] {
+    ]
+    .into_iter()
+    .filter(|_| faulty)
+    {
         let order = if dt == "f32" {
             "word_order = \"low_first\"\n"
         } else {
@@ -390,4 +412,71 @@ fn probe_modbus_reads_a_unit_once() {
     let none = probe(&["--unit", "9"]);
     assert_eq!(none.status.code(), Some(1));
     assert!(String::from_utf8_lossy(&none.stderr).contains("did not answer within 100 ms"));
+}
+
+/// The adapter pulled out and plugged back (its stable name a symlink, as
+/// `/dev/serial/by-id/…` is, pointing at a new device): the bus is lost,
+/// said once, reopened, and read again.
+#[test]
+fn a_bus_unplugged_and_plugged_back_is_read_again() {
+    let dir = temp_dir("modbus-replug");
+    let port = free_port();
+    let _broker = Broker::start(port, &dir);
+    let rx = subscribe(port, &format!("{ROOT}/channel/p0"));
+    let link = dir.join("by-id-adapter");
+    let first = Pty::open().unwrap();
+    // Not inherited by the daemon: a copy of the master there would keep
+    // the device alive after the unplug.
+    for fd in [&first.master, &first.slave] {
+        use std::os::fd::AsRawFd;
+        // SAFETY: fcntl(2) on a descriptor this test owns.
+        unsafe { libc::fcntl(fd.as_raw_fd(), libc::F_SETFD, libc::FD_CLOEXEC) };
+    }
+    std::os::unix::fs::symlink(&first.path, &link).unwrap();
+    // Only the good unit: its four channels and the zone on them.
+    let cfg = write(
+        &dir,
+        "w.toml",
+        &config_of(link.to_str().unwrap(), port, &dir, false),
+    );
+    let unplug = Arc::new(std::sync::atomic::AtomicBool::new(false));
+    slave_until(first, Arc::new(Seen::default()), unplug.clone());
+    let log = dir.join("d.log");
+    let daemon = start_daemon(&cfg, &log);
+    let reading = |what: &str| {
+        wait_for(&rx, Duration::from_secs(20), what, |m| {
+            m.json["celsius"].is_number()
+        })
+    };
+    reading("p0 before the unplug");
+
+    unplug.store(true, Ordering::Relaxed);
+    let deadline = Instant::now() + Duration::from_secs(20);
+    while !std::fs::read_to_string(&log)
+        .unwrap_or_default()
+        .contains("Modbus bus lost")
+    {
+        assert!(Instant::now() < deadline, "the unplug was not noticed");
+        std::thread::sleep(Duration::from_millis(50));
+    }
+    let second = Pty::open().unwrap();
+    std::fs::remove_file(&link).unwrap();
+    std::os::unix::fs::symlink(&second.path, &link).unwrap();
+    slave(second, Arc::new(Seen::default()));
+    let plugged = crate::common::mqtt::now_rfc3339();
+    let m = wait_for(&rx, Duration::from_secs(40), "p0 after the replug", |m| {
+        m.json["celsius"].is_number()
+            && m.json["time"]
+                .as_str()
+                .is_some_and(|t| t > plugged.as_str())
+    });
+    assert!(
+        (m.json["celsius"].as_f64().unwrap() - 834.4).abs() < 1e-9,
+        "{}",
+        m.json
+    );
+    stop_daemon(daemon);
+    let text = std::fs::read_to_string(&log).unwrap();
+    assert_eq!(text.matches("Modbus bus lost").count(), 1, "{text}");
+    assert!(text.matches("Modbus bus open").count() >= 2, "{text}");
 }
