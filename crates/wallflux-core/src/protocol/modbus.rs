@@ -25,8 +25,9 @@ pub const MAX_REQUESTS: usize = MAX_POINTS;
 pub const MAX_REPLY_BYTES: usize = 3 + 2 * MAX_REGISTERS as usize + 2;
 
 /// CRC-16/MODBUS (polynomial 0x8005 reflected, initial value 0xFFFF), as
-/// the serial line spec's appendix computes it. Check value: 0x4B37 for
-/// the ASCII bytes `123456789`.
+/// the serial line spec's appendix computes it bit by bit. Check value:
+/// 0x4B37 for the ASCII bytes `123456789` (the CRC-16/MODBUS entry of the
+/// CRC RevEng catalogue of parametrised CRCs; the value from memory).
 pub fn crc16(bytes: &[u8]) -> u16 {
     let mut crc: u16 = 0xFFFF;
     for &b in bytes {
@@ -353,7 +354,8 @@ mod tests {
 
     #[test]
     fn crc_check_value_of_the_spec() {
-        // CRC-16/MODBUS check value (the CRC of ASCII "123456789").
+        // CRC-16/MODBUS check value (the CRC of ASCII "123456789"), as the
+        // CRC RevEng catalogue lists it (from memory).
         assert_eq!(crc16(b"123456789"), 0x4B37);
         // A read request often printed in module manuals (the bytes here
         // from memory): unit 1, FC 03, address 0, 1 register, CRC 0x0A84
