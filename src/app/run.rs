@@ -198,6 +198,25 @@ pub async fn run_recording(
         broker = %format!("{}:{}", settings.mqtt.host, settings.mqtt.port),
         topic_root = %root, state_dir = %settings.state_dir.display(), "wallflux started"
     );
+    // Ready for systemd (Type=notify): the configuration is loaded, the
+    // database open, the sources started (not waiting for the broker: the
+    // daemon does its work without it). Nothing without NOTIFY_SOCKET.
+    notify(&[
+        sd_notify::NotifyState::Ready,
+        sd_notify::NotifyState::Status("monitoring"),
+    ]);
+    // The watchdog is fed from this loop only: an engine that stalls stops
+    // feeding it and systemd restarts the service.
+    let watchdog = sd_notify::watchdog_enabled();
+    if let Some(w) = watchdog {
+        info!(
+            every_s = w.as_secs_f64() / 2.0,
+            "systemd watchdog fed from the engine loop"
+        );
+    }
+    let mut watchdog_tick =
+        tokio::time::interval(watchdog.map_or(Duration::from_secs(3600), |w| w / 2));
+    watchdog_tick.set_missed_tick_behavior(tokio::time::MissedTickBehavior::Skip);
 
     engine.monitor.handle_alarm_states_request(clock.now());
     engine.drain(&source_health, &link);
@@ -249,12 +268,14 @@ pub async fn run_recording(
                     r.flush();
                 }
             }
+            _ = watchdog_tick.tick(), if watchdog.is_some() => notify(&[sd_notify::NotifyState::Watchdog]),
             _ = &mut shutdown => break,
         }
         engine.drain(&source_health, &link);
     }
 
     info!("shutting down");
+    notify(&[sd_notify::NotifyState::Stopping]);
     let now = clock.now();
     engine.take_queued(&mut rx);
     engine.monitor.handle_timeout(now);
@@ -274,6 +295,16 @@ pub async fn run_recording(
     }
     info!("stopped");
     Ok(())
+}
+
+/// A message to systemd (`NOTIFY_SOCKET`); a failure is logged, once.
+fn notify(state: &[sd_notify::NotifyState]) {
+    static SAID: std::sync::atomic::AtomicBool = std::sync::atomic::AtomicBool::new(false);
+    if let Err(e) = sd_notify::notify(state) {
+        if !SAID.swap(true, std::sync::atomic::Ordering::Relaxed) {
+            warn!(error = %e, "cannot notify systemd (NOTIFY_SOCKET)");
+        }
+    }
 }
 
 /// How often (real time) the history is pruned to `[store] history_days`.

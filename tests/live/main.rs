@@ -15,6 +15,7 @@ mod cold_junction_live;
 mod contract;
 mod daemon;
 mod demo;
+mod deploy;
 mod diagnostics_live;
 mod link;
 mod modbus;
