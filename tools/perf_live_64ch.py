@@ -2,8 +2,10 @@
 embedded broker; prints the daemon's CPU time and resident memory
 (BENCHMARKS.md). Run from a directory holding base.toml (tools/gen_replay_day.py
 makes one; set its source port to PTY, [mqtt] port 18855, interval_s = 1 and
-a state_dir) after `cargo build --release`: python3 perf_live_64ch.py 60"""
-import os, sys, time, math, tty, subprocess, re
+a state_dir) after `cargo build --release`: python3 perf_live_64ch.py 60.
+WALLFLUX_BIN names another daemon binary (e.g. target/production/wallflux);
+the broker is mosquitto when installed, else the release build's embedded one."""
+import os, sys, time, math, tty, subprocess, re, shutil
 def crc(b):
     c=0xFFFF
     for x in b:
@@ -13,9 +15,13 @@ def crc(b):
     return c
 m,s=os.openpty(); tty.setraw(s); path=os.ttyname(s)
 cfg=open('base.toml').read().replace('PTY',path); open('run.toml','w').write(cfg)
-br=subprocess.Popen(['/work/main/target/release/wallflux','broker','--port','18855'],stderr=subprocess.DEVNULL)
+BIN=os.environ.get('WALLFLUX_BIN','/work/main/target/release/wallflux')
+if shutil.which('mosquitto'):
+    br=subprocess.Popen(['mosquitto','-p','18855'],stderr=subprocess.DEVNULL)
+else:
+    br=subprocess.Popen(['/work/main/target/release/wallflux','broker','--port','18855'],stderr=subprocess.DEVNULL)
 time.sleep(0.5)
-d=subprocess.Popen(['/work/main/target/release/wallflux','run','--config','run.toml'],stderr=open('d.log','w'))
+d=subprocess.Popen([BIN,'run','--config','run.toml'],stderr=open('d.log','w'))
 depths=[20,60,100,140,180,220,260,300]
 seq=0; t0=time.time(); dur=int(sys.argv[1])
 while time.time()-t0<dur:
