@@ -103,6 +103,7 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
             };
             runtime()?.block_on(async move {
                 let shutdown = shutdown_signal();
+                check_on_hangup(config.clone());
                 run::run_recording(settings, clock, shutdown, None, recorder)
                     .await
                     .map_err(Failure::runtime)
@@ -127,6 +128,37 @@ fn dispatch(cmd: Command) -> Result<(), Failure> {
             "this build has no demo (built without the `demo` feature)"
         ))),
     }
+}
+
+/// SIGHUP: the configuration file is checked again and the log says
+/// whether it is valid (each problem with its key and line); the running
+/// configuration stays as it is. (Applying a new one in place is not in
+/// this version: restart the service to apply it.) Without this, SIGHUP
+/// would end the daemon without a word and without saving.
+fn check_on_hangup(config: std::path::PathBuf) {
+    use tokio::signal::unix::{signal, SignalKind};
+    let mut hup = match signal(SignalKind::hangup()) {
+        Ok(h) => h,
+        Err(e) => {
+            tracing::warn!(error = %e, "cannot listen for SIGHUP");
+            return;
+        }
+    };
+    tokio::spawn(async move {
+        while hup.recv().await.is_some() {
+            match load(&config) {
+                Ok(s) => tracing::info!(
+                    file = %config.display(), zones = s.zones.len(), channels = s.channels.len(),
+                    warnings = s.warnings.len(),
+                    "SIGHUP: the configuration file is valid; the running configuration is unchanged (applying a new one takes a restart: systemctl restart wallflux)"
+                ),
+                Err(f) => tracing::warn!(
+                    file = %config.display(), problems = %format!("{:#}", f.error).replace('\n', "; "),
+                    "SIGHUP: the configuration file is not valid; the running configuration stays"
+                ),
+            }
+        }
+    });
 }
 
 /// `wallflux export`: the history to stdout.

@@ -140,3 +140,44 @@ fn readiness_watchdog_and_stopping_reach_systemd() {
     }
     assert!(stopping, "STOPPING=1 at a clean stop");
 }
+
+/// SIGHUP checks the configuration file again and says so, keeping the
+/// running configuration; the daemon is not ended by it (and a SIGTERM
+/// after still stops it cleanly).
+#[test]
+fn a_hangup_checks_the_file_and_keeps_running() {
+    let dir = temp_dir("deploy-hup");
+    let pty = wallflux::sim::pty::Pty::open().unwrap();
+    let port = free_port();
+    let good = one_zone_config(&pty.path, port, 1.5, 250.0, &[20.0, 100.0, 250.0], 1.0);
+    let cfg = write(&dir, "w.toml", &good);
+    let log = dir.join("d.log");
+    let daemon = start_daemon(&cfg, &log);
+    let wait_log = |needle: &str| {
+        let deadline = Instant::now() + Duration::from_secs(20);
+        loop {
+            let text = std::fs::read_to_string(&log).unwrap_or_default();
+            if text.contains(needle) {
+                return text;
+            }
+            assert!(
+                Instant::now() < deadline,
+                "{needle:?} not in the log: {text}"
+            );
+            std::thread::sleep(Duration::from_millis(50));
+        }
+    };
+    wait_log("wallflux started");
+    let hup = |d: &Daemon| {
+        // SAFETY: kill(2) on our own child's pid.
+        unsafe { libc::kill(d.id() as libc::pid_t, libc::SIGHUP) };
+    };
+    std::fs::write(&cfg, good.replace("area_m2 = 10.0", "area_m2 = -3.0")).unwrap();
+    hup(&daemon);
+    let text = wait_log("SIGHUP: the configuration file is not valid");
+    assert!(text.contains("zone[0].area_m2"), "{text}");
+    std::fs::write(&cfg, &good).unwrap();
+    hup(&daemon);
+    wait_log("SIGHUP: the configuration file is valid");
+    stop_daemon(daemon);
+}
