@@ -497,3 +497,45 @@ fn events_of_a_broker_stop_survive_a_kill_and_arrive_once_in_order() {
     );
     stop_daemon(d);
 }
+
+/// SIGTERM while the broker is out of reach, with events in the spool: a
+/// clean stop within its few seconds (exit 0), the log saying the spooled
+/// events wait for the next start, and the next start delivering them.
+#[test]
+fn a_clean_stop_during_an_outage_keeps_the_spool_for_the_next_start() {
+    let rig = Rig::new("spool-term", "");
+    let d = rig.daemon("d1.log");
+    drained(&rig);
+    rig.proxy.down();
+    let offline = rig.raise_events(0, 3);
+    rig.hot.store(false, Ordering::Relaxed);
+    stop_daemon(d); // asserts exit 0
+    let log = std::fs::read_to_string(rig.dir.join("d1.log")).unwrap();
+    assert!(
+        log.contains("the spooled events go at the next start"),
+        "{log}"
+    );
+    // Nothing waited out its own time limit on the way down.
+    assert!(
+        !log.contains("did not stop in time") && !log.contains("did not complete"),
+        "{log}"
+    );
+    assert!(rig.spooled() >= offline.len() as i64);
+    rig.proxy.up();
+    let d = rig.daemon("d2.log");
+    let keys: Vec<String> = offline.iter().map(key).collect();
+    let mut seen = Vec::new();
+    let deadline = Instant::now() + Duration::from_secs(30);
+    while seen.len() < keys.len() {
+        let m = rig
+            .rx
+            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
+            .unwrap_or_else(|_| panic!("got {} of {} spooled events", seen.len(), keys.len()));
+        if m.topic == format!("{ROOT}/events") && keys.contains(&key(&m.json)) {
+            assert_eq!(m.json["backfill"], true);
+            seen.push(key(&m.json));
+        }
+    }
+    assert_eq!(seen, keys);
+    stop_daemon(d);
+}
