@@ -29,7 +29,7 @@ use tokio::sync::{mpsc, watch};
 use tokio_serial::SerialPortBuilderExt;
 use tracing::{info, warn};
 
-use super::serial::{Delivery, FromSource, SourceHealth};
+use super::serial::{wait_or_shutdown, Delivery, FromSource, SourceHealth};
 use crate::app::clock::Clock;
 use crate::config::{ModbusBus, Parity, Source};
 use crate::ids::SourceId;
@@ -349,13 +349,6 @@ async fn settle(port: &mut tokio_serial::SerialStream, bus: &ModbusBus) {
         if n == 0 {
             break;
         }
-    }
-}
-
-async fn wait_or_shutdown(d: Duration, shutdown: &mut watch::Receiver<bool>) -> bool {
-    tokio::select! {
-        _ = tokio::time::sleep(d) => *shutdown.borrow(),
-        _ = shutdown.changed() => *shutdown.borrow(),
     }
 }
 

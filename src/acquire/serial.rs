@@ -167,7 +167,7 @@ pub async fn run(
 }
 
 /// Sleeps for `d`; true if shutdown was requested meanwhile.
-async fn wait_or_shutdown(d: Duration, shutdown: &mut watch::Receiver<bool>) -> bool {
+pub(super) async fn wait_or_shutdown(d: Duration, shutdown: &mut watch::Receiver<bool>) -> bool {
     tokio::select! {
         _ = tokio::time::sleep(d) => *shutdown.borrow(),
         _ = shutdown.changed() => *shutdown.borrow(),

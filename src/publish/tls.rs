@@ -270,57 +270,48 @@ pub fn secret_file_warnings(m: &MqttSettings) -> Vec<String> {
 /// `e` in words when it is a TLS failure (None otherwise): why the
 /// handshake failed, in the configuration's terms.
 pub fn describe(e: &ConnectionError) -> Option<String> {
-    let io = match e {
-        ConnectionError::Tls(TlsError::TLS(r)) => return Some(tls_words(r)),
-        ConnectionError::Tls(TlsError::DNSName(_)) => {
-            return Some("TLS: mqtt.host is neither a DNS name nor an IP address".into())
-        }
-        ConnectionError::Tls(TlsError::Io(io)) => {
-            if let Some(r) = inner_rustls(io) {
-                return Some(tls_words(r));
-            }
-            return Some(match io.kind() {
-                ErrorKind::UnexpectedEof | ErrorKind::ConnectionReset => {
-                    "TLS: the broker closed the connection during the handshake (is mqtt.port its TLS listener?)".into()
-                }
-                _ => format!("TLS: {io}"),
-            });
-        }
-        ConnectionError::Tls(other) => return Some(format!("TLS: {other}")),
+    match e {
+        ConnectionError::Tls(t) => Some(tls_error_words(t)),
         ConnectionError::Io(io)
         | ConnectionError::MqttState(StateError::Io(io))
         | ConnectionError::MqttState(StateError::Deserialization(rumqttc::mqttbytes::Error::Io(
             io,
-        ))) => io,
-        _ => return None,
-    };
-    // After the handshake (TLS 1.3 judges the client's certificate then).
-    inner_rustls(io).map(tls_words)
+        ))) => after_handshake(io),
+        _ => None,
+    }
 }
 
 /// [`describe`] for the MQTT 5 client's errors.
 pub fn describe_v5(e: &rumqttc::v5::ConnectionError) -> Option<String> {
     use rumqttc::v5::{ConnectionError as E, StateError as S};
-    let io = match e {
-        E::Tls(TlsError::TLS(r)) => return Some(tls_words(r)),
-        E::Tls(TlsError::DNSName(_)) => {
-            return Some("TLS: mqtt.host is neither a DNS name nor an IP address".into())
-        }
-        E::Tls(TlsError::Io(io)) => {
-            if let Some(r) = inner_rustls(io) {
-                return Some(tls_words(r));
-            }
-            return Some(match io.kind() {
+    match e {
+        E::Tls(t) => Some(tls_error_words(t)),
+        E::Io(io) | E::MqttState(S::Io(io)) => after_handshake(io),
+        _ => None,
+    }
+}
+
+/// A failure of the TLS connector (either protocol version), in words.
+fn tls_error_words(t: &TlsError) -> String {
+    match t {
+        TlsError::TLS(r) => tls_words(r),
+        TlsError::DNSName(_) => "TLS: mqtt.host is neither a DNS name nor an IP address".into(),
+        TlsError::Io(io) => match inner_rustls(io) {
+            Some(r) => tls_words(r),
+            None => match io.kind() {
                 ErrorKind::UnexpectedEof | ErrorKind::ConnectionReset => {
                     "TLS: the broker closed the connection during the handshake (is mqtt.port its TLS listener?)".into()
                 }
                 _ => format!("TLS: {io}"),
-            });
-        }
-        E::Tls(other) => return Some(format!("TLS: {other}")),
-        E::Io(io) | E::MqttState(S::Io(io)) => io,
-        _ => return None,
-    };
+            },
+        },
+        other => format!("TLS: {other}"),
+    }
+}
+
+/// An IO error after the handshake that is a TLS refusal (TLS 1.3 judges
+/// the client's certificate then), in words.
+fn after_handshake(io: &std::io::Error) -> Option<String> {
     inner_rustls(io).map(tls_words)
 }
 

@@ -143,6 +143,24 @@ impl Rig {
         }
     }
 
+    /// The subscriber's copies of `events`, as many as there are, in the
+    /// order they arrive (other messages skipped).
+    fn receive(&self, events: &[serde_json::Value]) -> Vec<serde_json::Value> {
+        let keys: Vec<String> = events.iter().map(key).collect();
+        let mut got = Vec::new();
+        let deadline = Instant::now() + Duration::from_secs(30);
+        while got.len() < keys.len() {
+            let m = self
+                .rx
+                .recv_timeout(deadline.saturating_duration_since(Instant::now()))
+                .unwrap_or_else(|_| panic!("received {} of {} events", got.len(), keys.len()));
+            if m.topic == format!("{ROOT}/events") && keys.contains(&key(&m.json)) {
+                got.push(m.json);
+            }
+        }
+        got
+    }
+
     /// The rows still in the spool (read from the database itself).
     fn spooled(&self) -> i64 {
         let conn = rusqlite::Connection::open_with_flags(
@@ -224,19 +242,7 @@ fn outage_and_kill(rig: Rig) {
 
     // Every outage event, in order, once.
     let offline_keys: Vec<String> = offline.iter().map(key).collect();
-    let mut got: Vec<serde_json::Value> = Vec::new();
-    let deadline = Instant::now() + Duration::from_secs(30);
-    while got.len() < offline.len() {
-        let m = rig
-            .rx
-            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
-            .unwrap_or_else(|_| {
-                panic!("received {} of {} outage events", got.len(), offline.len())
-            });
-        if m.topic == format!("{ROOT}/events") && offline_keys.contains(&key(&m.json)) {
-            got.push(m.json);
-        }
-    }
+    let got = rig.receive(&offline);
     for (g, e) in got.iter().zip(&offline) {
         assert_eq!(key(g), key(e), "in order, with their original time");
         assert_eq!(g["backfill"], true, "{g}");
@@ -469,19 +475,7 @@ fn events_of_a_broker_stop_survive_a_kill_and_arrive_once_in_order() {
     let d = rig.daemon("d2.log");
 
     let keys: Vec<String> = offline.iter().map(key).collect();
-    let mut got: Vec<serde_json::Value> = Vec::new();
-    let deadline = Instant::now() + Duration::from_secs(30);
-    while got.len() < offline.len() {
-        let m = rig
-            .rx
-            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
-            .unwrap_or_else(|_| {
-                panic!("received {} of {} outage events", got.len(), offline.len())
-            });
-        if m.topic == format!("{ROOT}/events") && keys.contains(&key(&m.json)) {
-            got.push(m.json);
-        }
-    }
+    let got = rig.receive(&offline);
     for (g, e) in got.iter().zip(&offline) {
         assert_eq!(key(g), key(e), "in order, with their original time");
         assert_eq!(g["time"], e["time"]);
@@ -524,18 +518,8 @@ fn a_clean_stop_during_an_outage_keeps_the_spool_for_the_next_start() {
     rig.proxy.up();
     let d = rig.daemon("d2.log");
     let keys: Vec<String> = offline.iter().map(key).collect();
-    let mut seen = Vec::new();
-    let deadline = Instant::now() + Duration::from_secs(30);
-    while seen.len() < keys.len() {
-        let m = rig
-            .rx
-            .recv_timeout(deadline.saturating_duration_since(Instant::now()))
-            .unwrap_or_else(|_| panic!("got {} of {} spooled events", seen.len(), keys.len()));
-        if m.topic == format!("{ROOT}/events") && keys.contains(&key(&m.json)) {
-            assert_eq!(m.json["backfill"], true);
-            seen.push(key(&m.json));
-        }
-    }
-    assert_eq!(seen, keys);
+    let got = rig.receive(&offline);
+    assert!(got.iter().all(|g| g["backfill"] == true), "{got:?}");
+    assert_eq!(got.iter().map(key).collect::<Vec<_>>(), keys);
     stop_daemon(d);
 }
